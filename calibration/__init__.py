@@ -1,0 +1,1 @@
+"""Camera model, grid detection, flight-plane pose, world frame, drop check and rig files."""

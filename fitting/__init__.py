@@ -1,0 +1,1 @@
+"""Flight physics and estimation (pure SI; no OpenCV, no other stage)."""

@@ -1,0 +1,50 @@
+"""BB properties (a uniform 6 mm-class plastic sphere)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from .constants import DEFAULT_BB_DIAMETER_M
+
+
+@dataclass(frozen=True)
+class BB:
+    """A BB: a uniform sphere.
+
+    Attributes
+    ----------
+    mass_kg : mass, kg (a 0.25 g BB is 2.5e-4 kg).
+    diameter_m : diameter, m (default 5.95e-3 m, common practice).
+    """
+
+    mass_kg: float
+    diameter_m: float = DEFAULT_BB_DIAMETER_M
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.mass_kg) and self.mass_kg > 0):
+            raise ValueError(f"BB mass must be a positive finite number of kg, got {self.mass_kg!r}")
+        if not (math.isfinite(self.diameter_m) and self.diameter_m > 0):
+            raise ValueError(f"BB diameter must be a positive finite number of m, got {self.diameter_m!r}")
+        if not (1e-5 <= self.mass_kg <= 1e-2):
+            raise ValueError(f"BB mass {self.mass_kg:g} kg is outside 0.01..10 g")
+        if not (1e-3 <= self.diameter_m <= 2e-2):
+            raise ValueError(f"BB diameter {self.diameter_m:g} m is outside 1..20 mm")
+
+    @property
+    def radius_m(self) -> float:
+        return 0.5 * self.diameter_m
+
+    @property
+    def area_m2(self) -> float:
+        """Frontal (cross-section) area pi d²/4, m²."""
+        return math.pi * self.diameter_m**2 / 4.0
+
+    @property
+    def inertia_kgm2(self) -> float:
+        """Moment of inertia of a uniform solid sphere, (2/5) m r², kg·m²."""
+        return 0.4 * self.mass_kg * self.radius_m**2
+
+    def kinetic_energy_j(self, speed_mps: float) -> float:
+        """Translational kinetic energy ½ m v², J."""
+        return 0.5 * self.mass_kg * speed_mps * speed_mps

@@ -1,0 +1,1 @@
+"""Video reading with real timestamps, BB detection and localisation, association and track files."""
