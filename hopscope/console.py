@@ -28,12 +28,16 @@ def warn(message: str) -> None:
     print(f"warning: {message}", file=sys.stderr)
 
 
-def progress(items: Iterable[T], *, total: int | None = None, desc: str = "", unit: str = "it") -> Iterator[T]:
+def progress(
+    items: Iterable[T], *, total: int | None = None, desc: str = "", unit: str = "it"
+) -> Iterator[T]:
     """A progress bar on stderr (only when stderr is a terminal, or HOPSCOPE_PROGRESS=1)."""
     from tqdm import tqdm
 
     enabled = sys.stderr.isatty() or os.environ.get("HOPSCOPE_PROGRESS") == "1"
-    yield from tqdm(items, total=total, desc=desc, unit=unit, disable=not enabled, leave=False, file=sys.stderr)
+    yield from tqdm(
+        items, total=total, desc=desc, unit=unit, disable=not enabled, leave=False, file=sys.stderr
+    )
 
 
 def summary(title: str, rows: list[tuple[str, str]]) -> str:

@@ -1,0 +1,91 @@
+"""The hop verdict: is the hop-up giving too little, about right, or too much backspin?
+
+A trajectory fixes the lift force, so the natural measure is the lift-to-weight ratio at the first tracked
+point, L/W = ½ ρ A C_L u² / (m g): about 1 means the BB flies flat at first; well below 1 it drops early;
+well above 1 it climbs. The thresholds below are the project's own reading of what technicians call
+under-hopped, flat and over-hopped.  # common practice, no published source
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from .air import Air
+from .bb import BB
+from .constants import STANDARD_GRAVITY_MPS2
+
+#: Lift-to-weight below this: too little hop (the BB drops early).  # common practice, no published source
+UNDER_HOP_BELOW = 0.80
+#: Lift-to-weight above this: too much hop (the BB climbs).  # common practice, no published source
+OVER_HOP_ABOVE = 1.15
+
+
+def lift_to_weight(
+    lift_coefficient: float,
+    speed_mps: float,
+    *,
+    bb: BB,
+    air: Air,
+    gravity_mps2: float = STANDARD_GRAVITY_MPS2,
+) -> float:
+    """Magnus lift over weight, ½ ρ A C_L u² / (m g) (dimensionless)."""
+    return 0.5 * air.density_kgm3 * bb.area_m2 * lift_coefficient * speed_mps**2 / (bb.mass_kg * gravity_mps2)
+
+
+@dataclass(frozen=True)
+class HopVerdict:
+    """Verdict on the hop setting.
+
+    Attributes
+    ----------
+    category : "under-hopped", "flat" or "over-hopped"; "undetermined" when the ratio is too uncertain to say.
+    ratio : lift-to-weight ratio at the first tracked point.
+    ratio_stderr : its 1σ uncertainty.
+    headline, detail : text for people.
+    """
+
+    category: str
+    ratio: float
+    ratio_stderr: float
+    headline: str
+    detail: str
+
+
+def judge_hop(ratio: float, ratio_stderr: float) -> HopVerdict:
+    """Classify a lift-to-weight ratio (with its 1σ) into a hop verdict."""
+    if not (math.isfinite(ratio) and math.isfinite(ratio_stderr) and ratio_stderr >= 0):
+        raise ValueError(
+            f"lift-to-weight ratio and its stderr must be finite, got {ratio!r} ± {ratio_stderr!r}"
+        )
+    band = f"lift/weight = {ratio:.2f} ± {ratio_stderr:.2f} at the first tracked point"
+    if (
+        ratio_stderr > 0.5 * (OVER_HOP_ABOVE - UNDER_HOP_BELOW)
+        and UNDER_HOP_BELOW - ratio_stderr < ratio < OVER_HOP_ABOVE + ratio_stderr
+    ):
+        return HopVerdict(
+            "undetermined",
+            ratio,
+            ratio_stderr,
+            "Hop setting undetermined",
+            f"{band}; the measurement is too uncertain to judge — track a longer stretch of flight.",
+        )
+    if ratio < UNDER_HOP_BELOW:
+        return HopVerdict(
+            "under-hopped",
+            ratio,
+            ratio_stderr,
+            "Under-hopped",
+            f"{band}; the BB drops early — more hop (backspin) would flatten it.",
+        )
+    if ratio > OVER_HOP_ABOVE:
+        return HopVerdict(
+            "over-hopped",
+            ratio,
+            ratio_stderr,
+            "Over-hopped",
+            f"{band}; the BB climbs — less hop would flatten it and keep speed for range.",
+        )
+    return HopVerdict(
+        "flat", ratio, ratio_stderr, "Flat", f"{band}; lift about balances weight near the muzzle."
+    )
