@@ -70,7 +70,7 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print(f"{prog}: error: {_one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except Exception as exc:  # noqa: BLE001 - the contract: one line, exit 1
+    except Exception as exc:  # the contract: one line, exit 1
         if debug:
             raise
         print(
