@@ -1,0 +1,520 @@
+"""The rig: camera model, flight-plane pose and world frame, with the calibration's own uncertainty.
+
+A :class:`Rig` maps pixels to metres on the flight plane and back. It is the single place where pixels
+become metres (``rig.json``, schema ``hopscope.rig/1``).
+
+Conventions
+-----------
+Pixel points are (u, v) = (x, y) in OpenCV order, the centre of the top-left pixel at (0, 0).
+World frame: x downrange (along the board's rows toward image right), y up, z = x × y (toward the camera),
+metres; origin at the first plane placement's first inner corner. Camera pose is world → camera:
+``X_cam = R @ X_world + t``. The flight plane is ``z = plane_z_m`` (0 = the board plane; a board standing a
+known distance *behind* the flight plane gives ``plane_z_m > 0``).
+
+The camera model is OpenCV's pinhole model with Brown–Conrady distortion (coefficients in OpenCV order
+k1, k2, p1, p2[, k3[, k4, k5, k6[, ...]]]).
+
+References
+----------
+Zhang, Z. (2000). A flexible new technique for camera calibration. IEEE TPAMI 22(11):1330–1334.
+Brown, D. C. (1966). Decentering distortion of lenses. Photogrammetric Engineering 32(3):444–462.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import cv2
+import numpy as np
+
+SCHEMA = "hopscope.rig/1"
+
+#: Allowed lengths of an OpenCV distortion vector.
+_DIST_LENGTHS = (4, 5, 8, 12, 14)
+
+#: Tolerance on R^T R = I and det R = 1 for a rotation read from a file.
+_ROTATION_TOL = 1e-6
+
+#: Undistortion iteration criteria: the default 5 iterations leave errors of a pixel or more near the
+#: image edges of a strongly distorted lens, so iterate to convergence.
+UNDISTORT_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
+
+#: Step of the central differences in :meth:`Rig.pixel_to_world_jacobian`, px.
+JACOBIAN_STEP_PX = 0.5
+
+
+def _frozen_array(value: Any, shape: tuple[int | None, ...], name: str) -> np.ndarray:
+    arr = np.array(value, dtype=float)
+    if arr.ndim != len(shape) or any(s is not None and s != n for s, n in zip(shape, arr.shape, strict=True)):
+        want = "x".join("k" if s is None else str(s) for s in shape)
+        raise ValueError(f"rig field {name}: expected an array of shape {want}, got shape {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"rig field {name}: contains a non-finite value")
+    arr.setflags(write=False)
+    return arr
+
+
+def _check_rotation(r: np.ndarray, name: str) -> None:
+    if np.max(np.abs(r.T @ r - np.eye(3))) > _ROTATION_TOL or abs(np.linalg.det(r) - 1.0) > _ROTATION_TOL:
+        raise ValueError(f"rig field {name}: not a proper rotation matrix (R^T R != I or det R != 1)")
+
+
+@dataclass(frozen=True, eq=False)
+class CameraState:
+    """One camera model and pose: the nominal rig's, or one ensemble member's.
+
+    Attributes
+    ----------
+    camera_matrix : (3, 3) intrinsics K, px.
+    dist_coeffs : (k,) distortion coefficients, OpenCV order (k1, k2, p1, p2[, k3, ...]).
+    rotation : (3, 3) world → camera rotation R.
+    translation : (3,) world → camera translation t, m (``X_cam = R X_world + t``).
+    plane_z_m : world z of the flight plane, m.
+    """
+
+    camera_matrix: np.ndarray
+    dist_coeffs: np.ndarray
+    rotation: np.ndarray
+    translation: np.ndarray
+    plane_z_m: float = 0.0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "camera_matrix", _frozen_array(self.camera_matrix, (3, 3), "camera_matrix"))
+        dist = _frozen_array(np.ravel(np.asarray(self.dist_coeffs, dtype=float)), (None,), "dist_coeffs")
+        if dist.size not in _DIST_LENGTHS:
+            raise ValueError(f"rig field dist_coeffs: expected 4, 5, 8, 12 or 14 values, got {dist.size}")
+        object.__setattr__(self, "dist_coeffs", dist)
+        rot = _frozen_array(self.rotation, (3, 3), "rotation")
+        _check_rotation(rot, "rotation")
+        object.__setattr__(self, "rotation", rot)
+        object.__setattr__(self, "translation", _frozen_array(self.translation, (3,), "translation"))
+        if not math.isfinite(float(self.plane_z_m)):
+            raise ValueError("rig field plane_z_m: not a finite number")
+        object.__setattr__(self, "plane_z_m", float(self.plane_z_m))
+        k = self.camera_matrix
+        if not (k[0, 0] > 0 and k[1, 1] > 0 and abs(k[2, 2] - 1.0) < 1e-12):
+            raise ValueError("rig field camera_matrix: expected fx > 0, fy > 0 and K[2,2] = 1")
+
+    # --- geometry -------------------------------------------------------------------------------------
+    @property
+    def camera_center_m(self) -> np.ndarray:
+        """Camera centre in world coordinates, m: C = −Rᵀ t."""
+        return -self.rotation.T @ self.translation
+
+    @property
+    def plane_distance_m(self) -> float:
+        """Perpendicular distance from the camera centre to the flight plane, m."""
+        return float(abs(self.camera_center_m[2] - self.plane_z_m))
+
+    def pixel_to_world(self, uv: Any) -> np.ndarray:
+        """Map pixels to world (x, y) on the flight plane.
+
+        Parameters
+        ----------
+        uv : (N, 2) pixel points (u, v), px (OpenCV order, pixel centres at integers).
+
+        Returns
+        -------
+        (N, 2) world x, y in m on the plane z = ``plane_z_m``. Rays that do not meet the plane in front of
+        the camera give NaN.
+
+        Notes
+        -----
+        Undistortion iterates to convergence (:data:`UNDISTORT_CRITERIA`), the ray x_n = (x', y', 1) is
+        turned into world coordinates (D = Rᵀ x_n from C = −Rᵀ t) and cut with the plane.
+        """
+        pts = _points(uv, 2, "uv")
+        if pts.shape[0] == 0:
+            return np.zeros((0, 2))
+        norm = cv2.undistortPoints(
+            pts.reshape(-1, 1, 2), self.camera_matrix, self.dist_coeffs, criteria=UNDISTORT_CRITERIA
+        ).reshape(-1, 2)
+        rays = np.column_stack([norm, np.ones(len(norm))]) @ self.rotation  # rows: Rᵀ x_n
+        c = self.camera_center_m
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = (self.plane_z_m - c[2]) / rays[:, 2]
+        s = np.where(s > 0, s, np.nan)
+        return c[None, :2] + s[:, None] * rays[:, :2]
+
+    def world_to_pixel(self, xy: Any) -> np.ndarray:
+        """Project world points to pixels.
+
+        Parameters
+        ----------
+        xy : (N, 2) world x, y on the flight plane (z = ``plane_z_m``), or (N, 3) world x, y, z; m.
+
+        Returns
+        -------
+        (N, 2) pixel points (u, v), px (OpenCV order, pixel centres at integers), through the full lens model.
+        """
+        arr = np.asarray(xy, dtype=float)
+        if arr.ndim != 2 or arr.shape[1] not in (2, 3):
+            raise ValueError(f"xy: expected an (N, 2) or (N, 3) array of metres, got shape {arr.shape}")
+        if arr.shape[1] == 2:
+            arr = np.column_stack([arr, np.full(len(arr), self.plane_z_m)])
+        if arr.shape[0] == 0:
+            return np.zeros((0, 2))
+        rvec, _ = cv2.Rodrigues(self.rotation)
+        img, _ = cv2.projectPoints(
+            arr.reshape(-1, 1, 3), rvec, self.translation, self.camera_matrix, self.dist_coeffs
+        )
+        return img.reshape(-1, 2)
+
+    def pixel_to_world_jacobian(self, uv: Any, *, step_px: float = JACOBIAN_STEP_PX) -> np.ndarray:
+        """d(x, y)/d(u, v) of :meth:`pixel_to_world` by central differences, (N, 2, 2), m/px.
+
+        ``J[i, a, b]`` is the derivative of world coordinate a (x, y) by pixel coordinate b (u, v).
+        """
+        pts = _points(uv, 2, "uv")
+        n = pts.shape[0]
+        offs = np.array([[step_px, 0.0], [-step_px, 0.0], [0.0, step_px], [0.0, -step_px]])
+        probe = (pts[:, None, :] + offs[None, :, :]).reshape(-1, 2)
+        w = self.pixel_to_world(probe).reshape(n, 4, 2)
+        jac = np.empty((n, 2, 2))
+        jac[:, :, 0] = (w[:, 0] - w[:, 1]) / (2 * step_px)
+        jac[:, :, 1] = (w[:, 2] - w[:, 3]) / (2 * step_px)
+        return jac
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "camera_matrix": self.camera_matrix.tolist(),
+            "dist_coeffs": self.dist_coeffs.tolist(),
+            "rotation": self.rotation.tolist(),
+            "translation": self.translation.tolist(),
+            "plane_z_m": self.plane_z_m,
+        }
+
+
+def _points(value: Any, dim: int, name: str) -> np.ndarray:
+    arr = np.asarray(value, dtype=float)
+    if arr.ndim == 1 and arr.size == dim:
+        arr = arr.reshape(1, dim)
+    if arr.ndim != 2 or arr.shape[1] != dim:
+        raise ValueError(f"{name}: expected an (N, {dim}) array, got shape {arr.shape}")
+    return arr
+
+
+@dataclass(frozen=True, eq=False)
+class Rig:
+    """A calibrated camera looking at the flight plane.
+
+    Attributes
+    ----------
+    image_size : (w, h) image width and height, px.
+    camera_matrix : (3, 3) intrinsics K, px.
+    dist_coeffs : (k,) distortion coefficients, OpenCV order.
+    rotation, translation : world → camera pose, ``X_cam = R X_world + t`` (t in m).
+    plane_z_m : world z of the flight plane, m (0 = the board plane; > 0 when the board stood behind it).
+    reprojection_rms_px : RMS reprojection error of the lens calibration, px.
+    ensemble : perturbed camera states (resampled views, corner noise, taped-offset error) that carry the
+        calibration's uncertainty; map a point through each to get its calibration spread.
+    coverage_m : (x_min, x_max, y_min, y_max) region of the flight plane covered by plane references, m.
+    drop_check : free-fall scale and level check (see :mod:`calibration.drop`), or None.
+    provenance : how the rig was made (inputs, views used/rejected, per-view errors, σ of intrinsics ...).
+    warnings : warnings raised while making the rig (also printed by the CLI).
+
+    Notes
+    -----
+    World frame: x downrange, y up, z toward the camera, metres; pixels (u, v) in OpenCV order.
+    """
+
+    image_size: tuple[int, int]
+    camera_matrix: np.ndarray
+    dist_coeffs: np.ndarray
+    rotation: np.ndarray
+    translation: np.ndarray
+    plane_z_m: float
+    reprojection_rms_px: float
+    ensemble: tuple[CameraState, ...] = ()
+    coverage_m: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)
+    drop_check: Mapping[str, Any] | None = None
+    provenance: Mapping[str, Any] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    def __post_init__(self) -> None:
+        size = tuple(self.image_size)
+        if len(size) != 2 or not all(float(s).is_integer() and s > 0 for s in size):
+            raise ValueError(
+                f"rig field image_size: expected (w, h) positive integers, got {self.image_size!r}"
+            )
+        object.__setattr__(self, "image_size", (int(size[0]), int(size[1])))
+        nominal = CameraState(
+            self.camera_matrix, self.dist_coeffs, self.rotation, self.translation, self.plane_z_m
+        )
+        object.__setattr__(self, "_nominal", nominal)
+        for name in ("camera_matrix", "dist_coeffs", "rotation", "translation", "plane_z_m"):
+            object.__setattr__(self, name, getattr(nominal, name))
+        rms = float(self.reprojection_rms_px)
+        if not (math.isfinite(rms) and rms >= 0):
+            raise ValueError(f"rig field reprojection_rms_px: expected a finite number >= 0, got {rms!r}")
+        object.__setattr__(self, "reprojection_rms_px", rms)
+        ens = tuple(m if isinstance(m, CameraState) else CameraState(**m) for m in self.ensemble)
+        object.__setattr__(self, "ensemble", ens)
+        cov = tuple(float(c) for c in self.coverage_m)
+        if len(cov) != 4 or not all(math.isfinite(c) for c in cov) or cov[0] > cov[1] or cov[2] > cov[3]:
+            raise ValueError(
+                f"rig field coverage_m: expected finite (x_min, x_max, y_min, y_max), got {cov!r}"
+            )
+        object.__setattr__(self, "coverage_m", cov)
+        if self.drop_check is not None:
+            _check_finite_tree(self.drop_check, "drop_check")
+        object.__setattr__(self, "provenance", dict(self.provenance))
+        object.__setattr__(self, "warnings", tuple(str(w) for w in self.warnings))
+
+    # --- mapping ---------------------------------------------------------------------------------------
+    @property
+    def nominal(self) -> CameraState:
+        """The nominal camera state (intrinsics, distortion, pose, plane)."""
+        return self._nominal  # type: ignore[attr-defined,no-any-return]
+
+    @property
+    def camera_center_m(self) -> np.ndarray:
+        """Camera centre in world coordinates, m."""
+        return self.nominal.camera_center_m
+
+    @property
+    def plane_distance_m(self) -> float:
+        """Perpendicular distance from the camera centre to the flight plane, m."""
+        return self.nominal.plane_distance_m
+
+    def pixel_to_world(self, uv: Any) -> np.ndarray:
+        """(N, 2) pixels (u, v) → (N, 2) world (x, y) on the flight plane, m. See :meth:`CameraState.pixel_to_world`."""
+        return self.nominal.pixel_to_world(uv)
+
+    def world_to_pixel(self, xy: Any) -> np.ndarray:
+        """(N, 2) plane (x, y) or (N, 3) world (x, y, z), m → (N, 2) pixels (u, v)."""
+        return self.nominal.world_to_pixel(xy)
+
+    def pixel_to_world_jacobian(self, uv: Any, *, step_px: float = JACOBIAN_STEP_PX) -> np.ndarray:
+        """(N, 2, 2) d(x, y)/d(u, v), m/px, by central differences (``J[i, world axis, pixel axis]``)."""
+        return self.nominal.pixel_to_world_jacobian(uv, step_px=step_px)
+
+    def ensemble_pixel_to_world(self, uv: Any) -> np.ndarray:
+        """(K, N, 2) world (x, y) of the pixels under each of the K ensemble members, m (K may be 0)."""
+        pts = _points(uv, 2, "uv")
+        if not self.ensemble:
+            return np.zeros((0, pts.shape[0], 2))
+        return np.stack([m.pixel_to_world(pts) for m in self.ensemble])
+
+    def metres_per_pixel(self, uv: Any) -> np.ndarray:
+        """(N,) local scale sqrt|det J| at the pixels, m/px (geometric mean of the two axes)."""
+        return np.sqrt(np.abs(np.linalg.det(self.pixel_to_world_jacobian(uv))))
+
+    def in_coverage(self, xy: Any, *, margin_m: float = 0.0) -> np.ndarray:
+        """(N,) bool: world points inside the region covered by plane references (grown by ``margin_m``)."""
+        p = _points(xy, 2, "xy")
+        x0, x1, y0, y1 = self.coverage_m
+        return (
+            (p[:, 0] >= x0 - margin_m)
+            & (p[:, 0] <= x1 + margin_m)
+            & (p[:, 1] >= y0 - margin_m)
+            & (p[:, 1] <= y1 + margin_m)
+        )
+
+    # --- derived rigs ----------------------------------------------------------------------------------
+    def with_drop_check(self, drop_check: Mapping[str, Any] | None, *, warnings: Sequence[str] = ()) -> Rig:
+        """A copy carrying ``drop_check`` (and extra warnings)."""
+        return dataclasses.replace(self, drop_check=drop_check, warnings=self.warnings + tuple(warnings))
+
+    def rotated_about_z(self, angle_rad: float) -> Rig:
+        """A copy whose world frame is turned by ``angle_rad`` about z (counter-clockwise seen from +z).
+
+        A world point with old coordinates X has new coordinates Rz X. Used to make y point up when a drop
+        shows the board was not level: the origin and the plane stay, the ensemble and coverage follow.
+        """
+        c, s = math.cos(angle_rad), math.sin(angle_rad)
+        rz = np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])
+
+        def turn(state: CameraState) -> CameraState:
+            return dataclasses.replace(state, rotation=state.rotation @ rz.T)
+
+        x0, x1, y0, y1 = self.coverage_m
+        box = rz[:2, :2] @ np.array([[x0, x1, x1, x0], [y0, y0, y1, y1]])
+        return dataclasses.replace(
+            self,
+            rotation=self.rotation @ rz.T,
+            ensemble=tuple(turn(m) for m in self.ensemble),
+            coverage_m=(box[0].min(), box[0].max(), box[1].min(), box[1].max()),
+        )
+
+    # --- identity ---------------------------------------------------------------------------------------
+    @property
+    def digest(self) -> str:
+        """sha256 hex digest of the canonical JSON of the rig (sorted keys, no whitespace)."""
+        return hashlib.sha256(_canonical(rig_to_dict(self)).encode("utf-8")).hexdigest()
+
+
+def _check_finite_tree(value: Any, name: str) -> None:
+    if isinstance(value, Mapping):
+        for k, v in value.items():
+            _check_finite_tree(v, f"{name}.{k}")
+    elif isinstance(value, (list, tuple)):
+        for i, v in enumerate(value):
+            _check_finite_tree(v, f"{name}[{i}]")
+    elif isinstance(value, bool) or value is None or isinstance(value, str):
+        return
+    elif isinstance(value, (int, float, np.integer, np.floating)):
+        if not math.isfinite(float(value)):
+            raise ValueError(f"rig field {name}: not a finite number")
+    else:
+        raise ValueError(f"rig field {name}: unsupported value of type {type(value).__name__}")
+
+
+def _plain(value: Any) -> Any:
+    """Turn numpy scalars/arrays inside nested containers into JSON-ready Python values."""
+    if isinstance(value, Mapping):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _plain(value.tolist())
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.floating):
+        return float(value)
+    return value
+
+
+def _canonical(obj: Any) -> str:
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+# --- I/O ---------------------------------------------------------------------------------------------------
+_FIELDS = (
+    "image_size",
+    "camera_matrix",
+    "dist_coeffs",
+    "rotation",
+    "translation",
+    "plane_z_m",
+    "reprojection_rms_px",
+    "ensemble",
+    "coverage_m",
+    "drop_check",
+    "provenance",
+    "warnings",
+)
+
+
+def rig_to_dict(rig: Rig) -> dict[str, Any]:
+    """The JSON-ready dict of ``rig`` (schema ``hopscope.rig/1``)."""
+    x0, x1, y0, y1 = rig.coverage_m
+    return {
+        "schema": SCHEMA,
+        "image_size": list(rig.image_size),
+        **rig.nominal.to_dict(),
+        "reprojection_rms_px": rig.reprojection_rms_px,
+        "ensemble": [m.to_dict() for m in rig.ensemble],
+        "coverage_m": {"x_min": x0, "x_max": x1, "y_min": y0, "y_max": y1},
+        "drop_check": _plain(rig.drop_check) if rig.drop_check is not None else None,
+        "provenance": _plain(rig.provenance),
+        "warnings": list(rig.warnings),
+    }
+
+
+def rig_to_json(rig: Rig) -> str:
+    """Serialise ``rig`` to JSON text (schema ``hopscope.rig/1``, indented, keys in a fixed order)."""
+    return json.dumps(rig_to_dict(rig), indent=1, allow_nan=False) + "\n"
+
+
+def _reject_constant(token: str) -> float:
+    raise ValueError(f"non-finite number {token}")
+
+
+def rig_from_json(text: str, source: str = "rig.json") -> Rig:
+    """Read a rig from JSON text; ``source`` names the file in error messages.
+
+    Raises
+    ------
+    ValueError
+        One line naming ``source`` and the field: not JSON, another schema, a missing field, a wrong
+        shape or a non-finite value.
+    """
+    try:
+        data = json.loads(text, parse_constant=_reject_constant)
+    except ValueError as exc:
+        raise ValueError(f"{source}: not a valid rig file ({' '.join(str(exc).split())})") from None
+    if not isinstance(data, dict):
+        raise ValueError(f"{source}: not a valid rig file (expected a JSON object)")
+    schema = data.get("schema")
+    if schema != SCHEMA:
+        raise ValueError(f"{source}: schema {schema!r} is not supported (expected {SCHEMA!r})")
+    for name in _FIELDS:
+        if name not in data:
+            raise ValueError(f"{source}: missing field {name!r}")
+    try:
+        cov = data["coverage_m"]
+        if not isinstance(cov, dict):
+            raise ValueError("rig field coverage_m: expected an object with x_min, x_max, y_min, y_max")
+        for key in ("x_min", "x_max", "y_min", "y_max"):
+            if not isinstance(cov.get(key), (int, float)) or isinstance(cov.get(key), bool):
+                raise ValueError(f"rig field coverage_m.{key}: expected a number")
+        for name in ("plane_z_m", "reprojection_rms_px"):
+            if not isinstance(data[name], (int, float)) or isinstance(data[name], bool):
+                raise ValueError(f"rig field {name}: expected a number")
+        if not isinstance(data["ensemble"], list):
+            raise ValueError("rig field ensemble: expected a list")
+        members = []
+        for i, m in enumerate(data["ensemble"]):
+            if not isinstance(m, dict):
+                raise ValueError(f"rig field ensemble[{i}]: expected an object")
+            missing = [
+                k
+                for k in ("camera_matrix", "dist_coeffs", "rotation", "translation", "plane_z_m")
+                if k not in m
+            ]
+            if missing:
+                raise ValueError(f"rig field ensemble[{i}]: missing {missing[0]!r}")
+            try:
+                members.append(
+                    CameraState(
+                        **{
+                            k: m[k]
+                            for k in ("camera_matrix", "dist_coeffs", "rotation", "translation", "plane_z_m")
+                        }
+                    )
+                )
+            except (ValueError, TypeError) as exc:
+                raise ValueError(str(exc).replace("rig field ", f"rig field ensemble[{i}].")) from None
+        drop = data["drop_check"]
+        if drop is not None and not isinstance(drop, dict):
+            raise ValueError("rig field drop_check: expected an object or null")
+        prov = data["provenance"]
+        if not isinstance(prov, dict):
+            raise ValueError("rig field provenance: expected an object")
+        warns = data["warnings"]
+        if not isinstance(warns, list) or not all(isinstance(w, str) for w in warns):
+            raise ValueError("rig field warnings: expected a list of strings")
+        return Rig(
+            image_size=tuple(data["image_size"]),  # type: ignore[arg-type]
+            camera_matrix=data["camera_matrix"],
+            dist_coeffs=data["dist_coeffs"],
+            rotation=data["rotation"],
+            translation=data["translation"],
+            plane_z_m=data["plane_z_m"],
+            reprojection_rms_px=data["reprojection_rms_px"],
+            ensemble=tuple(members),
+            coverage_m=(cov["x_min"], cov["x_max"], cov["y_min"], cov["y_max"]),
+            drop_check=drop,
+            provenance=prov,
+            warnings=tuple(warns),
+        )
+    except (ValueError, TypeError) as exc:
+        raise ValueError(f"{source}: {' '.join(str(exc).split())}") from None
+
+
+def read_rig(path: str | os.PathLike[str]) -> Rig:
+    """Read ``rig.json`` from ``path`` (``OSError`` if unreadable, ``ValueError`` naming the file if invalid)."""
+    p = Path(path)
+    text = p.read_text(encoding="utf-8")
+    return rig_from_json(text, str(p))
