@@ -162,9 +162,7 @@ class Air:
     viscosity_pas: float
 
     @classmethod
-    def from_conditions(
-        cls, temperature_k: float, pressure_pa: float, relative_humidity: float
-    ) -> Air:
+    def from_conditions(cls, temperature_k: float, pressure_pa: float, relative_humidity: float) -> Air:
         """Air with density from CIPM-2007 and viscosity from Sutherland's law."""
         rho = moist_air_density(temperature_k, pressure_pa, relative_humidity)
         mu = sutherland_viscosity(temperature_k)

@@ -116,8 +116,16 @@ class LiftLaw(Protocol):
 class DecayLaw(Protocol):
     name: str
 
-    def rate(self, spin_radps: np.ndarray, speed_mps: np.ndarray, *, density_kgm3: float,
-             area_m2: float, radius_m: float, inertia_kgm2: float) -> np.ndarray: ...
+    def rate(
+        self,
+        spin_radps: np.ndarray,
+        speed_mps: np.ndarray,
+        *,
+        density_kgm3: float,
+        area_m2: float,
+        radius_m: float,
+        inertia_kgm2: float,
+    ) -> np.ndarray: ...
 
 
 # ---------------------------------------------------------------------------------------------- drag laws

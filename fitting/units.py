@@ -73,4 +73,3 @@ def deg_to_rad(a_deg: float) -> float:
 
 def rad_to_deg(a_rad: float) -> float:
     return math.degrees(a_rad)
-
