@@ -1,0 +1,201 @@
+"""Lens calibration (intrinsics and distortion) from grid corners seen in several views.
+
+A pure function of point lists: detection from images is in :mod:`calibration.grid`.
+
+Conventions
+-----------
+Pixel points are (u, v) in OpenCV order, pixel centres at integers; board points in metres.
+
+References
+----------
+Zhang, Z. (2000). A flexible new technique for camera calibration. IEEE TPAMI 22(11):1330–1334
+(closed-form start from plane homographies, then maximum-likelihood refinement, as in
+cv2.calibrateCamera).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+
+#: Fewest usable lens views: 5 distortion and 4 intrinsic parameters need several well-spread planes
+#: (Zhang 2000 needs ≥ 3 for the intrinsics alone). # common practice, no published source
+MIN_LENS_VIEWS = 5
+
+#: A view whose own RMS reprojection error exceeds OUTLIER_FACTOR × the median view's (and
+#: OUTLIER_FLOOR_PX) is dropped as a bad detection. # common practice, no published source
+OUTLIER_FACTOR = 4.0
+OUTLIER_FLOOR_PX = 0.5
+
+#: Frame coverage: the frame is cut into COVERAGE_CELLS (cols, rows); the share of cells holding a corner
+#: from some view below POOR_COVERAGE_FRACTION gives a warning (distortion then extrapolates to the edges).
+COVERAGE_CELLS = (8, 6)
+POOR_COVERAGE_FRACTION = 0.6
+
+#: Levenberg–Marquardt stopping rule for cv2.calibrateCamera.
+CALIB_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
+
+#: Names of cv2.calibrateCameraExtended's stdDeviationsIntrinsics, in its order.
+INTRINSIC_NAMES = ("fx", "fy", "cx", "cy", "k1", "k2", "p1", "p2", "k3", "k4", "k5", "k6",
+                   "s1", "s2", "s3", "s4", "tau_x", "tau_y")  # fmt: skip
+
+
+@dataclass(frozen=True, eq=False)
+class ViewPoints:
+    """The grid corners of one view.
+
+    Attributes
+    ----------
+    source : the view's name (file or ``video#frame``).
+    image_points : (N, 2) corner pixels (u, v), px.
+    object_points : (N, 3) the same corners on the board, m (z = 0).
+    """
+
+    source: str
+    image_points: np.ndarray
+    object_points: np.ndarray
+
+    def __post_init__(self) -> None:
+        img = np.asarray(self.image_points, float).reshape(-1, 2)
+        obj = np.asarray(self.object_points, float).reshape(-1, 3)
+        if len(img) != len(obj) or len(img) < 4:
+            raise ValueError(
+                f"{self.source}: need matching image and board points (≥ 4), got {len(img)} and {len(obj)}"
+            )
+        object.__setattr__(self, "image_points", img)
+        object.__setattr__(self, "object_points", obj)
+
+
+@dataclass(frozen=True, eq=False)
+class LensCalibration:
+    """Result of :func:`calibrate_lens`.
+
+    Attributes
+    ----------
+    image_size : (w, h), px.
+    camera_matrix : (3, 3) K, px.
+    dist_coeffs : (5,) k1, k2, p1, p2, k3.
+    rms_px : RMS reprojection error over all corners of the views used, px (2-D distance).
+    views_used : names of the views used.
+    per_view_rms_px : RMS reprojection error of each used view, px.
+    views_rejected : (name, reason) of each view left out.
+    intrinsics_std : standard deviations of the intrinsics (``fx``, ``fy``, ``cx``, ``cy`` px, ``k1`` ...),
+        from cv2.calibrateCameraExtended.
+    frame_coverage : share of the frame's cells (:data:`COVERAGE_CELLS`) holding a corner, 0..1.
+    warnings : warnings for the user.
+    """
+
+    image_size: tuple[int, int]
+    camera_matrix: np.ndarray
+    dist_coeffs: np.ndarray
+    rms_px: float
+    views_used: tuple[str, ...]
+    per_view_rms_px: tuple[float, ...]
+    views_rejected: tuple[tuple[str, str], ...]
+    intrinsics_std: dict[str, float]
+    frame_coverage: float
+    warnings: tuple[str, ...] = field(default=())
+    flags: int = 0
+
+
+def frame_coverage(
+    points: Sequence[np.ndarray], image_size: tuple[int, int], cells: tuple[int, int] = COVERAGE_CELLS
+) -> float:
+    """Share (0..1) of the frame's ``cells`` grid that holds at least one corner."""
+    w, h = image_size
+    hit = np.zeros((cells[1], cells[0]), bool)
+    for p in points:
+        p = np.asarray(p, float).reshape(-1, 2)
+        ci = np.clip((p[:, 0] / w * cells[0]).astype(int), 0, cells[0] - 1)
+        ri = np.clip((p[:, 1] / h * cells[1]).astype(int), 0, cells[1] - 1)
+        hit[ri, ci] = True
+    return float(hit.mean())
+
+
+def _calibrate(views: Sequence[ViewPoints], image_size, k0=None, d0=None, flags: int = 0):
+    obj = [v.object_points.astype(np.float32) for v in views]
+    img = [v.image_points.astype(np.float32).reshape(-1, 1, 2) for v in views]
+    if k0 is None:
+        k0, d0 = np.eye(3), np.zeros(5)
+    else:
+        flags |= cv2.CALIB_USE_INTRINSIC_GUESS
+    return cv2.calibrateCameraExtended(
+        obj, img, tuple(image_size), np.array(k0, float), np.array(d0, float).reshape(-1, 1), flags=flags,
+        criteria=CALIB_CRITERIA,
+    )  # fmt: skip
+
+
+def calibrate_lens(
+    views: Sequence[ViewPoints],
+    image_size: tuple[int, int],
+    *,
+    rejected: Sequence[tuple[str, str]] = (),
+    min_views: int = MIN_LENS_VIEWS,
+    flags: int = 0,
+) -> LensCalibration:
+    """Zhang's calibration of intrinsics and distortion (k1, k2, p1, p2, k3) from corner lists.
+
+    Parameters
+    ----------
+    views : the corners of each view where the grid was found.
+    image_size : (w, h), px.
+    rejected : (name, reason) of views already left out (grid not found), carried into the result.
+    min_views : fewest usable views; fewer raises ValueError.
+    flags : extra cv2.CALIB_* flags.
+
+    Returns
+    -------
+    LensCalibration. Views whose own reprojection error is an outlier (:data:`OUTLIER_FACTOR`) are
+    dropped, listed with the reason, and the calibration is repeated without them.
+
+    References
+    ----------
+    Zhang (2000), IEEE TPAMI 22:1330, sec. 3 (closed form) and 3.3 (maximum likelihood).
+    """
+    views = list(views)
+    rejected = list(rejected)
+    if len(views) < min_views:
+        raise ValueError(
+            f"--views: only {len(views)} usable lens view(s) with the grid found, need at least {min_views}"
+        )
+    rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, flags=flags)
+    per_view = np.ravel(per_view)
+    med = float(np.median(per_view))
+    bad = [i for i, e in enumerate(per_view) if e > max(OUTLIER_FACTOR * med, OUTLIER_FLOOR_PX)]
+    if bad and len(views) - len(bad) >= min_views:
+        rejected += [(views[i].source, f"reprojection error {per_view[i]:.2f} px is an outlier") for i in bad]
+        views = [v for i, v in enumerate(views) if i not in set(bad)]
+        rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k, d, flags=flags)
+        per_view = np.ravel(per_view)
+    std = {n: float(s) for n, s in zip(INTRINSIC_NAMES, np.ravel(std_int), strict=False)}
+    cover = frame_coverage([v.image_points for v in views], image_size)
+    warns = []
+    if cover < POOR_COVERAGE_FRACTION:
+        warns.append(
+            f"lens views cover only {cover:.0%} of the frame with corners: distortion near the uncovered edges "
+            "is extrapolated; add views with the board near the frame's edges and corners"
+        )
+    return LensCalibration(
+        image_size=(int(image_size[0]), int(image_size[1])),
+        camera_matrix=np.array(k, float),
+        dist_coeffs=np.ravel(d).astype(float),
+        rms_px=float(rms),
+        views_used=tuple(v.source for v in views),
+        per_view_rms_px=tuple(float(e) for e in per_view),
+        views_rejected=tuple(rejected),
+        intrinsics_std=std,
+        frame_coverage=cover,
+        warnings=tuple(warns),
+        flags=flags,
+    )
+
+
+def recalibrate(views: Sequence[ViewPoints], start: LensCalibration) -> tuple[np.ndarray, np.ndarray]:
+    """Re-run the calibration on ``views`` (e.g. a resample) starting from ``start``; returns (K, dist)."""
+    _, k, d, *_ = _calibrate(
+        views, start.image_size, start.camera_matrix, start.dist_coeffs, flags=start.flags
+    )
+    return np.array(k, float), np.ravel(d).astype(float)

@@ -1,0 +1,164 @@
+"""The flight plane's pose from board placements standing in it, seen by the calibrated camera.
+
+All placements' corners are solved together for one camera pose (PnP through the full lens model, not
+a free 8-parameter homography), each placement's board shifted downrange by its taped offset.
+
+Conventions
+-----------
+World frame: x along the board's rows toward image right (downrange), y up, z = x × y toward the camera,
+metres; origin at the first placement's first inner corner (top left in the image). Camera pose is
+world → camera, ``X_cam = R X_world + t``. Pixels (u, v) in OpenCV order.
+
+References
+----------
+Collins, T. & Bartoli, A. (2014). Infinitesimal plane-based pose estimation. IJCV 109:252–286
+(IPPE, the planar start); Levenberg–Marquardt refinement of the reprojection error (cv2.solvePnPRefineLM).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from .grid import GridSpec
+
+#: A placement whose RMS residual after the joint pose exceeds BAD_PLACEMENT_FACTOR × the lens RMS
+#: (and BAD_PLACEMENT_FLOOR_PX) is reported: its taped offset or the board's height is probably off.
+#: # common practice, no published source
+BAD_PLACEMENT_FACTOR = 4.0
+BAD_PLACEMENT_FLOOR_PX = 0.5
+
+_REFINE_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 200, 1e-14)
+
+
+@dataclass(frozen=True, eq=False)
+class Placement:
+    """One board placement in the flight plane.
+
+    Attributes
+    ----------
+    source : the plane image's name.
+    image_points : (rows*cols, 2) corners (u, v) in reading order, px.
+    offset_m : taped shift downrange from the first placement, m (first: 0).
+    """
+
+    source: str
+    image_points: np.ndarray
+    offset_m: float
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "image_points", np.asarray(self.image_points, float).reshape(-1, 2))
+        if not np.isfinite(self.offset_m):
+            raise ValueError(f"{self.source}: offset must be a finite number of metres")
+        object.__setattr__(self, "offset_m", float(self.offset_m))
+
+
+@dataclass(frozen=True, eq=False)
+class PlanePose:
+    """Result of :func:`solve_plane`.
+
+    Attributes
+    ----------
+    rotation, translation : world → camera pose (t in m).
+    rms_px : RMS reprojection error over all placements' corners, px.
+    per_placement_rms_px : each placement's RMS reprojection error, px.
+    coverage_m : (x_min, x_max, y_min, y_max) of the boards' corners on the plane, m.
+    warnings : warnings for the user.
+    """
+
+    rotation: np.ndarray
+    translation: np.ndarray
+    rms_px: float
+    per_placement_rms_px: tuple[float, ...]
+    coverage_m: tuple[float, float, float, float]
+    warnings: tuple[str, ...] = ()
+
+
+def placement_world_points(spec: GridSpec, placements: Sequence[Placement]) -> np.ndarray:
+    """(M, 3) world positions of all placements' corners (each board shifted by its offset), m."""
+    return np.concatenate([spec.board_points(p.offset_m) for p in placements])
+
+
+def solve_pose(
+    world: np.ndarray, image: np.ndarray, camera_matrix: np.ndarray, dist_coeffs: np.ndarray, start=None
+) -> tuple[np.ndarray, np.ndarray]:
+    """World → camera (R, t) from coplanar (z = 0) world points and their pixels, through the lens model.
+
+    IPPE start (Collins & Bartoli 2014) unless ``start`` (rvec, tvec) is given, then LM refinement.
+    """
+    obj = np.ascontiguousarray(world, np.float64).reshape(-1, 1, 3)
+    img = np.ascontiguousarray(image, np.float64).reshape(-1, 1, 2)
+    k = np.asarray(camera_matrix, np.float64)
+    d = np.asarray(dist_coeffs, np.float64)
+    if start is None:
+        ok, rvec, tvec = cv2.solvePnP(obj, img, k, d, flags=cv2.SOLVEPNP_IPPE)
+        if not ok:
+            raise ValueError("plane pose: PnP found no solution")
+    else:
+        rvec, tvec = (np.array(s, np.float64).reshape(3, 1) for s in start)
+    rvec, tvec = cv2.solvePnPRefineLM(obj, img, k, d, rvec, tvec, criteria=_REFINE_CRITERIA)
+    rot, _ = cv2.Rodrigues(rvec)
+    return rot, tvec.ravel()
+
+
+def solve_plane(
+    placements: Sequence[Placement],
+    spec: GridSpec,
+    camera_matrix: np.ndarray,
+    dist_coeffs: np.ndarray,
+    *,
+    lens_rms_px: float = 0.0,
+) -> PlanePose:
+    """One camera pose from all board placements together.
+
+    Parameters
+    ----------
+    placements : the board placements (corners in reading order, taped offsets).
+    spec : the grid.
+    camera_matrix, dist_coeffs : the calibrated lens.
+    lens_rms_px : the lens calibration's RMS, px, to judge each placement's residual.
+
+    Returns
+    -------
+    PlanePose with per-placement residuals and the covered region.
+
+    Notes
+    -----
+    World frame: x downrange along the rows, y up, z toward the camera, origin at the first placement's
+    first inner corner; the boards are taken as level and in one plane.
+    """
+    if not placements:
+        raise ValueError("--plane: need at least one plane image")
+    world = placement_world_points(spec, placements)
+    image = np.concatenate([p.image_points for p in placements])
+    rot, t = solve_pose(world, image, camera_matrix, dist_coeffs)
+    centre = -rot.T @ t
+    if centre[2] <= 0:
+        raise ValueError(f"{placements[0].source}: the board faces away from the camera (seen from behind?)")
+    proj = _project(world, rot, t, camera_matrix, dist_coeffs)
+    err = np.linalg.norm(proj - image, axis=1)
+    per, warns, start = [], [], 0
+    for p in placements:
+        n = len(p.image_points)
+        per.append(float(np.sqrt(np.mean(err[start : start + n] ** 2))))
+        start += n
+    limit = max(BAD_PLACEMENT_FACTOR * lens_rms_px, BAD_PLACEMENT_FLOOR_PX)
+    for p, e in zip(placements, per, strict=True):
+        if e > limit and len(placements) > 1:
+            warns.append(
+                f"{p.source}: plane placement residual {e:.2f} px is large: check its offset "
+                f"({p.offset_m:g} m), its height and that it stands in the same plane"
+            )
+    x0 = min(p.offset_m for p in placements)
+    x1 = max(p.offset_m for p in placements) + (spec.cols - 1) * spec.square_m
+    cover = (x0, x1, -(spec.rows - 1) * spec.square_m, 0.0)
+    return PlanePose(rot, t, float(np.sqrt(np.mean(err**2))), tuple(per), cover, tuple(warns))
+
+
+def _project(world, rot, t, k, d) -> np.ndarray:
+    rvec, _ = cv2.Rodrigues(rot)
+    img, _ = cv2.projectPoints(np.asarray(world, float).reshape(-1, 1, 3), rvec, t, k, d)
+    return img.reshape(-1, 2)
