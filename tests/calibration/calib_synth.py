@@ -33,8 +33,13 @@ def project(world, rot, t, k=TRUE_K, dist=TRUE_DIST):
     return img.reshape(-1, 2)
 
 
-def synthetic_lens_views(spec, n_views, rng, *, noise_px=0.05, k=TRUE_K, dist=TRUE_DIST, size=IMAGE_SIZE):
-    """Board views at varied tilts and positions covering the frame, projected with OpenCV, plus noise."""
+def synthetic_lens_views(
+    spec, n_views, rng, *, noise_px=0.05, k=TRUE_K, dist=TRUE_DIST, size=IMAGE_SIZE, fill=(0.3, 0.55)
+):
+    """Board views at varied tilts and positions covering the frame, projected with OpenCV, plus noise.
+
+    ``fill`` is the range of the fraction of the image width the (untilted) board spans.
+    """
     import cv2
 
     from calibration.lens import ViewPoints
@@ -48,7 +53,8 @@ def synthetic_lens_views(spec, n_views, rng, *, noise_px=0.05, k=TRUE_K, dist=TR
         tries += 1
         if tries > 5000:
             raise RuntimeError("could not place synthetic views")
-        dist_m = rng.uniform(0.45, 0.9)
+        board_w = (spec.cols - 1) * spec.square_m
+        dist_m = k[0, 0] * board_w / (rng.uniform(*fill) * w)
         # aim the board centre at a random place in the frame
         target = np.array([rng.uniform(0.12, 0.88) * w, rng.uniform(0.12, 0.88) * h])
         ray = np.linalg.inv(k) @ np.array([target[0], target[1], 1.0])
