@@ -31,45 +31,62 @@ def spin_ratio(spin_radps: ArrayLike, speed_mps: ArrayLike, radius_m: float):
 # ---------------------------------------------------------------------------------------------- sphere drag
 
 
+#: Upper Reynolds-number bounds of the pieces of the Clift-Grace-Weber correlation (the last is open).
+_CGW_BOUNDS = np.array([0.01, 20.0, 260.0, 1500.0, 12000.0, 44000.0, 338000.0, 400000.0])
+
+
+def _cgw_piece(i: int, re: np.ndarray, w: np.ndarray) -> np.ndarray:
+    if i == 0:
+        return 24.0 / re + 3.0 / 16.0
+    if i == 1:
+        return 24.0 / re * (1 + 0.1315 * re ** (0.82 - 0.05 * w))
+    if i == 2:
+        return 24.0 / re * (1 + 0.1935 * re**0.6305)
+    if i == 3:
+        return 10 ** (1.6435 - 1.1242 * w + 0.1558 * w**2)
+    if i == 4:
+        return 10 ** (-2.4571 + 2.5558 * w - 0.9295 * w**2 + 0.1049 * w**3)
+    if i == 5:
+        return 10 ** (-1.9181 + 0.6370 * w - 0.0636 * w**2)
+    if i == 6:
+        return 10 ** (-4.3390 + 1.5809 * w - 0.1546 * w**2)
+    if i == 7:
+        return 29.78 - 5.3 * w
+    return 0.19 * w - 0.49
+
+
 def cd_clift_grace_weber(re: ArrayLike) -> np.ndarray:
     """Drag coefficient of a smooth sphere, piecewise correlation of Clift, Grace & Weber.
 
-    Valid 0 < Re < 1e6. Captures the subcritical rise of C_D between Re 1e4 and 1e5.
+    Valid 0 < Re < 1e6 (w = log10 Re; nine pieces, e.g. 1.2e4 ≤ Re < 4.4e4:
+    log10 C_D = −1.9181 + 0.6370 w − 0.0636 w²). Captures the subcritical rise of C_D between Re 1e4
+    and 1e5, which matters for BBs (Re ≈ 1.5e4–7e4).
+
+    Parameters
+    ----------
+    re : Reynolds number(s), dimensionless, > 0.
+
+    Returns
+    -------
+    C_D, dimensionless, same shape as ``re``.
 
     References
     ----------
-    Clift, Grace & Weber (1978), *Bubbles, Drops, and Particles*, Academic Press, Table 5.2.
+    Clift, Grace & Weber (1978), *Bubbles, Drops, and Particles*, Academic Press, Table 5.2; the same
+    pieces as implemented in the ``fluids`` library (``fluids.drag.Clift``), against which it is tested.
     """
     re = np.asarray(re, dtype=float)
     if np.any(~np.isfinite(re)) or np.any(re <= 0):
         raise ValueError("Reynolds number must be positive and finite")
-    w = np.log10(re)
+    piece = np.searchsorted(_CGW_BOUNDS, re, side="right")
+    first = int(piece.flat[0]) if re.size else 0
+    if re.size and np.all(piece == first):  # the usual case inside a flight: one piece for all shots
+        return np.asarray(_cgw_piece(first, re, np.log10(re)), dtype=float)
     out = np.empty_like(re)
-    conds = [
-        re < 0.01,
-        (re >= 0.01) & (re < 20),
-        (re >= 20) & (re < 260),
-        (re >= 260) & (re < 1500),
-        (re >= 1500) & (re < 12000),
-        (re >= 12000) & (re < 44000),
-        (re >= 44000) & (re < 338000),
-        (re >= 338000) & (re < 400000),
-        re >= 400000,
-    ]
-    with np.errstate(all="ignore"):
-        vals = [
-            24.0 / re + 3.0 / 16.0,
-            24.0 / re * (1 + 0.1315 * re ** (0.82 - 0.05 * w)),
-            24.0 / re * (1 + 0.1935 * re**0.6305),
-            10 ** (1.6435 - 1.1242 * w + 0.1558 * w**2),
-            10 ** (-2.4571 + 2.5558 * w - 0.9295 * w**2 + 0.1049 * w**3),
-            10 ** (-1.9181 + 0.6370 * w - 0.0636 * w**2),
-            10 ** (-4.3390 + 1.5809 * w - 0.1546 * w**2),
-            29.78 - 5.3 * w,
-            0.19 * w - 0.49,
-        ]
-    for c, v in zip(conds, vals, strict=True):
-        out[c] = v[c]
+    for i in np.unique(piece):
+        sel = piece == i
+        r = re[sel]
+        out[sel] = _cgw_piece(int(i), r, np.log10(r))
     return out
 
 
@@ -144,7 +161,10 @@ class ConstantDrag:
     name: str = "constant"
 
     def coefficient(self, re: np.ndarray, s: np.ndarray) -> np.ndarray:
-        return self.cd + self.spin_drag * np.square(s) + 0.0 * re
+        shape = np.broadcast_shapes(np.shape(re), np.shape(s), np.shape(self.cd), np.shape(self.spin_drag))
+        if np.ndim(self.spin_drag) == 0 and self.spin_drag == 0:
+            return np.array(np.broadcast_to(np.asarray(self.cd, dtype=float), shape))
+        return np.array(np.broadcast_to(self.cd + self.spin_drag * np.square(s), shape))
 
 
 @dataclass(frozen=True)
@@ -175,7 +195,12 @@ class SphereDrag:
 
 @dataclass(frozen=True)
 class LinearLift:
-    """C_L = k · S (k dimensionless; odd in S, so topspin gives downforce)."""
+    """C_L = k · S (k dimensionless; odd in S, so topspin gives downforce).
+
+    Lift proportional to spin ratio at small S, as observed for spinning spheres and balls (e.g. Nathan
+    2008, Am. J. Phys. 76:119, Fig. 4, low-S slope; from memory). Under this law a trajectory fixes k·ω
+    only (see design: identifiability).
+    """
 
     k: ArrayLike = 1.0
     name: str = "linear"
@@ -188,13 +213,13 @@ class LinearLift:
 class SaturatingLift:
     """C_L = cl_max · S / (s_half + |S|): linear at small S, flattening toward ``cl_max`` at large S.
 
-    The defaults cl_max = 0.48, s_half = 0.25 equal the published form C_L = 1.12 S / (0.583 + 2.333 S)
-    (as reproduced in secondary sources on spinning-ball lift; read, secondary). ``cl_max`` may be scaled
-    per shot.
+    The defaults cl_max = 1.12/2.333 ≈ 0.480, s_half = 0.583/2.333 ≈ 0.250 are exactly the published form
+    C_L = 1.12 S / (0.583 + 2.333 S) for S > 0 (as reproduced in secondary sources on spinning-ball lift;
+    read, secondary), extended to S < 0 as an odd function. ``cl_max`` may be scaled per shot.
     """
 
-    cl_max: ArrayLike = 0.48
-    s_half: float = 0.25
+    cl_max: ArrayLike = 1.12 / 2.333
+    s_half: float = 0.583 / 2.333
     name: str = "saturating"
 
     def __post_init__(self) -> None:
@@ -210,10 +235,19 @@ class SaturatingLift:
 
 @dataclass(frozen=True)
 class ExponentialDecay:
-    """dω/dt = −ω/τ: spin decays with a fixed time constant ``tau_s`` (s; ``inf`` means no decay)."""
+    """dω/dt = −ω/τ: spin decays with a fixed time constant ``tau_s`` (s; ``inf`` means no decay).
+
+    The simplest decay law, ω = ω₀ e^(−t/τ), as used for spin in ball-flight models (e.g. Nathan 2008,
+    Am. J. Phys. 76:119; from memory). ``tau_s`` must be positive (per-shot arrays allowed).
+    """
 
     tau_s: ArrayLike = math.inf
     name: str = "exponential"
+
+    def __post_init__(self) -> None:
+        tau = np.asarray(self.tau_s, dtype=float)
+        if np.any(np.isnan(tau)) or np.any(tau <= 0):
+            raise ValueError(f"tau_s must be positive (inf for no decay), got {self.tau_s!r}")
 
     def rate(self, spin_radps, speed_mps, *, density_kgm3, area_m2, radius_m, inertia_kgm2):
         return -np.asarray(spin_radps) / self.tau_s
@@ -224,8 +258,8 @@ class AerodynamicDecay:
     """Spin-down torque with coefficient C_M = c·S (c = ``torque_slope``, dimensionless).
 
     Torque T = ½ ρ u² A r C_M = ½ ρ A r² c u ω, so dω/dt = −(c ρ A r² u / 2I) ω and spin decays
-    exponentially with distance flown, over the length L = 2I / (c ρ A r²) (0.8 m / (c ρ A) for a uniform
-    sphere).
+    exponentially with distance flown through the air, over the length L = 2I / (c ρ A r²)
+    (= 0.8·mass / (c ρ A) for a uniform sphere). ``torque_slope`` must be finite and ≥ 0.
 
     References
     ----------
@@ -235,6 +269,11 @@ class AerodynamicDecay:
 
     torque_slope: ArrayLike = 0.02
     name: str = "aerodynamic"
+
+    def __post_init__(self) -> None:
+        c = np.asarray(self.torque_slope, dtype=float)
+        if np.any(~np.isfinite(c)) or np.any(c < 0):
+            raise ValueError(f"torque_slope must be finite and >= 0, got {self.torque_slope!r}")
 
     def rate(self, spin_radps, speed_mps, *, density_kgm3, area_m2, radius_m, inertia_kgm2):
         k = self.torque_slope * density_kgm3 * area_m2 * radius_m**2 / (2.0 * inertia_kgm2)
