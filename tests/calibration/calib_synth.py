@@ -71,14 +71,16 @@ def synthetic_lens_views(
     return views
 
 
-def make_close_rig():
-    """A 1280x720 camera 2.5 m in front of the plane, mild barrel distortion."""
+def make_close_rig(scale=1.0):
+    """A 1280x720 camera 2.5 m in front of the plane, mild barrel distortion (``scale`` shrinks the image)."""
     from calibration.rig import Rig
 
-    k = np.array([[1400.0, 0.0, 645.0], [0.0, 1400.0, 362.0], [0.0, 0.0, 1.0]])
+    k = np.array(
+        [[1400.0 * scale, 0.0, 645.0 * scale], [0.0, 1400.0 * scale, 362.0 * scale], [0.0, 0.0, 1.0]]
+    )
     rot, t = look_at_pose((1.1, 0.35, 2.5), (1.2, 0.3, 0.0))
     return Rig(
-        image_size=IMAGE_SIZE,
+        image_size=(round(IMAGE_SIZE[0] * scale), round(IMAGE_SIZE[1] * scale)),
         camera_matrix=k,
         dist_coeffs=[-0.12, 0.08, 0.0005, -0.0003, 0.0],
         rotation=rot,
@@ -87,3 +89,62 @@ def make_close_rig():
         reprojection_rms_px=0.05,
         coverage_m=(0.0, 2.4, -0.1, 0.7),
     )
+
+
+def fall_with_drag(t_s, g, k_per_m, tilt_rad=0.0, start_m=(0.0, 0.0)):
+    """Positions of a ball released at rest: a = g ĝ − k |v| v, integrated with scipy's solve_ivp (the
+    reference integrator; Dormand & Prince 1980 RK45), ĝ = (sin tilt, −cos tilt)."""
+    from scipy.integrate import solve_ivp
+
+    gvec = g * np.array([np.sin(tilt_rad), -np.cos(tilt_rad)])
+
+    def rhs(_t, s):
+        v = s[2:]
+        return np.concatenate([v, gvec - k_per_m * np.linalg.norm(v) * v])
+
+    sol = solve_ivp(
+        rhs, (0, float(t_s[-1])), [start_m[0], start_m[1], 0, 0], t_eval=t_s, rtol=1e-11, atol=1e-13
+    )
+    return sol.y[:2].T
+
+
+def render_disc_frames(size, centres_uv, radius_px, rng, *, ball_dn=40.0, noise_dn=1.0, supersample=8):
+    """Grey frames of a uniform disc (anti-aliased by supersampling) on a smooth bright wall, with noise."""
+    w, h = size
+    yy, xx = np.mgrid[0:h, 0:w]
+    wall = 170.0 + 25.0 * np.sin(xx / 97.0) * np.cos(yy / 61.0)
+    offs = (np.arange(supersample) + 0.5) / supersample - 0.5
+    frames = []
+    for c in centres_uv:
+        img = wall.copy()
+        if c is not None:
+            u0, v0 = c
+            r0, r1 = int(max(np.floor(v0 - radius_px - 2), 0)), int(min(np.ceil(v0 + radius_px + 2), h - 1))
+            c0, c1 = int(max(np.floor(u0 - radius_px - 2), 0)), int(min(np.ceil(u0 + radius_px + 2), w - 1))
+            if r1 > r0 and c1 > c0:
+                pr, pc = np.mgrid[r0 : r1 + 1, c0 : c1 + 1]
+                su = pc[..., None, None] + offs[None, None, None, :] - u0
+                sv = pr[..., None, None] + offs[None, None, :, None] - v0
+                cover = ((su**2 + sv**2) <= radius_px**2).mean(axis=(2, 3))
+                patch = img[r0 : r1 + 1, c0 : c1 + 1]
+                img[r0 : r1 + 1, c0 : c1 + 1] = patch * (1 - cover) + ball_dn * cover
+        img = img + rng.normal(0, noise_dn, img.shape)
+        frames.append(np.clip(np.round(img), 0, 255).astype(np.uint8))
+    return frames
+
+
+def write_gray_video(path, frames, fps):
+    """Write grey frames losslessly (FFV1 in Matroska) with timestamps k/fps."""
+    from fractions import Fraction
+
+    import av
+
+    with av.open(str(path), "w") as out:
+        stream = out.add_stream("ffv1", rate=Fraction(fps).limit_denominator(100000))
+        stream.width, stream.height = frames[0].shape[1], frames[0].shape[0]
+        stream.pix_fmt = "gray"
+        for f in frames:
+            for packet in stream.encode(av.VideoFrame.from_ndarray(f, format="gray")):
+                out.mux(packet)
+        for packet in stream.encode():
+            out.mux(packet)

@@ -1,0 +1,436 @@
+"""Level and scale check from a drop: a ball let fall in the flight plane, filmed by the rigged camera.
+
+A free fall measures g in the rig's metres and the clip's seconds, so a wrong frame rate (g scales as the
+square of the time scale) or a wrong scale (g scales with it) shows at once; the direction of the fall
+gives the direction of gravity in the board's frame, which levels the world frame when the board was not
+level. Self-contained: simple detection by differencing against a median background (no tracker).
+
+Conventions
+-----------
+World frame: x downrange, y up, z toward the camera, metres; pixels (u, v) in OpenCV order; images indexed
+(row, col); times in seconds since the clip's first frame (container timestamps unless overridden).
+
+The fitted motion along the fall direction ĝ = (sin θ, −cos θ) (θ: tilt of gravity from the board's −y
+toward +x) is s(t) = w0 t + ½ g t² − k (w0² t²/2 + w0 g t³/3 + g² t⁴/12): free fall with an optional
+quadratic-drag term to first order in k (the drag deceleration per squared speed, 1/m), which is accurate
+while k v² ≪ g. Across the fall: a constant drift. The drag term is kept only when it lowers χ² by more
+than :data:`DRAG_TERM_MIN_DCHI2` (a likelihood-ratio test; otherwise k = 0).
+
+References
+----------
+Galilei, G. (1638). Discorsi e dimostrazioni matematiche intorno a due nuove scienze (free fall, s ∝ t²).
+Bevington, P. R. & Robinson, D. K. (2003). Data Reduction and Error Analysis for the Physical Sciences,
+3rd ed., McGraw-Hill, sec. 8.1 (parameter errors from the curvature matrix) and 11.4 (F test for an
+added term).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import cv2
+import numpy as np
+from scipy.optimize import least_squares
+
+from .rig import Rig
+
+#: Standard acceleration of gravity, m/s². Source: 3rd CGPM (1901), exact by definition. (Also in
+#: fitting.constants; calibration may not import fitting.)
+STANDARD_GRAVITY_MPS2 = 9.80665
+
+#: Allowance for local gravity around the standard value, m/s²: normal gravity runs from 9.7803 (equator)
+#: to 9.8322 (poles) (WGS84 Somigliana formula, NIMA TR8350.2 (2000) eq. 4-1). # from memory (constants)
+LOCAL_GRAVITY_ALLOWANCE_MPS2 = 0.026
+
+#: A measured g further than DROP_SIGMA_LIMIT standard errors (plus the allowance) from the expected value
+#: is inconsistent. # common practice, no published source
+DROP_SIGMA_LIMIT = 3.0
+
+#: The tilt is applied (the world frame levelled) when it is this many standard errors from zero.
+TILT_SIGNIFICANCE = 3.0
+
+#: Fewest frames with the ball found for a fit.
+MIN_DROP_POINTS = 8
+
+#: The drag term stays in the model when it lowers χ² by more than this (≈ 2σ for one added parameter).
+DRAG_TERM_MIN_DCHI2 = 4.0
+
+#: Detection: threshold in robust noise σ of the difference image, and its floor in grey levels.
+DETECT_SIGMA = 6.0
+DETECT_FLOOR_DN = 8.0
+#: Smallest and largest accepted blob, px².
+BLOB_MIN_AREA_PX = 3
+BLOB_MAX_AREA_FRACTION = 0.01
+#: Frames sampled for the median background.
+BACKGROUND_FRAMES = 15
+#: Points further than OUTLIER_SIGMA robust σ from the fit are dropped and the fit repeated.
+OUTLIER_SIGMA = 5.0
+
+
+@dataclass(frozen=True)
+class DropClip:
+    """The ball's image positions in a drop clip.
+
+    Attributes
+    ----------
+    source : the clip's path.
+    t_s : (N,) times of the frames where the ball was found, s.
+    uv_px : (N, 2) ball centroids (u, v), px.
+    frames : (N,) frame indices.
+    n_frames : frames in the clip.
+    timing : "container timestamps" or "--fps override".
+    fps : frame rate implied by the timing, 1/s.
+    """
+
+    source: str
+    t_s: np.ndarray
+    uv_px: np.ndarray
+    frames: np.ndarray
+    n_frames: int
+    timing: str
+    fps: float
+
+
+@dataclass(frozen=True)
+class FreeFallFit:
+    """Result of :func:`fit_free_fall` (a failed fit carries ``reason``).
+
+    Attributes
+    ----------
+    g_mps2, g_stderr_mps2 : magnitude of the acceleration of gravity and its standard error, m/s².
+    tilt_rad, tilt_stderr_rad : angle of the fall from the world −y axis toward +x, rad.
+    drag_per_m, drag_stderr_per_m : quadratic drag term k, 1/m (None when not kept).
+    residual_rms_m : RMS of the position residuals, m.
+    n_points : points used; duration_s : time they span, s.
+    reason : why the fit failed ("" when it did not).
+    """
+
+    g_mps2: float
+    g_stderr_mps2: float
+    tilt_rad: float
+    tilt_stderr_rad: float
+    drag_per_m: float | None
+    drag_stderr_per_m: float | None
+    residual_rms_m: float
+    n_points: int
+    duration_s: float
+    reason: str = ""
+
+    @property
+    def ok(self) -> bool:
+        return not self.reason
+
+
+def _failed(reason: str, n: int = 0) -> FreeFallFit:
+    nan = float("nan")
+    return FreeFallFit(nan, nan, nan, nan, None, None, nan, n, nan, reason)
+
+
+def _fall(t: np.ndarray, w0: float, g: float, k: float) -> np.ndarray:
+    return w0 * t + 0.5 * g * t**2 - k * (0.5 * w0**2 * t**2 + w0 * g * t**3 / 3 + g**2 * t**4 / 12)
+
+
+def _model(p: np.ndarray, t: np.ndarray, with_drag: bool) -> np.ndarray:
+    x0, y0, theta, w0, g, c1 = p[:6]
+    k = p[6] if with_drag else 0.0
+    s = _fall(t, w0, g, k)
+    gx, gy = math.sin(theta), -math.cos(theta)
+    nx, ny = math.cos(theta), math.sin(theta)
+    return np.column_stack([x0 + gx * s + nx * c1 * t, y0 + gy * s + ny * c1 * t])
+
+
+def _solve(t, xy, with_drag, p0):
+    def resid(p):
+        return (_model(p, t, with_drag) - xy).ravel()
+
+    start = np.append(p0, 0.0) if with_drag else p0
+    res = least_squares(resid, start, method="lm", x_scale="jac", xtol=1e-14, ftol=1e-14, gtol=1e-14)
+    rss = float(np.sum(res.fun**2))
+    dof = max(xy.size - len(start), 1)
+    try:
+        cov = np.linalg.inv(res.jac.T @ res.jac) * rss / dof
+    except np.linalg.LinAlgError:
+        cov = np.full((len(start), len(start)), np.nan)
+    return res.x, cov, rss, dof
+
+
+def fit_free_fall(t_s: Any, xy_m: Any, *, drag: str = "auto") -> FreeFallFit:
+    """Fit a free fall (optionally with a small quadratic-drag term) to world positions.
+
+    Parameters
+    ----------
+    t_s : (N,) times, s.
+    xy_m : (N, 2) world positions on the plane, m.
+    drag : "auto" (keep the drag term when it is significant), "off" or "on".
+
+    Returns
+    -------
+    FreeFallFit; standard errors from the curvature matrix scaled by the residual variance
+    (Bevington & Robinson 2003, sec. 8.1). Points further than :data:`OUTLIER_SIGMA` robust σ from the
+    first fit are dropped once.
+
+    Notes
+    -----
+    World frame: x downrange, y up, metres. The model is in this module's docstring.
+    """
+    if drag not in ("auto", "off", "on"):
+        raise ValueError(f"drag: expected 'auto', 'off' or 'on', got {drag!r}")
+    t = np.asarray(t_s, float).ravel()
+    xy = np.asarray(xy_m, float).reshape(-1, 2)
+    good = np.isfinite(t) & np.all(np.isfinite(xy), axis=1)
+    t, xy = t[good], xy[good]
+    if len(t) < MIN_DROP_POINTS:
+        return _failed(f"the ball was found in only {len(t)} frame(s), need {MIN_DROP_POINTS}", len(t))
+    t = t - t[0]
+    # start: a parabola per axis
+    ax = np.polyfit(t, xy[:, 0], 2)
+    ay = np.polyfit(t, xy[:, 1], 2)
+    acc = 2 * np.array([ax[0], ay[0]])
+    g0 = float(np.hypot(*acc))
+    if not g0 > 0:
+        return _failed("the ball does not accelerate", len(t))
+    theta0 = math.atan2(acc[0], -acc[1])
+    vel0 = np.array([ax[1], ay[1]])
+    down = np.array([math.sin(theta0), -math.cos(theta0)])
+    across = np.array([math.cos(theta0), math.sin(theta0)])
+    p0 = np.array([ax[2], ay[2], theta0, vel0 @ down, g0, vel0 @ across])
+    keep = np.ones(len(t), bool)
+    for _ in range(2):
+        p, cov, rss, dof = _solve(t[keep], xy[keep], False, p0)
+        r = np.linalg.norm(_model(p, t, False) - xy, axis=1)
+        mad = 1.4826 * np.median(np.abs(r[keep] - np.median(r[keep]))) + 1e-12
+        new_keep = r < np.median(r[keep]) + OUTLIER_SIGMA * mad
+        if new_keep.sum() < MIN_DROP_POINTS or np.array_equal(new_keep, keep):
+            break
+        keep = new_keep
+        p0 = p
+    tk, xyk = t[keep], xy[keep]
+    p, cov, rss, dof = _solve(tk, xyk, False, p)
+    with_drag = False
+    if drag != "off":
+        pd, covd, rssd, dofd = _solve(tk, xyk, True, p)
+        s2 = rssd / dofd
+        if drag == "on" or (rss - rssd) / s2 > DRAG_TERM_MIN_DCHI2:
+            p, cov, rss, with_drag = pd, covd, rssd, True
+    g = float(p[4])
+    theta = float(math.remainder(p[2], 2 * math.pi))
+    if g < 0:
+        return _failed("the ball moves against gravity (upward acceleration)", len(tk))
+    return FreeFallFit(
+        g_mps2=g,
+        g_stderr_mps2=float(np.sqrt(cov[4, 4])),
+        tilt_rad=theta,
+        tilt_stderr_rad=float(np.sqrt(cov[2, 2])),
+        drag_per_m=float(p[6]) if with_drag else None,
+        drag_stderr_per_m=float(np.sqrt(cov[6, 6])) if with_drag else None,
+        residual_rms_m=float(np.sqrt(rss / len(tk))),
+        n_points=int(len(tk)),
+        duration_s=float(tk[-1] - tk[0]),
+    )
+
+
+# --- the clip ----------------------------------------------------------------------------------------------
+def _open(path: Path):
+    import av
+
+    try:
+        return av.open(str(path))
+    except (av.error.FFmpegError, OSError, ValueError) as exc:  # type: ignore[attr-defined]
+        raise OSError(f"{path}: cannot read the drop clip ({' '.join(str(exc).split())})") from None
+
+
+def _frames(path: Path):
+    """Yield (time_s, index, grey uint8 frame) with the container's timestamps."""
+    import av
+
+    with _open(path) as container:
+        if not container.streams.video:
+            raise ValueError(f"{path}: the drop clip has no video stream")
+        stream = container.streams.video[0]
+        try:
+            for i, frame in enumerate(container.decode(stream)):
+                t = frame.time
+                yield (float(t) if t is not None else float("nan")), i, frame.to_ndarray(format="gray")
+        except av.error.FFmpegError as exc:  # type: ignore[attr-defined]
+            raise OSError(f"{path}: the drop clip is damaged ({' '.join(str(exc).split())})") from None
+
+
+def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> DropClip:
+    """Find the dropped ball in each frame of a clip: |frame − median background|, largest blob's centroid.
+
+    Parameters
+    ----------
+    path : the clip (any container/codec FFmpeg reads).
+    fps : frame rate override, 1/s (frame k at k/fps); None uses the container's timestamps.
+
+    Returns
+    -------
+    DropClip (frames without a single clear blob are left out).
+
+    Notes
+    -----
+    Pixels (u, v) in OpenCV order, centroids weighted by the difference image; times in s from the first
+    frame.
+    """
+    p = Path(path)
+    if fps is not None and not (math.isfinite(fps) and fps > 0):
+        raise ValueError(f"--drop-fps: expected a positive frame rate, got {fps!r}")
+    frames = list(_frames(p))  # a drop clip is short (a few hundred frames)
+    if len(frames) < MIN_DROP_POINTS:
+        raise ValueError(f"{p}: the drop clip has only {len(frames)} frame(s)")
+    pick = np.unique(np.linspace(0, len(frames) - 1, min(BACKGROUND_FRAMES, len(frames))).astype(int))
+    background = np.median(np.stack([frames[i][2] for i in pick]), axis=0).astype(np.uint8)
+    # one robust noise level for the clip: the blurred difference of a background sample, every 4th pixel
+    probe = cv2.GaussianBlur(cv2.absdiff(frames[pick[len(pick) // 2]][2], background), (0, 0), 1.0)
+    sub = probe[::4, ::4].astype(np.float32)
+    sigma = 1.4826 * float(np.median(np.abs(sub - np.median(sub))))
+    thr = max(DETECT_SIGMA * sigma, DETECT_FLOOR_DN)
+    max_area = BLOB_MAX_AREA_FRACTION * background.size
+    times, uvs, idx = [], [], []
+    for t, i, img in frames:
+        diff = cv2.absdiff(img, background)
+        mask = (cv2.GaussianBlur(diff, (0, 0), 1.0) > thr).astype(np.uint8)
+        n, _, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
+        if n < 2:
+            continue
+        areas = stats[1:, cv2.CC_STAT_AREA]
+        best = int(np.argmax(areas)) + 1
+        if not (BLOB_MIN_AREA_PX <= areas[best - 1] <= max_area):
+            continue
+        if n > 2 and np.sort(areas)[-2] > 0.5 * areas[best - 1]:
+            continue  # two similar blobs: ambiguous
+        x, y, w, h = stats[best, :4]
+        pad = 2
+        r0, r1 = max(y - pad, 0), min(y + h + pad, diff.shape[0])
+        c0, c1 = max(x - pad, 0), min(x + w + pad, diff.shape[1])
+        patch = np.clip(diff[r0:r1, c0:c1].astype(np.float64) - 0.5 * thr, 0, None)
+        total = float(patch.sum())
+        if total <= 0:
+            continue
+        rr, cc = np.mgrid[r0:r1, c0:c1]
+        uvs.append([(patch * cc).sum() / total, (patch * rr).sum() / total])
+        times.append(t)
+        idx.append(i)
+    frame_idx = np.asarray(idx, int)
+    if fps is not None:
+        t_s = frame_idx / float(fps)
+        timing, rate = "--fps override", float(fps)
+    else:
+        all_t = np.array([f[0] for f in frames])
+        if not np.all(np.isfinite(all_t)):
+            raise ValueError(f"{p}: the drop clip has frames without timestamps; give its frame rate")
+        t_s = np.asarray(times, float) - all_t[0]
+        span = all_t[-1] - all_t[0]
+        rate = (len(all_t) - 1) / span if span > 0 else float("nan")
+        timing = "container timestamps"
+    return DropClip(str(p), t_s, np.asarray(uvs, float).reshape(-1, 2), frame_idx, len(frames), timing, rate)
+
+
+def _moving(clip: DropClip) -> np.ndarray:
+    """Mask of the falling part: from the last frame at the release position onward (drops the ball held
+    still before the release, where it can sit in the background or in the hand)."""
+    uv = clip.uv_px
+    if len(uv) < 3:
+        return np.ones(len(uv), bool)
+    step = np.linalg.norm(np.diff(uv, axis=0), axis=1)
+    moving = np.concatenate([[False], step > 0.3])
+    if not moving.any():
+        return np.ones(len(uv), bool)
+    first = int(np.argmax(moving))
+    mask = np.zeros(len(uv), bool)
+    mask[max(first - 1, 0) :] = True
+    return mask
+
+
+def check_drop(
+    rig: Rig,
+    path: str | os.PathLike[str],
+    *,
+    fps: float | None = None,
+    g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
+    drag: str = "auto",
+) -> tuple[dict[str, Any], tuple[str, ...]]:
+    """Measure g from a drop clip through ``rig`` and judge it.
+
+    Returns
+    -------
+    (drop_check, warnings): ``drop_check`` is the rig's ``drop_check`` entry (``g_measured_mps2``
+    {"value", "stderr"}, ``g_expected_mps2``, ``verdict`` "consistent" / "inconsistent" / "failed",
+    ``tilt_deg`` {"value", "stderr"}, ``levelled`` false until :func:`apply_level`, and the details);
+    ``warnings`` name the likely cause when g is off (frame rate, scale) or why the check failed.
+
+    Notes
+    -----
+    World frame: x downrange, y up (as the rig has it before levelling), metres; seconds from the clip.
+    """
+    if not (math.isfinite(g_expected_mps2) and g_expected_mps2 > 0):
+        raise ValueError(f"--g-expected: expected a positive acceleration, got {g_expected_mps2!r}")
+    clip = find_ball(path, fps=fps)
+    mask = _moving(clip)
+    xy = rig.pixel_to_world(clip.uv_px[mask]) if mask.any() else np.zeros((0, 2))
+    fit = fit_free_fall(clip.t_s[mask], xy, drag=drag)
+    base: dict[str, Any] = {
+        "clip": clip.source,
+        "timing": clip.timing,
+        "fps": clip.fps if math.isfinite(clip.fps) else None,
+        "frames": clip.n_frames,
+        "g_expected_mps2": g_expected_mps2,
+        "levelled": False,
+    }
+    if not fit.ok:
+        base.update({"verdict": "failed", "reason": fit.reason, "g_measured_mps2": None, "tilt_deg": None})
+        return base, (f"drop check failed on {clip.source}: {fit.reason}",)
+    dev = fit.g_mps2 - g_expected_mps2
+    allowed = DROP_SIGMA_LIMIT * fit.g_stderr_mps2 + LOCAL_GRAVITY_ALLOWANCE_MPS2
+    verdict = "consistent" if abs(dev) <= allowed else "inconsistent"
+    ratio = fit.g_mps2 / g_expected_mps2
+    base.update(
+        {
+            "g_measured_mps2": {"value": fit.g_mps2, "stderr": fit.g_stderr_mps2},
+            "g_ratio": ratio,
+            "tilt_deg": {"value": math.degrees(fit.tilt_rad), "stderr": math.degrees(fit.tilt_stderr_rad)},
+            "drag_per_m": None
+            if fit.drag_per_m is None
+            else {"value": fit.drag_per_m, "stderr": fit.drag_stderr_per_m},
+            "points": fit.n_points,
+            "duration_s": fit.duration_s,
+            "residual_rms_m": fit.residual_rms_m,
+            "verdict": verdict,
+        }
+    )
+    warns = []
+    if verdict == "inconsistent":
+        rate_hint = ""
+        if math.isfinite(clip.fps):
+            rate_hint = (
+                f" (a true frame rate of {clip.fps / math.sqrt(ratio):.4g} fps instead of {clip.fps:.4g})"
+            )
+        warns.append(
+            f"drop check: measured g = {fit.g_mps2:.4g} ± {fit.g_stderr_mps2:.2g} m/s², expected "
+            f"{g_expected_mps2:.4g} ({100 * (ratio - 1):+.2f} %): check the frame rate{rate_hint}, which "
+            f"scales g by its square, or the scale (--square-mm, plane offsets, parallax), which scales g "
+            f"by its own error"
+        )
+    return base, tuple(warns)
+
+
+def apply_level(rig: Rig, drop_check: Mapping[str, Any], warnings: tuple[str, ...] = ()) -> Rig:
+    """Attach ``drop_check`` to the rig and, when its tilt is significant, level the world frame.
+
+    The world frame is turned about z by −tilt, so gravity points along −y: the origin and the plane stay;
+    every mapped x, y is then in the levelled frame. Levelled or not is recorded in ``drop_check``.
+    """
+    check = dict(drop_check)
+    tilt = check.get("tilt_deg")
+    out = rig
+    if isinstance(tilt, Mapping) and check.get("verdict") in ("consistent", "inconsistent"):
+        value, err = float(tilt["value"]), float(tilt["stderr"])
+        if math.isfinite(err) and abs(value) > TILT_SIGNIFICANCE * err:
+            out = rig.rotated_about_z(-math.radians(value))
+            check["levelled"] = True
+    return out.with_drop_check(check, warnings=warnings)
