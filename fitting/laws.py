@@ -208,6 +208,10 @@ class LinearLift:
     def coefficient(self, s: np.ndarray) -> np.ndarray:
         return self.k * s
 
+    def spin_ratio_for(self, cl: ArrayLike) -> np.ndarray:
+        """The spin ratio S that gives lift coefficient ``cl``: S = C_L / k (the inverse of the law)."""
+        return np.asarray(cl, dtype=float) / self.k
+
 
 @dataclass(frozen=True)
 class SaturatingLift:
@@ -228,6 +232,13 @@ class SaturatingLift:
 
     def coefficient(self, s: np.ndarray) -> np.ndarray:
         return self.cl_max * s / (self.s_half + np.abs(s))
+
+    def spin_ratio_for(self, cl: ArrayLike) -> np.ndarray:
+        """The spin ratio S that gives lift coefficient ``cl`` (|cl| < cl_max): S = s½·C_L / (c − |C_L|)."""
+        cl = np.asarray(cl, dtype=float)
+        if np.any(np.abs(cl) >= np.abs(self.cl_max)):
+            raise ValueError(f"lift coefficient {cl!r} is out of reach of the saturating law (|C_L| < cl_max)")
+        return self.s_half * cl / (self.cl_max - np.abs(cl))
 
 
 # ---------------------------------------------------------------------------------------------- decay laws

@@ -1,0 +1,562 @@
+"""``hopscope simulate``: fly one BB with the project's flight model and write its path as CSV.
+
+The shot comes either from a fit (``--fit fit.json``: the first shot's exit speed, elevation and lift
+coefficient, the fitted C_D and spin decay, the fit's air density and BB) or from the command line. The laws
+are the defaults of the fitter: constant drag, linear lift C_L = k·S, exponential spin decay. Under the
+linear law only k·ω₀ shapes the path, so the spin is computed for a nominal k (:data:`NOMINAL_LIFT_SLOPE`)
+and reported as model-based.
+
+World frame: x downrange, y up, z = x × y (toward the camera), metres; the path starts at the origin at
+t = 0 (for ``--fit``, the shot's first tracked point).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.constants import (
+    DEFAULT_BB_DIAMETER_M,
+    DEFAULT_HUMIDITY_PCT,
+    DEFAULT_PRESSURE_HPA,
+    DEFAULT_TEMPERATURE_C,
+    MAX_PLAUSIBLE_SPEED_MPS,
+    MIN_PLAUSIBLE_SPEED_MPS,
+)
+from fitting.flight import FlightModel, LaunchState, fly
+from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
+from fitting.units import (
+    celsius_to_kelvin,
+    deg_to_rad,
+    grams_to_kg,
+    hpa_to_pa,
+    kg_to_grams,
+    m_to_mm,
+    mm_to_m,
+    mps_to_fps,
+    percent_to_fraction,
+    rad_to_deg,
+    radps_to_rpm,
+)
+from hopscope.console import summary, warn
+from hopscope.fileio import write_text_atomic
+
+NAME = "simulate"
+HELP = "fly a BB with the flight model (from a fit or given numbers) and write its path as CSV"
+DESCRIPTION = (
+    "Simulate one shot with the project's flight model (constant drag, linear lift C_L = k*S, exponential "
+    "spin decay) from a fit.json or from numbers given here, and write the path to CSV. The path stops at "
+    "--range-m or where it reaches the ground (--muzzle-height-m below the launch point)."
+)
+
+#: Nominal lift slope k of C_L = k·S used to turn the lift coefficient into a spin rate. Under the linear
+#: law the path depends on k·ω₀ only, so any k gives the same path; the spin column scales as 1/k.
+NOMINAL_LIFT_SLOPE = 1.0
+DEFAULT_RANGE_M = 60.0
+#: Height of the muzzle above the ground, m; the ground is this far below the launch point.
+#: # common practice, no published source (a shoulder-height shot)
+DEFAULT_MUZZLE_HEIGHT_M = 1.5
+DEFAULT_SAMPLE_MS = 1.0
+#: Longest flight simulated, s (a BB reaches the ground or its range long before).
+MAX_FLIGHT_S = 30.0
+#: |C_L| above which the path carries a warning: the ceiling cl_max of the published saturating form.
+SATURATING_CL_CEILING = float(SaturatingLift().cl_max)
+FIT_SCHEMA = "hopscope.fit/1"
+PATH_SCHEMA = "hopscope.path/1"
+DEFAULT_LAWS = {"drag": "constant", "lift": "linear", "decay": "exponential"}
+
+_MANUAL_OPTIONS = ("mass_g", "speed_mps", "elevation_deg", "cd", "lift_coefficient")
+_AIR_OPTIONS = ("temp_c", "pressure_hpa", "humidity_pct")
+
+
+def register(parser: argparse.ArgumentParser) -> None:
+    src = parser.add_argument_group("shot (either --fit, or the numbers below)")
+    src.add_argument(
+        "--fit", metavar="FIT_JSON", help="take the shot, C_D, spin decay, air and BB from a fit.json"
+    )
+    src.add_argument("--mass-g", type=float, metavar="M", help="BB mass, g")
+    src.add_argument(
+        "--diameter-mm",
+        type=float,
+        metavar="D",
+        help=f"BB diameter, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g})",
+    )
+    src.add_argument("--speed-mps", type=float, metavar="V", help="exit speed, m/s")
+    src.add_argument(
+        "--elevation-deg", type=float, metavar="A", help="launch elevation above horizontal, degrees"
+    )
+    src.add_argument("--cd", type=float, metavar="CD", help="drag coefficient C_D (constant)")
+    src.add_argument(
+        "--lift-coefficient",
+        type=float,
+        metavar="CL",
+        help="lift coefficient C_L at the start (backspin > 0)",
+    )
+    src.add_argument(
+        "--spin-decay-s", type=float, metavar="TAU", help="spin decay time constant, s (default: no decay)"
+    )
+    flight = parser.add_argument_group("flight")
+    flight.add_argument(
+        "--range-m",
+        type=float,
+        default=DEFAULT_RANGE_M,
+        metavar="R",
+        help=f"stop at this downrange distance, m (default {DEFAULT_RANGE_M:g})",
+    )
+    flight.add_argument(
+        "--muzzle-height-m",
+        type=float,
+        default=DEFAULT_MUZZLE_HEIGHT_M,
+        metavar="H",
+        help=f"muzzle height above the ground, m; the path stops at the ground (default {DEFAULT_MUZZLE_HEIGHT_M:g})",
+    )
+    flight.add_argument(
+        "--wind-mps",
+        type=float,
+        default=0.0,
+        metavar="W",
+        help="wind along the line of fire, m/s (tailwind > 0)",
+    )
+    flight.add_argument(
+        "--crosswind-mps", type=float, default=0.0, metavar="C", help="wind across the line of fire (+z), m/s"
+    )
+    flight.add_argument(
+        "--sample-ms",
+        type=float,
+        default=DEFAULT_SAMPLE_MS,
+        metavar="DT",
+        help=f"time between CSV rows, ms (default {DEFAULT_SAMPLE_MS:g})",
+    )
+    air = parser.add_argument_group("air (default 20 °C, 1013.25 hPa, 50 %; with --fit: the fit's density)")
+    air.add_argument("--temp-c", type=float, metavar="T", help="air temperature, °C")
+    air.add_argument(
+        "--pressure-hpa", type=float, metavar="P", help="air pressure (absolute, not sea-level), hPa"
+    )
+    air.add_argument("--humidity-pct", type=float, metavar="H", help="relative humidity, %%")
+    parser.add_argument("-o", "--output", required=True, metavar="PATH_CSV", help="the path CSV to write")
+
+
+@dataclass(frozen=True)
+class ShotInputs:
+    """Everything the simulation needs, SI, plus where it came from (for the header)."""
+
+    bb: BB
+    air: Air
+    air_note: str
+    speed_mps: float
+    elevation_rad: float
+    drag_coefficient: float
+    lift_coefficient: float
+    spin_decay_s: float  # inf: no decay
+    source: str
+    warnings: tuple[str, ...]
+
+
+# --------------------------------------------------------------------------------------------- validation
+
+
+def _finite(option: str, value: float) -> float:
+    if not math.isfinite(value):
+        raise ValueError(f"{option}: must be a finite number, got {value!r}")
+    return float(value)
+
+
+def _in_range(
+    option: str, value: float, lo: float, hi: float, unit: str, *, open_lo=False, open_hi=False
+) -> float:
+    _finite(option, value)
+    bad_lo = value <= lo if open_lo else value < lo
+    bad_hi = value >= hi if open_hi else value > hi
+    if bad_lo or bad_hi:
+        lo_s = "(" if open_lo else "["
+        hi_s = ")" if open_hi else "]"
+        u = f" {unit}" if unit else ""
+        raise ValueError(
+            f"{option}: {value:g}{u} is outside the accepted range {lo_s}{lo:g}, {hi:g}{hi_s}{u}"
+        )
+    return float(value)
+
+
+def _check_mass_g(value: float) -> float:
+    _finite("--mass-g", value)
+    if value <= 0:
+        raise ValueError(f"--mass-g: BB mass must be positive, got {value:g} g")
+    return _in_range("--mass-g", value, 0.01, 10.0, "g")
+
+
+def _check_diameter_mm(value: float) -> float:
+    _finite("--diameter-mm", value)
+    if value <= 0:
+        raise ValueError(f"--diameter-mm: BB diameter must be positive, got {value:g} mm")
+    return _in_range("--diameter-mm", value, 1.0, 20.0, "mm")
+
+
+def _check_speed(option: str, value: float) -> float:
+    return _in_range(
+        option, value, MIN_PLAUSIBLE_SPEED_MPS, MAX_PLAUSIBLE_SPEED_MPS, "m/s", open_lo=True, open_hi=True
+    )
+
+
+def _check_common(args: argparse.Namespace) -> None:
+    _in_range("--range-m", args.range_m, 0.0, 1000.0, "m", open_lo=True)
+    _in_range("--muzzle-height-m", args.muzzle_height_m, 0.0, 100.0, "m")
+    _in_range("--wind-mps", args.wind_mps, -50.0, 50.0, "m/s")
+    _in_range("--crosswind-mps", args.crosswind_mps, -50.0, 50.0, "m/s")
+    _in_range("--sample-ms", args.sample_ms, 0.0, 1000.0, "ms", open_lo=True)
+
+
+def _air_from_args(args: argparse.Namespace) -> tuple[Air, str]:
+    given = [getattr(args, k) is not None for k in _AIR_OPTIONS]
+    t_c = (
+        DEFAULT_TEMPERATURE_C
+        if args.temp_c is None
+        else _in_range("--temp-c", args.temp_c, -50.0, 60.0, "°C")
+    )
+    p_hpa = (
+        DEFAULT_PRESSURE_HPA
+        if args.pressure_hpa is None
+        else _in_range("--pressure-hpa", args.pressure_hpa, 500.0, 1200.0, "hPa")
+    )
+    if args.humidity_pct is None:
+        h_pct = DEFAULT_HUMIDITY_PCT
+    else:
+        h_pct = _finite("--humidity-pct", args.humidity_pct)
+        if not 0.0 <= h_pct <= 100.0:
+            raise ValueError(f"--humidity-pct: relative humidity must lie in 0..100 %, got {h_pct:g}")
+    air = Air.from_conditions(celsius_to_kelvin(t_c), hpa_to_pa(p_hpa), percent_to_fraction(h_pct))
+    defaulted = [
+        name for name, g in zip(("temperature", "pressure", "humidity"), given, strict=True) if not g
+    ]
+    note = f"CIPM-2007 from {t_c:g} °C, {p_hpa:g} hPa, {h_pct:g} % RH"
+    if defaulted:
+        note += f" (default {', '.join(defaulted)})"
+    return air, note
+
+
+def _manual_inputs(args: argparse.Namespace) -> ShotInputs:
+    for key in _MANUAL_OPTIONS:
+        if getattr(args, key) is None:
+            raise ValueError(f"--{key.replace('_', '-')}: required unless --fit is given")
+    mass_g = _check_mass_g(args.mass_g)
+    diameter_mm = (
+        m_to_mm(DEFAULT_BB_DIAMETER_M) if args.diameter_mm is None else _check_diameter_mm(args.diameter_mm)
+    )
+    speed = _check_speed("--speed-mps", args.speed_mps)
+    elevation = _in_range(
+        "--elevation-deg", args.elevation_deg, -90.0, 90.0, "degrees", open_lo=True, open_hi=True
+    )
+    cd = _in_range("--cd", args.cd, 0.0, 5.0, "")
+    cl = _in_range("--lift-coefficient", args.lift_coefficient, -2.0, 2.0, "")
+    tau = math.inf
+    if args.spin_decay_s is not None:
+        _finite("--spin-decay-s", args.spin_decay_s)
+        if args.spin_decay_s <= 0:
+            raise ValueError(
+                f"--spin-decay-s: must be positive (omit it for no decay), got {args.spin_decay_s:g}"
+            )
+        tau = float(args.spin_decay_s)
+    air, note = _air_from_args(args)
+    bb = BB(grams_to_kg(mass_g), mm_to_m(diameter_mm))
+    return ShotInputs(bb, air, note, speed, deg_to_rad(elevation), cd, cl, tau, "command line", ())
+
+
+# ---------------------------------------------------------------------------------------------- fit.json
+# TODO(fitfile): this small reader should move to fitting.fitfile.read_fit once that exists; it reads only
+# the keys of design.md that simulate needs.
+
+
+def _fit_error(path: str, key: str, problem: str) -> ValueError:
+    return ValueError(f"{path}: {key}: {problem}")
+
+
+def _fit_get(doc, path: str, key: str):
+    node = doc
+    for part in key.split("."):
+        if isinstance(node, list):
+            if not part.isdigit() or int(part) >= len(node):
+                raise _fit_error(path, key, "missing")
+            node = node[int(part)]
+        elif isinstance(node, dict):
+            if part not in node:
+                raise _fit_error(path, key, "missing")
+            node = node[part]
+        else:
+            raise _fit_error(path, key, "missing")
+    return node
+
+
+def _fit_optional_number(doc, path: str, key: str) -> float | None:
+    """A finite number, or None for null, at ``key``; an estimate ``{"value", "stderr"}`` or a bare number."""
+    node = _fit_get(doc, path, key)
+    shown = key
+    if isinstance(node, dict):
+        if "value" not in node:
+            raise _fit_error(path, f"{key}.value", "missing")
+        node = node["value"]
+        shown = f"{key}.value"
+    if node is None:
+        return None
+    if isinstance(node, bool) or not isinstance(node, int | float):
+        raise _fit_error(path, shown, f"expected a number, got {type(node).__name__}")
+    if not math.isfinite(node):
+        raise _fit_error(path, shown, f"must be finite, got {node!r}")
+    return float(node)
+
+
+def _fit_number(doc, path: str, key: str) -> float:
+    value = _fit_optional_number(doc, path, key)
+    if value is None:
+        raise _fit_error(path, key, "is null")
+    return value
+
+
+def _fit_inputs(args: argparse.Namespace) -> ShotInputs:
+    path = args.fit
+    manual = [
+        f"--{k.replace('_', '-')}"
+        for k in (*_MANUAL_OPTIONS, "diameter_mm", "spin_decay_s")
+        if getattr(args, k) is not None
+    ]
+    if manual:
+        raise ValueError(f"--fit: cannot be combined with {', '.join(manual)} (the fit gives them)")
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise ValueError(f"{path}: not a UTF-8 text file ({exc.reason})") from None
+    try:
+        doc = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise ValueError(f"{path}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
+    if not isinstance(doc, dict):
+        raise _fit_error(path, "schema", "the file is not a JSON object")
+    schema = doc.get("schema")
+    if schema != FIT_SCHEMA:
+        raise _fit_error(path, "schema", f"expected {FIT_SCHEMA!r}, got {schema!r}")
+    warnings: list[str] = []
+    speed = _fit_number(doc, path, "shots.0.initial.speed_mps")
+    elevation_deg = _fit_number(doc, path, "shots.0.initial.elevation_deg")
+    cl = _fit_number(doc, path, "shots.0.lift_coefficient")
+    cd = _fit_number(doc, path, "aero.drag_coefficient")
+    tau = _fit_optional_number(doc, path, "aero.spin_decay_time_s")
+    rho = _fit_number(doc, path, "air.density_kgm3")
+    mass = _fit_number(doc, path, "bb.mass_kg")
+    diameter = _fit_number(doc, path, "bb.diameter_m")
+    for key, value in (("bb.mass_kg", mass), ("bb.diameter_m", diameter), ("air.density_kgm3", rho)):
+        if value <= 0:
+            raise _fit_error(path, key, f"must be positive, got {value:g}")
+    if not 0.01 <= kg_to_grams(mass) <= 10.0:
+        raise _fit_error(path, "bb.mass_kg", f"{mass:g} kg is outside 0.01..10 g")
+    if not 1.0 <= m_to_mm(diameter) <= 20.0:
+        raise _fit_error(path, "bb.diameter_m", f"{diameter:g} m is outside 1..20 mm")
+    if not MIN_PLAUSIBLE_SPEED_MPS < speed < MAX_PLAUSIBLE_SPEED_MPS:
+        raise _fit_error(
+            path, "shots.0.initial.speed_mps.value", f"{speed:g} m/s is not a plausible BB speed"
+        )
+    if not -90.0 < elevation_deg < 90.0:
+        raise _fit_error(
+            path, "shots.0.initial.elevation_deg.value", f"{elevation_deg:g} degrees is outside (-90, 90)"
+        )
+    if not 0.0 <= cd <= 5.0:
+        raise _fit_error(path, "aero.drag_coefficient.value", f"{cd:g} is outside [0, 5]")
+    if not -2.0 <= cl <= 2.0:
+        raise _fit_error(path, "shots.0.lift_coefficient.value", f"{cl:g} is outside [-2, 2]")
+    if not 0.3 <= rho <= 2.0:
+        raise _fit_error(path, "air.density_kgm3.value", f"{rho:g} kg/m³ is not a plausible air density")
+    if tau is None:
+        tau = math.inf
+        warnings.append(f"{path}: the fit could not determine the spin decay time; simulating without decay")
+    elif tau <= 0:
+        raise _fit_error(path, "aero.spin_decay_time_s.value", f"must be positive, got {tau:g}")
+    model = doc.get("model")
+    if isinstance(model, dict):
+        for key, default in DEFAULT_LAWS.items():
+            law = model.get(key)
+            if isinstance(law, str) and law != default:
+                warnings.append(
+                    f"{path}: the fit used {key} law {law!r}; simulate uses {default!r} with the fit's coefficients"
+                )
+    n_shots = len(doc["shots"]) if isinstance(doc.get("shots"), list) else 1
+    if n_shots > 1:
+        warnings.append(f"{path}: the fit holds {n_shots} shots; simulating the first")
+    if any(getattr(args, k) is not None for k in _AIR_OPTIONS):
+        air, note = _air_from_args(args)
+        note += f"; given on the command line instead of the fit's {rho:.5g} kg/m³"
+    else:
+        # The fit gives the density; viscosity only matters for Reynolds-number laws (not used here).
+        std = Air.standard()
+        air = Air(std.temperature_k, std.pressure_pa, std.relative_humidity, rho, std.viscosity_pas)
+        note = f"from the fit ({path})"
+    bb = BB(mass, diameter)
+    source = f"{path} (shots[0]; path starts at its first tracked point)"
+    return ShotInputs(bb, air, note, speed, deg_to_rad(elevation_deg), cd, cl, tau, source, tuple(warnings))
+
+
+# ---------------------------------------------------------------------------------------------- simulation
+
+
+@dataclass(frozen=True)
+class SimulatedPath:
+    """Sampled path (SI) and how it ended."""
+
+    t_s: np.ndarray
+    state: np.ndarray  # (k, 7): x, y, z, vx, vy, vz, omega
+    spin0_radps: float
+    stop_reason: str  # "range" or "ground"
+    t_range_s: float  # NaN if the range was not reached
+    ground_y_m: float
+
+
+def simulate(
+    shot: ShotInputs, *, range_m: float, muzzle_height_m: float, wind_mps, sample_s: float
+) -> SimulatedPath:
+    """Fly the shot from the origin until it reaches ``range_m`` downrange or the ground."""
+    lift = LinearLift(NOMINAL_LIFT_SLOPE)
+    model = FlightModel(
+        shot.bb,
+        shot.air,
+        drag=ConstantDrag(shot.drag_coefficient),
+        lift=lift,
+        decay=ExponentialDecay(shot.spin_decay_s),
+        wind_mps=tuple(float(w) for w in wind_mps),
+    )
+    v0 = np.array([math.cos(shot.elevation_rad), math.sin(shot.elevation_rad), 0.0]) * shot.speed_mps
+    air_speed0 = float(np.linalg.norm(v0 - np.asarray(model.wind_mps)))
+    spin0 = float(lift.spin_ratio_for(shot.lift_coefficient)) * air_speed0 / shot.bb.radius_m
+    launch = LaunchState.from_speed(shot.speed_mps, shot.elevation_rad, spin_radps=spin0)
+    ground = -float(muzzle_height_m)
+    # First guess of the flight time: range over the horizontal exit speed, doubled; extended if needed.
+    duration = min(
+        MAX_FLIGHT_S, max(0.1, 2.0 * range_m / max(shot.speed_mps * math.cos(shot.elevation_rad), 1.0))
+    )
+    while True:
+        traj = fly(model, launch, duration)
+        t_range = float(traj.time_at_downrange(range_m)[0])
+        t_ground = float(traj.time_at_height(ground)[0])
+        if math.isfinite(t_range) or math.isfinite(t_ground):
+            break
+        if duration >= MAX_FLIGHT_S:
+            raise ValueError(
+                f"--range-m: the BB neither reached {range_m:g} m downrange nor the ground within {MAX_FLIGHT_S:g} s"
+            )
+        duration = min(MAX_FLIGHT_S, 2.0 * duration)
+    if math.isfinite(t_range) and not (math.isfinite(t_ground) and t_ground < t_range):
+        t_stop, reason = t_range, "range"
+    else:
+        t_stop, reason = t_ground, "ground"
+    t = np.arange(0.0, t_stop, sample_s)
+    t = np.append(t[t < t_stop - 1e-9], t_stop)
+    state = traj.sample(t)[0]
+    if reason == "range":
+        state[-1, 0] = range_m  # exact at the crossing (the bisection leaves ~1e-12 s)
+    else:
+        state[-1, 1] = ground
+    return SimulatedPath(t, state, spin0, reason, t_range if reason == "range" else math.nan, ground)
+
+
+def _lift_coefficients(shot: ShotInputs, path: SimulatedPath, wind_mps) -> np.ndarray:
+    """C_L along the path under the linear law (independent of the nominal k)."""
+    u = np.linalg.norm(path.state[:, 3:6] - np.asarray(wind_mps, dtype=float), axis=1)
+    return LinearLift(NOMINAL_LIFT_SLOPE).coefficient(shot.bb.radius_m * path.state[:, 6] / u)
+
+
+def _csv_text(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace, warnings: list[str]) -> str:
+    bb = shot.bb
+    speed = np.linalg.norm(path.state[:, 3:6], axis=1)
+    energy = 0.5 * bb.mass_kg * speed**2
+    cl = _lift_coefficients(shot, path, (args.wind_mps, 0.0, args.crosswind_mps))
+    tau = "no decay" if math.isinf(shot.spin_decay_s) else f"tau = {shot.spin_decay_s:g} s"
+    header = [
+        f"# {PATH_SCHEMA} written by hopscope simulate (model output, not a measurement)",
+        f"# source: {shot.source}",
+        f"# air: density {shot.air.density_kgm3:.5f} kg/m3, {shot.air_note}",
+        f"# bb: mass {bb.mass_kg:.6g} kg ({kg_to_grams(bb.mass_kg):g} g), diameter {bb.diameter_m:.6g} m",
+        f"# launch: speed {shot.speed_mps:.6g} m/s ({mps_to_fps(shot.speed_mps):.1f} fps), elevation "
+        f"{rad_to_deg(shot.elevation_rad):.6g} deg, at x = y = z = 0",
+        f"# law drag: constant, C_D = {shot.drag_coefficient:.6g}",
+        f"# law lift: linear, C_L = k*S with nominal k = {NOMINAL_LIFT_SLOPE:g}; C_L at start {shot.lift_coefficient:.6g} "
+        f"gives spin {path.spin0_radps:.6g} rad/s ({radps_to_rpm(path.spin0_radps):.0f} rpm), model-based: "
+        "only k*spin is fixed by C_L",
+        f"# law decay: exponential in time, {tau}",
+        f"# wind: {args.wind_mps:g} m/s downrange, {args.crosswind_mps:g} m/s across (+z); gravity 9.80665 m/s2 (-y)",
+        f"# stop: {'range ' + format(args.range_m, 'g') + ' m reached' if path.stop_reason == 'range' else 'ground reached'}"
+        f"; ground at y = {path.ground_y_m:g} m (muzzle height {args.muzzle_height_m:g} m)",
+        "# frame: x downrange, y up, z = x cross y, metres; t since launch, s; energy_j = translational kinetic energy",
+    ]
+    header += [f"# warning: {w}" for w in warnings]
+    cols = "t_s,x_m,y_m,z_m,vx_mps,vy_mps,vz_mps,speed_mps,spin_radps,energy_j,lift_coefficient"
+    rows = [
+        f"{t:.9f},{s[0]:.6f},{s[1]:.6f},{s[2]:.6f},{s[3]:.6f},{s[4]:.6f},{s[5]:.6f},{v:.6f},{s[6]:.6g},{e:.6g},{c:.6g}"
+        for t, s, v, e, c in zip(path.t_s, path.state, speed, energy, cl, strict=True)
+    ]
+    return "\n".join([*header, cols, *rows]) + "\n"
+
+
+def run(args: argparse.Namespace) -> int:
+    _check_common(args)
+    shot = _fit_inputs(args) if args.fit is not None else _manual_inputs(args)
+    wind = (args.wind_mps, 0.0, args.crosswind_mps)
+    path = simulate(
+        shot,
+        range_m=args.range_m,
+        muzzle_height_m=args.muzzle_height_m,
+        wind_mps=wind,
+        sample_s=args.sample_ms * 1e-3,
+    )
+    warnings = list(shot.warnings)
+    cl_max = float(np.max(np.abs(_lift_coefficients(shot, path, wind))))
+    if cl_max > SATURATING_CL_CEILING:
+        warnings.append(
+            f"the lift coefficient reaches {cl_max:.2g} along the path, beyond {SATURATING_CL_CEILING:.2f} "
+            "(the ceiling of the published saturating lift form); the linear law is extrapolated there"
+        )
+    if path.stop_reason == "ground":
+        warnings.append(
+            f"the BB reached the ground at {path.state[-1, 0]:.2f} m downrange, before the range of {args.range_m:g} m"
+        )
+    text = _csv_text(shot, path, args, warnings)
+    write_text_atomic(args.output, text)
+    for w in warnings:
+        warn(w)
+    print(_summary(shot, path, args))
+    return 0
+
+
+def _summary(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace) -> str:
+    m = shot.bb.mass_kg
+    v0 = shot.speed_mps
+    end = path.state[-1]
+    v_end = float(np.linalg.norm(end[3:6]))
+    rows = [
+        ("muzzle speed", f"{v0:.1f} m/s ({mps_to_fps(v0):.0f} fps)"),
+        ("muzzle energy", f"{0.5 * m * v0 * v0:.3f} J"),
+        ("air density", f"{shot.air.density_kgm3:.4f} kg/m³"),
+        ("max height", f"{float(np.max(path.state[:, 1])):+.3f} m (above launch)"),
+    ]
+    if path.stop_reason == "range":
+        rows += [
+            ("time of flight", f"{path.t_s[-1]:.3f} s to {args.range_m:g} m"),
+            ("drop at range", f"{abs(end[1]):.3f} m {'below' if end[1] <= 0 else 'above'} launch height"),
+            ("drift at range", f"{end[2]:+.3f} m (+z)"),
+            ("speed at range", f"{v_end:.1f} m/s ({mps_to_fps(v_end):.0f} fps)"),
+            ("energy at range", f"{0.5 * m * v_end * v_end:.3f} J"),
+        ]
+    else:
+        rows += [
+            ("time of flight", f"{path.t_s[-1]:.3f} s to the ground"),
+            ("ground reached at", f"{end[0]:.2f} m downrange (range {args.range_m:g} m not reached)"),
+            ("speed at the ground", f"{v_end:.1f} m/s ({mps_to_fps(v_end):.0f} fps)"),
+            ("energy at the ground", f"{0.5 * m * v_end * v_end:.3f} J"),
+        ]
+    rows.append(("path", f"{args.output} ({path.t_s.size} rows)"))
+    text = summary("hopscope simulate (model output)", rows)
+    return (
+        text
+        + "\n  note: field and local rules on muzzle energy govern; the field's chronograph is the reference."
+    )
