@@ -1,0 +1,229 @@
+"""The renderer itself: geometry of the BB and the board, timing effects, determinism, files."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+
+import av
+import cv2
+import numpy as np
+import pytest
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.flight import FlightModel, LaunchState, fly
+from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
+from hopscope.scenes import (
+    BBSpec,
+    CameraSpec,
+    ImageModelSpec,
+    LightingSpec,
+    SceneCamera,
+    board_corners,
+    load_truth,
+    prepare_scene,
+    project_board_corners,
+    render_board_image,
+    render_scene,
+    small_scene,
+)
+from hopscope.scenes.render import lens_view_poses
+
+#: Projected true BB centre vs the rendered BB's intensity centroid (frames without blur), px.
+CENTROID_TOL_PX = 0.1
+#: RMS of OpenCV's findChessboardCornersSB corners against the projected true corners, px (the
+#: detector's own precision is about 0.1 px, see references.md "Corners" [measured]; the tight check of the
+#: renderer is the sub-pixel one below).
+SB_CORNER_RMS_TOL_PX = 0.12
+#: RMS / max of the classic detector + cornerSubPix against the projected true corners, px.
+SUBPIX_CORNER_RMS_TOL_PX = 0.06
+SUBPIX_CORNER_MAX_TOL_PX = 0.2
+#: Inverse mapping (bicubic rays) round trip through cv2.projectPoints, px.
+RAY_ROUND_TRIP_TOL_PX = 1e-3
+#: Relative tolerance on the streak length recovered from the trail's second moment.
+STREAK_REL_TOL = 0.03
+#: Rolling-shutter shift of the centroid vs v·Δt, px.
+ROLLING_SHIFT_TOL_PX = 0.1
+#: Truth path re-flown from truth.json's own numbers, m.
+REFLY_TOL_M = 1e-6
+
+CLEAN = ImageModelSpec(noise=False, motion_blur=False, rolling_shutter=False)
+FLAT = LightingSpec(wall_distance_m=0.5, texture_contrast=0.0, gradient=0.0)
+
+
+def _bb_centroid(frame: np.ndarray, background: np.ndarray, u: float, v: float, half: int = 8):
+    """Intensity centroid of |frame − background| in a window around (u, v); returns (u, v)."""
+    r0, c0 = int(round(v)) - half, int(round(u)) - half
+    win = np.abs(frame[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1].astype(float)
+                 - background[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1])
+    rr, cc = np.mgrid[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
+    s = win.sum()
+    return float((win * cc).sum() / s), float((win * rr).sum() / s)
+
+
+def _interior_frames(truth_frames, size, margin=10):
+    w, h = size
+    return [f for f in truth_frames
+            if f["visible"] and margin < f["u_px"] < w - 1 - margin and margin < f["v_px"] < h - 1 - margin]
+
+
+@pytest.mark.parametrize("kind", ["white", "tracer"])
+def test_projected_truth_lands_on_rendered_centroid(kind):
+    spec = small_scene(image=CLEAN, lighting=FLAT, bb=BBSpec(kind=kind))
+    scene = prepare_scene(spec, rng=1)
+    truth = scene.true_flight_frames()
+    frames = _interior_frames(truth, spec.camera.image_size)
+    assert len(frames) >= 8
+    errs = []
+    for f in frames:
+        img = scene.flight_frame(f["frame"], quantise=False)
+        bg = scene.flight_frame(f["frame"], quantise=False, bb=False)
+        cu, cv = _bb_centroid(img, bg, f["u_px"], f["v_px"])
+        errs.append(math.hypot(cu - f["u_px"], cv - f["v_px"]))
+    assert max(errs) < CENTROID_TOL_PX, errs
+
+
+def test_truth_frames_agree_with_projecting_the_truth_path():
+    spec = small_scene()
+    scene = prepare_scene(spec, rng=0)
+    frames = [f for f in scene.true_flight_frames() if f["visible"]]
+    pts = np.array([[f["x_m"], f["y_m"], f["z_m"]] for f in frames])
+    uv = scene.camera.project(pts)
+    assert np.allclose(uv, [[f["u_px"], f["v_px"]] for f in frames], atol=1e-9)
+
+
+def test_ray_interpolation_round_trips_through_opencv():
+    cam = SceneCamera.from_spec(CameraSpec(image_size=(640, 360), focal_px=500.0,
+                                           dist_coeffs=(-0.25, 0.06, 1.2e-3, -1e-3, 0.0)))
+    rng = np.random.default_rng(4)
+    u = np.sort(rng.uniform(-0.5, 639.5, 50))
+    v = np.sort(rng.uniform(-0.5, 359.5, 40))
+    xn, yn = cam.rays(u, v)
+    pts = np.stack([xn.ravel(), yn.ravel(), np.ones(xn.size)], axis=1)
+    uv, _ = cv2.projectPoints(pts, np.zeros(3), np.zeros(3), cam.camera_matrix, cam.dist_coeffs)
+    uu, vv = np.meshgrid(u, v)
+    err = np.hypot(uv[:, 0, 0] - uu.ravel(), uv[:, 0, 1] - vv.ravel())
+    assert err.max() < RAY_ROUND_TRIP_TOL_PX
+
+
+def _board_case(size=(640, 480), focal=520.0, n=3, seed=5):
+    spec = small_scene()
+    cam = SceneCamera.from_spec(dataclasses.replace(spec.camera, image_size=size, focal_px=focal))
+    poses = lens_view_poses(cam, spec.board, n, (20.0, 45.0), (0.55, 0.85), np.random.default_rng(seed))
+    return cam, spec.board, poses
+
+
+def test_sb_detector_corners_match_projected_truth_in_documented_order():
+    cam, board, poses = _board_case()
+    for rot, tr in poses:
+        img = render_board_image(cam, board, rot, tr, background=110.0)
+        ok, corners = cv2.findChessboardCornersSB(
+            img, (board.cols, board.rows), flags=cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE
+            | cv2.CALIB_CB_ACCURACY)
+        assert ok
+        true = project_board_corners(cam, board, rot, tr)
+        err = np.linalg.norm(corners.reshape(-1, 2) - true, axis=1)
+        assert math.sqrt(np.mean(err**2)) < SB_CORNER_RMS_TOL_PX, err
+
+
+def test_classic_detector_with_subpixel_refinement_matches_truth_reversed():
+    # The classic detector orders this board's corners from the other end (documented in CORNER_ORDER).
+    cam, board, poses = _board_case(seed=6)
+    for rot, tr in poses:
+        img = render_board_image(cam, board, rot, tr, background=110.0)
+        ok, corners = cv2.findChessboardCorners(img, (board.cols, board.rows))
+        assert ok
+        corners = cv2.cornerSubPix(img, corners, (5, 5), (-1, -1),
+                                   (cv2.TERM_CRITERIA_EPS + cv2.TERM_CRITERIA_COUNT, 60, 1e-4))
+        true = project_board_corners(cam, board, rot, tr)
+        err = np.linalg.norm(corners.reshape(-1, 2)[::-1] - true, axis=1)
+        assert math.sqrt(np.mean(err**2)) < SUBPIX_CORNER_RMS_TOL_PX
+        assert err.max() < SUBPIX_CORNER_MAX_TOL_PX
+
+
+def test_board_corner_order_is_row_major_along_plus_x():
+    board = small_scene().board
+    c = board_corners(board)
+    assert c.shape == (board.cols * board.rows, 3)
+    assert np.allclose(c[1] - c[0], [board.square_m, 0, 0])
+    assert np.allclose(c[board.cols] - c[0], [0, -board.square_m, 0])
+
+
+def test_rendering_is_deterministic_for_a_seed_and_differs_between_seeds(tmp_path):
+    spec = small_scene(lens=dataclasses.replace(small_scene().lens, n_views=1))
+    a = render_scene(spec, tmp_path / "a", rng=11)
+    b = render_scene(spec, tmp_path / "b", rng=11)
+    c = render_scene(spec, tmp_path / "c", rng=12)
+    for pa, pb, pc in zip(a.lens_view_paths, b.lens_view_paths, c.lens_view_paths, strict=True):
+        assert pa.read_bytes() == pb.read_bytes()
+        assert pa.read_bytes() != pc.read_bytes()
+    assert a.flight_clip_path.read_bytes() == b.flight_clip_path.read_bytes()
+    assert a.plane_views[0][0].read_bytes() == b.plane_views[0][0].read_bytes()
+    assert a.truth["flight"] == b.truth["flight"]
+
+
+def test_render_is_cached_for_same_spec_and_seed(tmp_path):
+    spec = small_scene(lens=dataclasses.replace(small_scene().lens, n_views=1))
+    a = render_scene(spec, tmp_path, rng=3)
+    stamp = a.truth_path.stat().st_mtime_ns
+    b = render_scene(spec, tmp_path, rng=3)
+    assert b.truth_path.stat().st_mtime_ns == stamp
+    assert b.truth == a.truth
+    c = render_scene(spec, tmp_path, rng=4)
+    assert c.truth["spec_digest"] != a.truth["spec_digest"]
+
+
+def test_clip_is_readable_by_opencv_and_pyav_with_right_count_size_and_times(tmp_path):
+    spec = small_scene(lens=dataclasses.replace(small_scene().lens, n_views=0))
+    scene = render_scene(spec, tmp_path, rng=0, parts=("flight",))
+    n = scene.truth["flight"]["n_frames"]
+    w, h = spec.camera.image_size
+    cap = cv2.VideoCapture(str(scene.flight_clip_path))
+    count = 0
+    while True:
+        ok, frame = cap.read()
+        if not ok:
+            break
+        assert frame.shape == (h, w, 3)
+        count += 1
+    cap.release()
+    assert count == n
+    with av.open(str(scene.flight_clip_path)) as container:
+        times = [fr.time for fr in container.decode(video=0)]
+        stream = container.streams.video[0]
+        assert (stream.width, stream.height) == (w, h)
+    assert len(times) == n
+    assert np.allclose(times, np.arange(n) / spec.camera.fps, atol=1e-6)
+
+
+def test_truth_file_is_complete_enough_to_refly_the_path(tmp_path):
+    scene = render_scene(small_scene(), tmp_path, rng=0, parts=("flight",))
+    truth = load_truth(scene.truth_path)
+    fl = truth["flight"]
+    air = Air(**{k: fl["air"][k] for k in ("temperature_k", "pressure_pa", "relative_humidity",
+                                           "density_kgm3", "viscosity_pas")})
+    model = FlightModel(BB(fl["bb"]["mass_kg"], fl["bb"]["diameter_m"]), air,
+                        ConstantDrag(fl["laws"]["drag_coefficient"]), LinearLift(fl["laws"]["lift_slope"]),
+                        ExponentialDecay(fl["laws"]["spin_decay_time_s"]), fl["gravity_mps2"])
+    la = fl["launch"]
+    launch = LaunchState(np.array([la["position_m"]]), np.array([la["velocity_mps"]]),
+                         np.array([la["spin_radps"]]), np.array([la["spin_axis"]]))
+    t = np.array(fl["path"]["t_s"])
+    assert np.max(np.diff(t)) <= 2e-4 + 1e-12
+    traj = fly(model, launch, float(t[-1] - la["t_s"]) + 1e-3, step_s=2e-4)
+    st = traj.sample(t - la["t_s"])[0]
+    assert np.max(np.abs(st[:, 0] - fl["path"]["x_m"])) < REFLY_TOL_M
+    assert np.max(np.abs(st[:, 1] - fl["path"]["y_m"])) < REFLY_TOL_M
+    # C_L at launch is the linear law at the launch spin ratio
+    cl0 = fl["laws"]["lift_slope"] * 0.5 * fl["bb"]["diameter_m"] * la["spin_radps"] / la["speed_mps"]
+    assert cl0 == pytest.approx(fl["laws"]["lift_coefficient"]["launch"], rel=1e-12)
+    json.dumps(truth)  # plain JSON types only
+
+
+def test_load_truth_rejects_another_schema(tmp_path):
+    p = tmp_path / "truth.json"
+    p.write_text(json.dumps({"schema": "hopscope.truth/0"}))
+    with pytest.raises(ValueError, match=r"truth\.json: expected schema 'hopscope.truth/1'"):
+        load_truth(p)
