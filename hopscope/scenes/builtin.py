@@ -8,8 +8,10 @@ from .spec import (
     BBSpec,
     BoardSpec,
     CameraSpec,
+    ClutterSpec,
     DropSpec,
     FlightSpec,
+    ImageModelSpec,
     LensViewsSpec,
     LightingSpec,
     PlaneViewsSpec,
@@ -38,7 +40,62 @@ def _lane_close() -> SceneSpec:
         flight=FlightSpec(muzzle_m=(-1.0, -0.2, 0.003), speed_mps=95.0, elevation_deg=0.3, azimuth_deg=-0.01,
                           drag_coefficient=0.42, lift_coefficient=0.02, lift_slope=0.1, spin_decay_time_s=2.0,
                           lead_frames=25, tail_frames=5),
-        drop=DropSpec(release_m=(0.3, 0.47, 0.0), lead_frames=20, n_frames=160),
+        # released 2 mm above the top edge of the image, so the hand stays out of view
+        drop=DropSpec(release_m=(0.3, 0.467, 0.0), lead_frames=20, n_frames=150),
+    )
+
+
+def _lane_long() -> SceneSpec:
+    # A phone-like camera 27 m from an outdoor lane at dusk; 1080p at 240 fps is ~18 mm per pixel on the
+    # plane, so the board is big (1.6 m × 1.0 m squares area, 0.2 m squares ≈ 11 px) and stands at three
+    # placements along the flight line.
+    return SceneSpec(
+        name="lane-long",
+        description="demo data, invented: outdoor lane at dusk, 240 fps phone-like camera with rolling "
+        "shutter, ~35 m field, tracer BB, three board placements",
+        camera=CameraSpec(
+            image_size=(1920, 1080), focal_px=1507.0, principal_offset_px=(-6.0, 5.0),
+            dist_coeffs=(-0.12, 0.025, 8.0e-4, -6.0e-4, 0.0),
+            position_m=(13.8, 0.2, 27.0), look_at_m=(13.5, -0.3, 0.0), roll_deg=-0.4,
+            fps=240.0, readout_s=3.6e-3, exposure_s=1.0e-3,
+        ),
+        board=BoardSpec(cols=7, rows=4, square_m=0.2, margin_m=0.08),
+        lens=LensViewsSpec(n_views=12),
+        plane=PlaneViewsSpec(offsets_m=(0.0, 12.0, 24.0)),
+        lighting=LightingSpec(kind="dusk", wall_distance_m=6.0, wall_level_dn=14.0, texture_contrast=0.2,
+                              gradient=0.06, board_illumination_dn=170.0),
+        bb=BBSpec(kind="tracer", mass_kg=2.5e-4, brightness_dn=400.0, halo_dn=220.0, halo_sigma_px=1.3),
+        flight=FlightSpec(muzzle_m=(-6.0, -0.3, 0.004), speed_mps=92.0, elevation_deg=1.0, azimuth_deg=-0.005,
+                          drag_coefficient=0.44, lift_coefficient=0.022, lift_slope=0.1,
+                          spin_decay_time_s=1.5, temperature_k=288.15, pressure_pa=99800.0,
+                          relative_humidity=0.7, lead_frames=20, tail_frames=5),
+        clutter=ClutterSpec(distractor=True, start_px=(1300.0, 380.0), velocity_pxps=(-180.0, 40.0),
+                            wobble_px=25.0, wobble_hz=2.0, radius_px=2.5, darkness=0.0, glow_dn=30.0),
+        image=ImageModelSpec(gain_e_per_dn=2.5, read_noise_dn=2.0),
+    )
+
+
+def _lane_spin() -> SceneSpec:
+    # 10,000 fps close-up (0.3 m field) of a half-dark marked BB lit from above: its brightness follows the
+    # spin angle (~1000 rev/s here, invented), for the spin-measurement issue.
+    return SceneSpec(
+        name="lane-spin",
+        description="demo data, invented: indoor lane, 10,000 fps close-up of a half-dark marked BB",
+        camera=CameraSpec(
+            image_size=(640, 360), focal_px=800.0, principal_offset_px=(2.0, 1.5),
+            dist_coeffs=(-0.1, 0.02, 6.0e-4, -5.0e-4, 0.0),
+            position_m=(0.066, -0.036, 0.375), look_at_m=(0.06, -0.038, 0.0), roll_deg=0.3,
+            fps=10000.0, readout_s=0.0, exposure_s=2.0e-5,
+        ),
+        board=BoardSpec(cols=9, rows=6, square_m=0.015, margin_m=0.008),
+        lens=LensViewsSpec(n_views=12),
+        plane=PlaneViewsSpec(offsets_m=(0.0,)),
+        lighting=LightingSpec(kind="daylight", wall_distance_m=0.4, wall_level_dn=100.0, texture_contrast=0.1,
+                              gradient=0.1, flicker_amplitude=0.02),
+        bb=BBSpec(kind="marked", mass_kg=2.8e-4, brightness_dn=240.0, mark_phase_deg=30.0),
+        flight=FlightSpec(muzzle_m=(-0.25, -0.04, 0.001), speed_mps=96.0, elevation_deg=0.2, azimuth_deg=0.0,
+                          drag_coefficient=0.42, lift_coefficient=0.02, lift_slope=0.1,
+                          spin_decay_time_s=2.0, lead_frames=20, tail_frames=5),
     )
 
 
@@ -69,7 +126,7 @@ def small_scene(**changes) -> SceneSpec:
 
 def builtin_scene(name: str) -> SceneSpec:
     """The built-in scene ``name`` (one of :data:`BUILTIN_SCENES`)."""
-    makers = {"lane-close": _lane_close}
+    makers = {"lane-close": _lane_close, "lane-long": _lane_long, "lane-spin": _lane_spin}
     if name not in makers:
         raise ValueError(f"unknown scene {name!r}; choose one of {', '.join(BUILTIN_SCENES)}")
     return makers[name]()

@@ -559,6 +559,8 @@ def _draw_distractor(ctx: _ClipContext, img: np.ndarray, t_k: float, clutter: Cl
     d = np.hypot(cols[None, :] - cu[rows, None], rows[:, None] - cv[rows, None])
     cover = np.clip(r - d + 0.5, 0.0, 1.0)
     img[rows[:, None], cols[None, :]] *= 1.0 - clutter.darkness * cover
+    if clutter.glow_dn > 0:
+        img[rows[:, None], cols[None, :]] += clutter.glow_dn * cover
 
 
 def _draw_bb(ctx: _ClipContext, img: np.ndarray, gain_rows: np.ndarray, motion: _Motion, t_k: float,

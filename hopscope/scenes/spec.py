@@ -91,10 +91,11 @@ class CameraSpec:
         _positive("camera exposure_s", self.exposure_s)
         if self.readout_s < 0:
             raise ValueError(f"camera readout_s must be >= 0, got {self.readout_s!r}")
-        if self.readout_s + self.exposure_s > 1.0 / self.fps + 1e-12:
+        period = 1.0 / self.fps
+        if self.readout_s > period + 1e-12 or self.exposure_s > period + 1e-12:
             raise ValueError(
-                f"camera readout_s + exposure_s ({self.readout_s + self.exposure_s:g} s) exceeds the frame "
-                f"period 1/fps ({1.0 / self.fps:g} s)"
+                f"camera readout_s ({self.readout_s:g} s) and exposure_s ({self.exposure_s:g} s) must each be "
+                f"at most the frame period 1/fps ({period:g} s)"
             )
         _finite("camera psf_sigma_px", self.psf_sigma_px)
         if self.psf_sigma_px < 0:
@@ -365,6 +366,7 @@ class ClutterSpec:
     velocity_pxps : mean drift, px/s.
     wobble_px : amplitude of the sideways wobble, px; ``wobble_hz`` its frequency, Hz.
     radius_px : blob radius, px; ``darkness`` fraction of light it removes at its centre (0..1).
+    glow_dn : light the blob adds, DN (a lit moth at dusk; 0 for a dark insect).
     """
 
     distractor: bool = False
@@ -374,8 +376,12 @@ class ClutterSpec:
     wobble_hz: float = 6.0
     radius_px: float = 4.0
     darkness: float = 0.6
+    glow_dn: float = 0.0
 
     def __post_init__(self) -> None:
+        _finite("clutter glow_dn", self.glow_dn)
+        if self.glow_dn < 0:
+            raise ValueError(f"clutter glow_dn must be >= 0, got {self.glow_dn!r}")
         _vector("clutter start_px", self.start_px, 2)
         _vector("clutter velocity_pxps", self.velocity_pxps, 2)
         _finite("clutter wobble_px", self.wobble_px)

@@ -44,6 +44,8 @@ SUBPIX_CORNER_MAX_TOL_PX = 0.2
 RAY_ROUND_TRIP_TOL_PX = 1e-3
 #: Relative tolerance on the streak length recovered from the trail's second moment.
 STREAK_REL_TOL = 0.03
+#: Streak length vs speed × exposure × f/Z near the principal point (distortion and obliquity < 0.5 %).
+CENTRAL_SCALE_REL_TOL = 0.01
 #: Rolling-shutter shift of the centroid vs v·Δt, px.
 ROLLING_SHIFT_TOL_PX = 0.1
 #: Truth path re-flown from truth.json's own numbers, m.
@@ -227,3 +229,86 @@ def test_load_truth_rejects_another_schema(tmp_path):
     p.write_text(json.dumps({"schema": "hopscope.truth/0"}))
     with pytest.raises(ValueError, match=r"truth\.json: expected schema 'hopscope.truth/1'"):
         load_truth(p)
+
+
+def test_rolling_shutter_shifts_the_bb_by_its_image_velocity_times_the_row_delay():
+    readout = 4.0e-4
+    base = small_scene(lighting=FLAT)
+    cam = dataclasses.replace(base.camera, readout_s=readout)
+    on = prepare_scene(dataclasses.replace(base, camera=cam, image=dataclasses.replace(CLEAN, rolling_shutter=True)),
+                       rng=0)
+    off = prepare_scene(dataclasses.replace(base, camera=cam, image=CLEAN), rng=0)
+    fps = base.camera.fps
+    h = base.camera.image_size[1]
+    frames_off = off.true_flight_frames()
+    frames_on = on.true_flight_frames()
+    inner = _interior_frames(frames_off, base.camera.image_size, margin=20)
+    assert len(inner) >= 6
+    for f in inner[1:-1]:
+        k = f["frame"]
+        c_off = _bb_centroid(off.flight_frame(k, quantise=False), off.flight_frame(k, quantise=False, bb=False),
+                             f["u_px"], f["v_px"], half=16)
+        c_on = _bb_centroid(on.flight_frame(k, quantise=False), on.flight_frame(k, quantise=False, bb=False),
+                            f["u_px"], f["v_px"], half=16)
+        # image velocity from the global-shutter truth of the neighbouring frames, px/s
+        prev, nxt = frames_off[k - 1], frames_off[k + 1]
+        vel = np.array([nxt["u_px"] - prev["u_px"], nxt["v_px"] - prev["v_px"]]) * fps / 2.0
+        delay = c_on[1] * readout / h
+        expected = np.array(c_off) + vel * delay
+        assert np.hypot(*(np.array(c_on) - expected)) < ROLLING_SHIFT_TOL_PX
+        # and truth.json's own frame record (mid-exposure time at the BB's row) lands on it
+        g = frames_on[k]
+        assert math.hypot(c_on[0] - g["u_px"], c_on[1] - g["v_px"]) < CENTROID_TOL_PX
+        assert g["t_mid_s"] == pytest.approx(k / fps + g["v_px"] * readout / h + base.camera.exposure_s / 2,
+                                             abs=1e-9)
+
+
+def _second_moment_along(diff: np.ndarray, r0: int, c0: int, direction: np.ndarray) -> float:
+    rr, cc = np.mgrid[r0 : r0 + diff.shape[0], c0 : c0 + diff.shape[1]]
+    wgt = diff / diff.sum()
+    mu_c, mu_r = (wgt * cc).sum(), (wgt * rr).sum()
+    s = (cc - mu_c) * direction[0] + (rr - mu_r) * direction[1]
+    return float((wgt * s * s).sum())
+
+
+def test_motion_blur_streak_length_is_speed_times_exposure():
+    # A trail is the BB's still image convolved with the segment it travels during the exposure
+    # (Vereš et al. 2012, PASP 124:1197, "Improved asteroid astrometry and photometry with trail fitting",
+    # trail model eq. 1); a convolution with a uniform segment of length L adds L²/12 to the variance
+    # along the track, so L = sqrt(12 (var_blurred − var_still)).
+    exposure = 4.0e-4
+    base = small_scene(lighting=FLAT, camera=dataclasses.replace(small_scene().camera, exposure_s=exposure))
+    blur = prepare_scene(dataclasses.replace(base, image=dataclasses.replace(CLEAN, motion_blur=True)), rng=0)
+    still = prepare_scene(dataclasses.replace(base, image=CLEAN), rng=0)
+    truth = blur.true_flight_frames()
+    frames = _interior_frames(truth, base.camera.image_size, margin=30)
+    assert len(frames) >= 4
+    cx = blur.camera.camera_matrix[0, 2]
+    central = min(frames, key=lambda f: abs(f["u_px"] - cx))
+    half = 24
+    for f in frames:
+        k = f["frame"]
+        r0, c0 = int(round(f["v_px"])) - half, int(round(f["u_px"])) - half
+        cut = (slice(r0, r0 + 2 * half + 1), slice(c0, c0 + 2 * half + 1))
+        d_blur = np.abs(blur.flight_frame(k, quantise=False) - blur.flight_frame(k, quantise=False, bb=False))[cut]
+        d_still = np.abs(still.flight_frame(k, quantise=False)
+                         - still.flight_frame(k, quantise=False, bb=False))[cut]
+        nxt = truth[k + 1]
+        direction = np.array([nxt["u_px"] - f["u_px"], nxt["v_px"] - f["v_px"]])
+        direction /= np.linalg.norm(direction)
+        var_b = _second_moment_along(d_blur, r0, c0, direction)
+        var_s = _second_moment_along(d_still, r0, c0, direction)
+        length = math.sqrt(12.0 * (var_b - var_s))
+        assert length == pytest.approx(f["streak_len_px"], rel=STREAK_REL_TOL)
+        # the blurred streak is centred on the mid-exposure position
+        cu, cv = _bb_centroid(blur.flight_frame(k, quantise=False), blur.flight_frame(k, quantise=False, bb=False),
+                              f["u_px"], f["v_px"], half=half)
+        assert math.hypot(cu - f["u_px"], cv - f["v_px"]) < CENTROID_TOL_PX
+        if f is not central:
+            continue
+        # near the principal point (no distortion), the streak is speed × exposure × f/Z
+        speed = np.interp(f["t_mid_s"], blur.flight_motion.t0_s + blur.plan.trajectory.t_s,
+                          blur.plan.trajectory.speed_mps[0])
+        z_cam = blur.camera.to_camera(np.array([[f["x_m"], f["y_m"], f["z_m"]]]))[0, 2]
+        expected_px = speed * exposure * blur.camera.camera_matrix[0, 0] / z_cam
+        assert f["streak_len_px"] == pytest.approx(expected_px, rel=CENTRAL_SCALE_REL_TOL)
