@@ -44,6 +44,10 @@ MIN_STEP_PX = 1.0
 OUTLIER_SIGMA = 8.0
 OUTLIER_FLOOR_PX = 0.5
 
+#: Floor on a point's σ in the outlier test, px (compression and texture make real scatter larger
+#: than the noise-based σ of the sharpest points).
+SIGMA_FLOOR_PX = 0.05
+
 #: A track that loses more than this fraction of its points as outliers is not a projectile.
 MAX_OUTLIER_FRACTION = 0.3
 
@@ -177,8 +181,9 @@ def link(
             last = tr.idx[-1]
             for di in dets:
                 if pred is None:
+                    # a one-point track may only continue in the next frame
                     dist = math.hypot(u[di] - u[last], v[di] - v[last])
-                    if opt.min_step_px * gap <= dist <= opt.max_first_step_px * gap:
+                    if gap == 1 and opt.min_step_px <= dist <= opt.max_first_step_px:
                         pairs.append((1, dist, ti, di))
                 else:
                     pu, pv, step = pred
@@ -207,13 +212,26 @@ def link(
     outliers: list[int] = []
     candidates = [np.array(c, dtype=np.int64) for c in closed if len(c) >= 2]
     candidates = _join(candidates, frame, t, u, v, opt)
+    results = []
     for idx in candidates:
-        keep, out, reason = _check(idx, frame, t, u, v, sig, opt)
+        results.append((idx, *_check(idx, frame, t, u, v, sig, opt)))
+    taken = np.zeros(n, bool)
+    for _idx, keep, _out, reason in results:
+        if not reason:
+            taken[keep] = True
+    for idx, keep, out, reason in results:
         if reason:
             rejected.append((idx, reason))
-        else:
-            accepted.append(keep)
-            outliers.extend(int(i) for i in out)
+            continue
+        grown = _extend(keep, taken, frame, t, u, v, sig, opt)
+        if grown.size > keep.size:
+            keep2, out2, reason2 = _check(grown, frame, t, u, v, sig, opt)
+            if not reason2:
+                taken[keep] = False
+                keep, out = keep2, np.concatenate([out, out2]).astype(np.int64)
+                taken[keep] = True
+        accepted.append(keep)
+        outliers.extend(int(i) for i in out)
     accepted.sort(key=lambda a: (t[a[0]], u[a[0]]))
     return LinkResult(
         tracks=tuple(accepted),
@@ -252,23 +270,71 @@ def _join(tracks: list[np.ndarray], frame, t, u, v, opt: LinkOptions) -> list[np
     return tracks
 
 
-def _loo_residuals(tt: np.ndarray, uu: np.ndarray, vv: np.ndarray, half: int = 3) -> np.ndarray:
-    """Distance of each point from a quadratic through its neighbours (±half points, itself left out), px."""
+def _extend(keep: np.ndarray, taken: np.ndarray, frame, t, u, v, sig, opt: LinkOptions) -> np.ndarray:
+    """Grow an accepted track backwards and forwards onto free detections that its extrapolation meets."""
+    idx = list(keep[np.argsort(frame[keep], kind="stable")])
+    for direction in (-1, 1):
+        while True:
+            end = idx[0] if direction < 0 else idx[-1]
+            ref = idx[:3][::-1] if direction < 0 else idx[-3:]
+            found = None
+            for gap in range(1, opt.max_gap_frames + 2):
+                f = int(frame[end]) + direction * gap
+                cand = np.flatnonzero((frame == f) & ~taken)
+                cand = [c for c in cand if c not in idx]
+                if not cand:
+                    continue
+                tf = float(t[cand[0]])
+                pred = _predict(ref, frame, t, u, v, tf)
+                if pred is None:
+                    break
+                pu, pv, step = pred
+                gate = opt.gate_floor_px + opt.gate_fraction * step * gap * gap
+                dist = [math.hypot(u[c] - pu, v[c] - pv) for c in cand]
+                j = int(np.argmin(dist))
+                if dist[j] <= gate + 3.0 * sig[cand[j]]:
+                    found = int(cand[j])
+                    break
+            if found is None:
+                break
+            if direction < 0:
+                idx.insert(0, found)
+            else:
+                idx.append(found)
+    return np.array(idx, dtype=np.int64)
+
+
+def _loo_residuals(
+    tt: np.ndarray, uu: np.ndarray, vv: np.ndarray, ss: np.ndarray, half: int = 3
+) -> tuple[np.ndarray, np.ndarray]:
+    """Leave-one-out misfit of each point against a polynomial through its neighbours.
+
+    Returns (distance, σ of the prediction), px: a quadratic in time through the ±half nearest points
+    (itself left out; a line where fewer than four are at hand), weighted by the neighbours' σ ``ss``.
+    """
     n = tt.size
     res = np.zeros(n)
+    spred = np.zeros(n)
     for i in range(n):
         lo, hi = max(0, i - half), min(n, i + half + 1)
         nb = [j for j in range(lo, hi) if j != i]
-        if len(nb) < 3:
-            # too few neighbours on this side: widen to the nearest available
-            nb = [j for j in np.argsort(np.abs(np.arange(n) - i)) if j != i][: min(4, n - 1)]
-        deg = 2 if len(nb) >= 4 else 1
+        if len(nb) < 2 * half:
+            nb = [int(j) for j in np.argsort(np.abs(np.arange(n) - i), kind="stable") if j != i][
+                : min(2 * half, n - 1)
+            ]
+        interior = min(nb) < i < max(nb)
+        deg = 2 if (len(nb) >= 4 and interior) or len(nb) >= 5 else 1
         ts = tt[nb] - tt[i]
         scale = max(float(np.max(np.abs(ts))), 1e-12)
-        cu = np.polyfit(ts / scale, uu[nb], deg)
-        cv = np.polyfit(ts / scale, vv[nb], deg)
+        x = np.vander(ts / scale, deg + 1)
+        w = 1.0 / ss[nb]
+        xw = x * w[:, None]
+        cov = np.linalg.pinv(xw.T @ xw)
+        cu = cov @ (xw.T @ (uu[nb] * w))
+        cv = cov @ (xw.T @ (vv[nb] * w))
         res[i] = math.hypot(uu[i] - cu[-1], vv[i] - cv[-1])
-    return res
+        spred[i] = math.sqrt(max(float(cov[-1, -1]), 0.0))
+    return res, spred
 
 
 def _check(idx: np.ndarray, frame, t, u, v, sig, opt: LinkOptions) -> tuple[np.ndarray, np.ndarray, str]:
@@ -285,8 +351,9 @@ def _check(idx: np.ndarray, frame, t, u, v, sig, opt: LinkOptions) -> tuple[np.n
         for _ in range(idx.size):
             if keep.size < 4:
                 break
-            r = _loo_residuals(t[keep], u[keep], v[keep])
-            lim = np.maximum(opt.outlier_sigma * sig[keep], opt.outlier_floor_px)
+            se = np.maximum(sig[keep], SIGMA_FLOOR_PX)
+            r, sp = _loo_residuals(t[keep], u[keep], v[keep], se)
+            lim = np.maximum(opt.outlier_sigma * np.hypot(se, sp), opt.outlier_floor_px)
             worst = int(np.argmax(r / lim))
             if r[worst] <= lim[worst]:
                 break

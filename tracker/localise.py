@@ -51,6 +51,9 @@ STREAK_GAIN_SIGMA2 = 25.0
 #: Detections with amplitude below this many standard errors are dropped (value with a reason).
 MIN_AMPLITUDE_SNR = 5.0
 
+#: A fitted width below this is a noise spike or a defective pixel, not a BB's image, px.
+MIN_WIDTH_PX = 0.45
+
 #: Sensor top code value: a blob reaching it is flagged ``saturated`` (8-bit video).
 SATURATION_LEVEL = 254.5
 
@@ -181,7 +184,7 @@ def streak_jacobian(p: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
         gp, gm = _g(zp), _g(zm)
         num = erf(zp) - erf(zm)
         den = 2.0 * math.erf(h * k)
-        ghk = float(_TWO_OVER_SQRTPI * math.exp(-(h * k) ** 2))
+        ghk = float(_TWO_OVER_SQRTPI * math.exp(-((h * k) ** 2)))
         t = num / den
         t_al = k * (gp - gm) / den
         n_h, d_h = k * (gp + gm), 2.0 * k * ghk
@@ -264,8 +267,8 @@ def levenberg_marquardt(
     lower: np.ndarray,
     upper: np.ndarray,
     *,
-    max_iter: int = 50,
-    xtol: float = 1e-7,
+    max_iter: int = 40,
+    ftol: float = 1e-7,
 ) -> _Fit:
     """Minimise ½‖fun(p)‖² by Levenberg–Marquardt with Marquardt's diagonal scaling, p kept in bounds.
 
@@ -287,11 +290,15 @@ def levenberg_marquardt(
         g = j.T @ r
         dg = np.diag(a).copy()
         dg[dg <= 0] = 1e-12
+        # parameters held at a bound by the gradient stay there (projected steps)
+        free = ~(((p <= lower) & (g > 0)) | ((p >= upper) & (g < 0)))
+        af = a[np.ix_(free, free)]
         while True:
+            step = np.zeros_like(p)
             try:
-                step = np.linalg.solve(a + lam * np.diag(dg), -g)
+                step[free] = np.linalg.solve(af + lam * np.diag(dg[free]), -g[free])
             except np.linalg.LinAlgError:
-                step = np.zeros_like(p)
+                pass
             pn = np.clip(p + step, lower, upper)
             rn = fun(pn)
             cn = float(rn @ rn)
@@ -300,13 +307,14 @@ def levenberg_marquardt(
             lam *= 10.0
             if lam > 1e10:
                 return _Fit(p, r, j, 0.5 * cost, True, "no further decrease")
-        moved = np.abs(pn - p)
+        # converged when the step changes the fit by a negligible fraction of the residual
+        gain = float(np.sum(dg * (pn - p) ** 2))
+        drop = cost - cn
         p, r = pn, rn
-        small_cost_change = cost - cn <= 1e-12 * max(cost, 1e-300)
         cost = cn
         lam = max(lam / 10.0, 1e-12)
         j = jac(p)
-        if np.all(moved <= xtol * (np.abs(p) + xtol)) or small_cost_change:
+        if drop <= ftol * max(cost, 1e-300) or gain <= ftol * max(cost, 1e-300):
             return _Fit(p, r, j, 0.5 * cost, True, "converged")
     return _Fit(p, r, j, 0.5 * cost, False, f"no convergence in {max_iter} iterations")
 
@@ -380,7 +388,8 @@ def localise(
     p0 = np.clip(p0, np.array(lo) + 1e-9, np.array(hi) - 1e-9)
     fit = levenberg_marquardt(resid_spot, lambda q: spot_jacobian(q, gx, gy), p0, np.array(lo), np.array(hi))
     best, kind = fit, "spot"
-    if l1 / l2 > ELONGATION_RATIO**2:
+    spot_ok = fit.x[3] >= MIN_WIDTH_PX and fit.x[2] > 0
+    if spot_ok and l1 / l2 > ELONGATION_RATIO**2:
         length0 = float(np.clip(math.sqrt(max(12.0 * (l1 - l2), 0.0)), 0.5, lmax))
 
         def resid_streak(p: np.ndarray) -> np.ndarray:
@@ -401,8 +410,11 @@ def localise(
     amp, s_fit, c_fit = float(p[2]), float(p[3]), float(p[-1])
     excess = (streak_model(p, x, y) if kind == "streak" else spot_model(p, gx, gy)) - c_fit
     noise = _background_sigma(best.fun, excess, amp)
+    corr = correlation_factor(
+        best.fun.reshape(rows, cols), np.abs(excess.reshape(rows, cols)) < 0.02 * abs(amp)
+    )
     sig2 = np.full(x.shape, noise * noise)
-    cov = _covariance(best.jac, sig2)
+    cov = _covariance(best.jac, sig2) * corr
     su, sv, sa = (math.sqrt(max(float(cov[i, i]), 0.0)) for i in (0, 1, 2))
     u = float(p[0]) + c0
     v = float(p[1]) + r0
@@ -410,6 +422,8 @@ def localise(
         return _failed(frame, u, v, f"{kind} fit did not converge: {best.message}")
     if not (0 <= p[0] <= cols - 1 and 0 <= p[1] <= rows - 1):
         return _failed(frame, u, v, "fitted centre left the fit window")
+    if s_fit < MIN_WIDTH_PX:
+        return _failed(frame, u, v, f"width {s_fit:.2f} px: a noise spike or a bad pixel, not a BB")
     snr = amp / sa if sa > 0 else float("inf")
     if snr < MIN_AMPLITUDE_SNR:
         return _failed(frame, u, v, f"signal {snr:.1f} σ is below {MIN_AMPLITUDE_SNR:g} σ")
@@ -439,6 +453,33 @@ def localise(
         snr=float(snr),
         flags=tuple(flags),
     )
+
+
+def correlation_factor(resid: np.ndarray, outside: np.ndarray) -> float:
+    """Variance factor for spatially correlated noise: (1 + 2ρ_u)(1 + 2ρ_v), clipped to [1, 9].
+
+    ρ_u, ρ_v are the lag-one autocorrelations of the residuals between horizontally and vertically
+    adjacent pixels outside the blob. Compression and demosaicing correlate neighbouring pixels' noise,
+    which a least-squares covariance built on independent pixels underrates; for short-range correlation
+    the variance of a smooth linear estimate grows by about the sum of the autocorrelation (Bartlett 1946:
+    variance of a mean of an autocorrelated series, 1 + 2Σρ_k), applied per image axis.
+
+    References
+    ----------
+    Bartlett, M. S. (1946). On the theoretical specification and sampling properties of autocorrelated
+    time-series. J. R. Stat. Soc. Suppl. 8(1):27–41.
+    """
+    r = np.where(outside, resid, 0.0)
+    r = r - (r.sum() / max(int(outside.sum()), 1)) * outside
+    den = float(np.sum(r * r))
+    if den <= 0 or int(outside.sum()) < 20:
+        return 1.0
+    pu = outside[:, 1:] & outside[:, :-1]
+    pv = outside[1:, :] & outside[:-1, :]
+    rho_u = float(np.sum((r[:, 1:] * r[:, :-1])[pu])) / max(float(np.sum((r[:, 1:] ** 2)[pu])), 1e-300)
+    rho_v = float(np.sum((r[1:, :] * r[:-1, :])[pv])) / max(float(np.sum((r[1:, :] ** 2)[pv])), 1e-300)
+    f = (1.0 + 2.0 * max(rho_u, 0.0)) * (1.0 + 2.0 * max(rho_v, 0.0))
+    return float(min(max(f, 1.0), 9.0))
 
 
 def _background_sigma(resid: np.ndarray, excess: np.ndarray, amp: float) -> float:

@@ -10,6 +10,7 @@ Layout (text, UTF-8)::
     # exposure_s: 0.001                   (empty when unknown: t_s is then the frame's start time)
     # rig_digest: 3f2a...
     # image_size: 1920x1080
+    # polarity: bright                    (bright or dark: how the BB differed from the background)
     # warning: <one line per warning>
     frame,t_s,u_px,v_px,x_m,y_m,sigma_px,sigma_m,shot,brightness,streak_len_px,flags,cal_dx_m_01,cal_dy_m_01,...
 
@@ -94,6 +95,8 @@ class TrackMeta:
         (width, height) of the video, px.
     warnings : tuple of str
         One line each; carried as ``# warning:`` header lines.
+    polarity : str
+        ``"bright"`` or ``"dark"``: how the BB differed from the background (empty when not recorded).
     """
 
     video: str
@@ -104,6 +107,7 @@ class TrackMeta:
     rig_digest: str
     image_size: tuple[int, int]
     warnings: tuple[str, ...] = ()
+    polarity: str = ""
     schema: str = SCHEMA
 
     def __post_init__(self) -> None:
@@ -119,6 +123,8 @@ class TrackMeta:
             if "\n" in w or "\r" in w:
                 raise ValueError("warnings: each warning must be one line")
         object.__setattr__(self, "warnings", tuple(self.warnings))
+        if self.polarity not in ("", "bright", "dark"):
+            raise ValueError(f"polarity: expected 'bright', 'dark' or empty, got {self.polarity!r}")
         object.__setattr__(self, "image_size", (int(self.image_size[0]), int(self.image_size[1])))
 
 
@@ -272,6 +278,8 @@ def track_to_csv(track: Track) -> str:
     out.write(f"# exposure_s: {'' if m.exposure_s is None else _fmt(m.exposure_s)}\n")
     out.write(f"# rig_digest: {m.rig_digest}\n")
     out.write(f"# image_size: {m.image_size[0]}x{m.image_size[1]}\n")
+    if m.polarity:
+        out.write(f"# polarity: {m.polarity}\n")
     for w in m.warnings:
         out.write(f"# warning: {w}\n")
     k = track.n_ensemble
@@ -467,6 +475,7 @@ def _meta_from_header(header: dict[str, str], warnings: list[str], source: str) 
             rig_digest=need("rig_digest"),
             image_size=(int(m.group(1)), int(m.group(2))),
             warnings=tuple(warnings),
+            polarity=header.get("polarity", ""),
         )
     except ValueError as exc:
         raise ValueError(f"{source}: header: {exc}") from None

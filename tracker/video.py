@@ -37,7 +37,19 @@ TRUNCATION_TOLERANCE = 0.02
 
 #: Pixel formats whose first plane is 8-bit luma, read without conversion.
 _LUMA_PLANE_FORMATS = frozenset(
-    {"yuv420p", "yuvj420p", "yuv422p", "yuvj422p", "yuv444p", "yuvj444p", "yuv440p", "nv12", "nv21", "gray", "yuv411p"}
+    {
+        "yuv420p",
+        "yuvj420p",
+        "yuv422p",
+        "yuvj422p",
+        "yuv444p",
+        "yuvj444p",
+        "yuv440p",
+        "nv12",
+        "nv21",
+        "gray",
+        "yuv411p",
+    }
 )
 
 
@@ -229,7 +241,9 @@ def iter_frames(path: str | os.PathLike[str], *, fps_override: float | None = No
                 else:
                     ft = frame.time
                     if ft is None:
-                        raise ValueError(f"{path}: frame {index} has no timestamp; give the frame rate with --fps")
+                        raise ValueError(
+                            f"{path}: frame {index} has no timestamp; give the frame rate with --fps"
+                        )
                     if t0 is None:
                         t0 = float(ft)
                     t = float(ft) - t0

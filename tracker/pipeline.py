@@ -1,0 +1,467 @@
+"""The tracker end to end: video → background → candidates → sub-pixel fits → tracks → metres and seconds.
+
+One streaming pass over the clip (memory bounded by the background window), then linking, timing and the
+mapping through the rig. The result is a :class:`TrackResult`: the :class:`~tracker.trackfile.Track` (or
+the reason there is none), a summary for the user and what the overlay needs.
+
+Time of a point: the frame's time (container timestamps, or index / fps with an override), plus the
+rolling-shutter offset of the point's row, (v / rows) · readout, plus half the exposure when it is known
+(the fitted centre of a streak is the mid-exposure position).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable, Iterator
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from calibration.rig import Rig
+
+from .associate import LinkOptions, LinkResult, link
+from .background import default_scale, windowed
+from .detect import THRESHOLD_SIGMA, Candidate, find_candidates
+from .localise import Detection, localise
+from .trackfile import Track, TrackMeta
+from .video import VideoFrame, VideoInfo, check_frame_rate, iter_frames, probe_video, timing_warnings
+
+#: Plausible BB speeds, m/s: outside this the timing (playback time) or the scale is probably wrong.
+#: Airsoft replicas shoot at roughly 60–170 m/s; 5 m/s is a slow drop.  # common practice, no published source
+SPEED_RANGE_MPS = (5.0, 250.0)
+
+#: Polarity options and their detection signs.
+POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
+
+#: Most crops kept for the overlay's contact sheet.
+MAX_CROPS = 240
+
+#: Half size of a contact-sheet crop, px.
+CROP_HALF_PX = 16
+
+#: Points used for the finite-difference speed estimate at the start of a shot.
+SPEED_POINTS = 8
+
+
+@dataclass(frozen=True)
+class TrackOptions:
+    """How to track a clip.
+
+    Attributes
+    ----------
+    fps_override : frame rate, Hz, replacing the container timestamps (None: use them).
+    readout_s : rolling-shutter readout, top row to bottom row, s (0: global shutter).
+    exposure_s : exposure time, s (None: unknown; times are then the exposure start).
+    polarity : ``"auto"``, ``"bright"`` (BB brighter than the background) or ``"dark"``.
+    gap_frames : spacing of the background samples, frames.
+    scale : detection block size, px (None: about 480 px wide).
+    threshold_sigma : detection threshold in units of the local noise σ.
+    link : association tuning.
+    """
+
+    fps_override: float | None = None
+    readout_s: float = 0.0
+    exposure_s: float | None = None
+    polarity: str = "auto"
+    gap_frames: int = 2
+    scale: int | None = None
+    threshold_sigma: float = THRESHOLD_SIGMA
+    link: LinkOptions = field(default_factory=LinkOptions)
+
+    def __post_init__(self) -> None:
+        if self.fps_override is not None:
+            check_frame_rate(self.fps_override, "--fps")
+        if not (math.isfinite(self.readout_s) and self.readout_s >= 0):
+            raise ValueError(f"--readout-ms: expected a finite value >= 0, got {self.readout_s * 1e3:g}")
+        if self.exposure_s is not None and not (math.isfinite(self.exposure_s) and 0 < self.exposure_s < 1.0):
+            raise ValueError(
+                f"--exposure-ms: expected a value between 0 and 1000 ms, got {self.exposure_s * 1e3:g}"
+            )
+        if self.polarity not in POLARITIES:
+            raise ValueError(f"--polarity: expected one of {', '.join(POLARITIES)}, got {self.polarity!r}")
+        if self.scale is not None and self.scale < 1:
+            raise ValueError(f"scale: expected an integer >= 1, got {self.scale}")
+
+
+@dataclass(frozen=True)
+class TrackSummary:
+    """Figures for the one-screen summary.
+
+    Attributes
+    ----------
+    frames_read : frames decoded.
+    frames_with_points : frames that contributed a track point.
+    frame_rate_hz : frame rate used (override or container mean), Hz.
+    candidates : blobs found (all polarities searched).
+    fitted : blobs localised successfully.
+    points : track points written.
+    rejected_candidates : localised blobs not in any shot (distractors, noise, outliers).
+    outliers : points dropped from shots as off the smooth path.
+    polarity : ``"bright"`` or ``"dark"`` (chosen or given).
+    shot_speeds_mps : per shot, finite-difference speed at its start, m/s.
+    rejected_tracks : reasons for the tracks that were not accepted (a few).
+    """
+
+    frames_read: int
+    frames_with_points: int
+    frame_rate_hz: float
+    candidates: int
+    fitted: int
+    points: int
+    rejected_candidates: int
+    outliers: int
+    polarity: str
+    shot_speeds_mps: tuple[float, ...]
+    rejected_tracks: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class TrackResult:
+    """Outcome of tracking a clip.
+
+    Attributes
+    ----------
+    track : the Track, or None when no BB was found.
+    reason : empty, or why there is no track.
+    summary : figures for the user.
+    warnings : one line each (also in the track's header).
+    info : the container information.
+    detections : every localised blob (ok or not), with its polarity sign, for the overlay.
+    in_shot : per detection, the shot it belongs to (−1: none).
+    still : the first frame's luma (for the contact sheet).
+    crops : (frame, u0, v0, image) crops around shot points (a sample), for the contact sheet.
+    """
+
+    track: Track | None
+    reason: str
+    summary: TrackSummary
+    warnings: tuple[str, ...]
+    info: VideoInfo
+    detections: tuple[tuple[Detection, int], ...] = ()
+    in_shot: tuple[int, ...] = ()
+    still: np.ndarray | None = None
+    crops: tuple[tuple[int, int, int, np.ndarray], ...] = ()
+
+    @property
+    def ok(self) -> bool:
+        return self.track is not None
+
+
+def check_rig_size(rig: Rig, info: VideoInfo, rig_name: str = "rig") -> None:
+    """Raise a one-line ValueError when the rig was made for another image size than the video's."""
+    if tuple(rig.image_size) != (info.width, info.height):
+        w, h = rig.image_size
+        raise ValueError(
+            f"{rig_name}: made for {w}x{h} px images, but {info.path} has {info.width}x{info.height} px frames"
+        )
+
+
+def track_video(
+    video: str,
+    rig: Rig,
+    options: TrackOptions | None = None,
+    *,
+    progress: Callable[[Iterable[VideoFrame], int | None], Iterable[VideoFrame]] | None = None,
+    rig_name: str = "rig",
+) -> TrackResult:
+    """Track the BB through a clip and map it to metres and seconds.
+
+    Parameters
+    ----------
+    video : path of the clip.
+    rig : the calibrated camera and plane (:class:`calibration.rig.Rig`).
+    options : :class:`TrackOptions`.
+    progress : optional wrapper ``progress(frames, total)`` around the frame stream (a progress bar).
+    rig_name : how to name the rig in error messages (its file).
+
+    Returns
+    -------
+    TrackResult
+        ``track`` is None, with ``reason``, when no BB was found.
+
+    Raises
+    ------
+    OSError, ValueError
+        Unreadable, empty, corrupt or truncated video, a rig for another image size, bad options, bad
+        timestamps (one line naming the file or option).
+    """
+    opt = options or TrackOptions()
+    info = probe_video(video)
+    check_rig_size(rig, info, rig_name)
+    scale = opt.scale or default_scale(info.width, info.height)
+    want = POLARITIES[opt.polarity]
+    frames: Iterable[VideoFrame] = iter_frames(video, fps_override=opt.fps_override)
+    if progress is not None:
+        frames = progress(frames, info.n_frames)
+    times: list[float] = []
+
+    def timed(it: Iterable[VideoFrame]) -> Iterator[VideoFrame]:
+        for fr in it:
+            times.append(fr.t_s)
+            yield fr
+
+    dets: list[tuple[Detection, int, float, bool]] = []
+    n_cand = 0
+    still: np.ndarray | None = None
+    crops_src: dict[int, list[tuple[Candidate, np.ndarray]]] = {}
+    for wf in windowed(timed(frames), gap_frames=opt.gap_frames, scale=scale):
+        if still is None:
+            still = np.array(wf.frame.luma, copy=True)
+        cands = find_candidates(wf, threshold_sigma=opt.threshold_sigma, polarity=want)
+        n_cand += len(cands)
+        for c in cands:
+            r0, r1, c0, c1 = c.box
+            diff = wf.diff_roi(r0, r1, c0, c1)
+            raw = wf.frame.luma[r0:r1, c0:c1]
+            d = localise(diff, (r0, c0), frame=c.frame, sign=c.sign, raw=raw, guess_uv=(c.u_px, c.v_px))
+            dets.append((d, c.sign, wf.frame.t_s, c.touches_edge))
+            if d.ok:
+                crops_src.setdefault(c.frame, []).append((c, _crop(wf.frame.luma, d.u_px, d.v_px)))
+    n_frames = len(times)
+    if n_frames == 0:
+        raise ValueError(f"{video}: video has no frames")
+    t_all = np.array(times)
+    if opt.fps_override is not None:
+        rate = float(opt.fps_override)
+        source = "override"
+    else:
+        span = t_all[-1] - t_all[0]
+        rate = (n_frames - 1) / span if n_frames > 1 and span > 0 else (info.average_rate_hz or 0.0)
+        source = "container"
+        if not rate:
+            raise ValueError(f"{video}: cannot tell the frame rate from one frame; give it with --fps")
+        check_frame_rate(rate, f"{video}: container timestamps imply a frame rate that")
+    warns = timing_warnings(info, t_all, fps_override=opt.fps_override)
+    if n_frames > 1:
+        period = float(np.min(np.diff(t_all)))
+        if opt.readout_s >= period:
+            raise ValueError(
+                f"--readout-ms: readout {opt.readout_s * 1e3:g} ms is not shorter than the frame period "
+                f"{period * 1e3:.4g} ms"
+            )
+        if opt.exposure_s is not None and opt.exposure_s > period * 1.0001:
+            warns.append(
+                f"exposure {opt.exposure_s * 1e3:g} ms is longer than the frame period {period * 1e3:.4g} ms"
+            )
+
+    ok = [i for i, (d, _, _, _) in enumerate(dets) if d.ok]
+    chosen, res, pol_name = _choose_polarity(dets, ok, want, opt, info)
+    in_shot = [-1] * len(dets)
+    points: list[int] = []
+    shot_of: list[int] = []
+    for s, tr in enumerate(res.tracks):
+        for j in tr:
+            gi = chosen[int(j)]
+            in_shot[gi] = s
+            points.append(gi)
+            shot_of.append(s)
+    rejected_reasons = tuple(r for _, r in res.rejected[:5])
+    fitted = len(ok)
+    base_summary = dict(
+        frames_read=n_frames,
+        frame_rate_hz=rate,
+        candidates=n_cand,
+        fitted=fitted,
+        outliers=int(res.outliers.size),
+        polarity=pol_name,
+        rejected_tracks=rejected_reasons,
+    )
+    det_pairs = tuple((d, sgn) for d, sgn, _, _ in dets)
+    if not points:
+        why = (
+            f"{video}: no BB found: {n_cand} candidate blob(s) in {n_frames} frames, "
+            f"{fitted} localised, none formed a fast, smooth track"
+        )
+        if rejected_reasons:
+            why += f" (e.g. {rejected_reasons[0]})"
+        summary = TrackSummary(
+            frames_with_points=0,
+            points=0,
+            rejected_candidates=fitted,
+            shot_speeds_mps=(),
+            **base_summary,
+        )
+        return TrackResult(None, why, summary, tuple(warns), info, det_pairs, tuple(in_shot), still, ())
+
+    track, speeds, map_warns = _build_track(
+        [dets[i] for i in points], np.array(shot_of), rig, opt, info, video, source, rate, pol_name, warns
+    )
+    warns = list(track.meta.warnings)
+    crops = []
+    for gi in points[:: max(1, len(points) // MAX_CROPS + (len(points) % MAX_CROPS > 0))][:MAX_CROPS]:
+        d = dets[gi][0]
+        for c, img in crops_src.get(d.frame, []):
+            if abs(c.u_px - d.u_px) < 3 * CROP_HALF_PX and abs(c.v_px - d.v_px) < 3 * CROP_HALF_PX:
+                crops.append(
+                    (d.frame, int(round(d.u_px)) - CROP_HALF_PX, int(round(d.v_px)) - CROP_HALF_PX, img)
+                )
+                break
+    summary = TrackSummary(
+        frames_with_points=int(np.unique(track.frame).size),
+        points=track.n_points,
+        rejected_candidates=fitted - track.n_points,
+        shot_speeds_mps=speeds,
+        **base_summary,
+    )
+    return TrackResult(track, "", summary, tuple(warns), info, det_pairs, tuple(in_shot), still, tuple(crops))
+
+
+def _crop(luma: np.ndarray, u: float, v: float) -> np.ndarray:
+    h, w = luma.shape
+    cu, cv = int(round(u)), int(round(v))
+    out = np.zeros((2 * CROP_HALF_PX, 2 * CROP_HALF_PX), np.uint8)
+    r0, c0 = cv - CROP_HALF_PX, cu - CROP_HALF_PX
+    rr0, cc0 = max(r0, 0), max(c0, 0)
+    rr1, cc1 = min(r0 + 2 * CROP_HALF_PX, h), min(c0 + 2 * CROP_HALF_PX, w)
+    if rr1 > rr0 and cc1 > cc0:
+        out[rr0 - r0 : rr1 - r0, cc0 - c0 : cc1 - c0] = luma[rr0:rr1, cc0:cc1]
+    return out
+
+
+def _choose_polarity(
+    dets: list[tuple[Detection, int, float, bool]],
+    ok: list[int],
+    want: int,
+    opt: TrackOptions,
+    info: VideoInfo,
+) -> tuple[list[int], LinkResult, str]:
+    """Link each polarity's detections; keep the polarity whose shots hold more points (auto)."""
+    diag = math.hypot(info.width, info.height)
+    lopt = opt.link
+    if lopt.max_first_step_px == LinkOptions().max_first_step_px:
+        lopt = LinkOptions(**{**lopt.__dict__, "max_first_step_px": 0.5 * diag})
+    best: tuple[list[int], LinkResult, str] | None = None
+    for sign, name in ((1, "bright"), (-1, "dark")):
+        if want and sign != want:
+            continue
+        sel = [i for i in ok if dets[i][1] == sign]
+        if sel:
+            d = [dets[i][0] for i in sel]
+            res = link(
+                np.array([x.frame for x in d]),
+                np.array([dets[i][2] for i in sel]),
+                np.array([x.u_px for x in d]),
+                np.array([x.v_px for x in d]),
+                np.array([x.sigma_px for x in d]),
+                lopt,
+            )
+        else:
+            res = LinkResult(tracks=())
+        if best is None or res.n_points > best[1].n_points:
+            best = (sel, res, name)
+    assert best is not None  # at least one polarity is searched
+    return best
+
+
+def _build_track(
+    pts: list[tuple[Detection, int, float, bool]],
+    shot: np.ndarray,
+    rig: Rig,
+    opt: TrackOptions,
+    info: VideoInfo,
+    video: str,
+    source: str,
+    rate: float,
+    polarity: str,
+    warns: list[str],
+) -> tuple[Track, tuple[float, ...], list[str]]:
+    d = [p[0] for p in pts]
+    frame = np.array([x.frame for x in d], dtype=np.int64)
+    t_frame = np.array([p[2] for p in pts])
+    uv = np.array([[x.u_px, x.v_px] for x in d])
+    sig = np.array([x.sigma_px for x in d])
+    rows = info.height
+    t = t_frame + (uv[:, 1] / rows) * opt.readout_s
+    if opt.exposure_s is not None:
+        t = t + 0.5 * opt.exposure_s
+    xy = rig.pixel_to_world(uv)
+    warns = list(warns)
+    good = np.all(np.isfinite(xy), axis=1)
+    if not np.all(good):
+        warns.append(f"{int((~good).sum())} point(s) map to no point of the flight plane and were dropped")
+    jac = rig.pixel_to_world_jacobian(uv[good]) if np.any(good) else np.zeros((0, 2, 2))
+    sig_m = np.zeros(len(d))
+    sig_m[good] = sig[good] * np.sqrt(0.5 * np.einsum("nij,nij->n", jac, jac))
+    ens = rig.ensemble_pixel_to_world(uv[good]) if np.any(good) else np.zeros((0, 0, 2))
+    k = ens.shape[0]
+    cal = np.zeros((k, len(d), 2))
+    if k:
+        cal[:, good] = ens - xy[good][None]
+        if not np.all(np.isfinite(cal[:, good])):
+            bad = ~np.all(np.isfinite(cal), axis=(0, 2))
+            warns.append(
+                f"{int((bad & good).sum())} point(s) fall outside an ensemble rig's plane and were dropped"
+            )
+            good &= ~bad
+    flags = []
+    cov = rig.coverage_m
+    has_cov = cov[1] > cov[0] and cov[3] > cov[2]
+    inside = rig.in_coverage(np.where(np.isfinite(xy), xy, 0.0)) if has_cov else np.ones(len(d), bool)
+    for i, x in enumerate(d):
+        f = list(x.flags)
+        if pts[i][3]:
+            f.append("edge")
+        if not inside[i]:
+            f.append("outside_coverage")
+        flags.append(";".join(f))
+    if has_cov and not np.all(inside[good]):
+        warns.append(
+            f"{int((~inside[good]).sum())} point(s) lie outside the rig's calibrated area "
+            "(flag outside_coverage): their metres are extrapolated"
+        )
+    g = good
+    order = np.lexsort((t[g], shot[g]))
+    # renumber shots 0.. in order of appearance
+    shots_kept = shot[g][order]
+    _, first = np.unique(shots_kept, return_index=True)
+    remap = {int(s): r for r, s in enumerate(shots_kept[np.sort(first)])}
+    shot_new = np.array([remap[int(s)] for s in shots_kept], dtype=np.int64)
+    speeds: list[float] = []
+    xs, ys, ts = xy[g][order, 0], xy[g][order, 1], t[g][order]
+    for s in range(len(remap)):
+        m = shot_new == s
+        if m.sum() >= 2:
+            n = min(SPEED_POINTS, int(m.sum()))
+            dx, dy, dt = np.diff(xs[m][:n]), np.diff(ys[m][:n]), np.diff(ts[m][:n])
+            sp = float(np.median(np.hypot(dx, dy) / dt))
+            speeds.append(sp)
+            lo, hi = SPEED_RANGE_MPS
+            if not lo <= sp <= hi:
+                hint = (
+                    "the timestamps may be playback time (slow motion: give the capture rate with --fps)"
+                    if sp < lo
+                    else "check the frame rate (--fps) and the rig's scale"
+                )
+                warns.append(
+                    f"shot {s}: implied speed {sp:.3g} m/s is outside the plausible {lo:g}..{hi:g} m/s: {hint}"
+                )
+    meta = TrackMeta(
+        video=video,
+        timing_source=source,
+        frame_rate_hz=rate,
+        readout_s=opt.readout_s,
+        exposure_s=opt.exposure_s,
+        rig_digest=rig.digest,
+        image_size=(info.width, info.height),
+        warnings=tuple(dict.fromkeys(warns)),
+        polarity=polarity,
+    )
+    sel = np.flatnonzero(g)[order]
+    track = Track(
+        frame=frame[sel],
+        t_s=t[sel],
+        u_px=uv[sel, 0],
+        v_px=uv[sel, 1],
+        x_m=xy[sel, 0],
+        y_m=xy[sel, 1],
+        sigma_px=sig[sel],
+        sigma_m=sig_m[sel],
+        shot=shot_new,
+        brightness=np.array([d[i].brightness for i in sel]),
+        streak_len_px=np.array([d[i].streak_len_px for i in sel]),
+        flags=tuple(flags[i] for i in sel),
+        cal_dx_m=cal[:, sel, 0],
+        cal_dy_m=cal[:, sel, 1],
+        meta=meta,
+    )
+    return track, tuple(speeds), warns
