@@ -9,12 +9,53 @@ Public API
 ``render_scene(spec, out_dir, *, rng=0, progress=None, parts=ALL_PARTS) -> RenderedScene``,
 ``load_truth(path)``, ``prepare_scene(spec, rng=...)`` (camera, flight and frames without files),
 ``render_board_image(camera, board, R, t, ...)``, ``project_board_corners(camera, board, R, t)``,
-``board_corners(board)``, ``SceneCamera``.
+``board_corners(board)``, ``SceneCamera``, ``small_scene(**changes)`` (a 320×240 scene for fast tests).
 
 truth.json (schema ``hopscope.truth/1``)
 ----------------------------------------
-See :data:`TRUTH_LAYOUT` below (also printed in the module docs). All values SI (m, s, kg, K, Pa, rad/s);
-file names relative to the folder of truth.json.
+All values SI (m, s, kg, K, Pa, rad, rad/s); file names relative to the folder of truth.json; poses map
+X_cam = R · X + t (OpenCV camera frame: x right, y down, z forward). World frame: x downrange (along the
+board's rows toward image right), y up, z toward the camera; origin at the first plane placement's first
+inner corner; flight plane z = 0. Time: seconds since the flight clip's first frame (container timestamps;
+frame k at k/fps); row r of frame k is exposed over [k/fps + r·readout/rows, ... + exposure].
+
+::
+
+    schema            "hopscope.truth/1"
+    scene, description   name; "demo data, invented: ..."
+    spec_digest, seed    cache key (SHA-256 of spec + seed + renderer version); int seed or null
+    parts             rendered parts, subset of ["lens", "plane", "drop", "flight"]
+    spec              the full SceneSpec as nested dicts
+    world_frame       the sentence above
+    camera            image_size [w, h]; camera_matrix 3x3; dist_coeffs [k1, k2, p1, p2, k3] (OpenCV order);
+                      rotation 3x3 and translation [3] (world -> camera); centre_m [3]; fps; readout_s
+                      (0 when the rolling shutter is off); exposure_s; psf_sigma_px
+    board             cols, rows (inner corners), square_m, margin_m, width_m, height_m (printed sheet),
+                      corner_order (text: see CORNER_ORDER)
+    lens_views        [{file, rotation, translation}]  pose of board coordinates (i*s, -j*s, 0) -> camera
+    plane_views       [{file, offset_m, rotation, translation}]  the board at world (offset_m, 0, 0) + board
+                      coordinates; the first placement (offset 0) has the scene camera's own pose
+    drop              null, or {file, fps, n_frames, g_mps2, gravity_direction [0, -1, 0],
+                      release {t_s, position_m}, model (text), path {...}, frames [...]} (same layout as
+                      the flight's path and frames)
+    flight            {file, n_frames, fps,
+                       bb {kind, mass_kg, diameter_m, mark_phase_rad},
+                       air {temperature_k, pressure_pa, relative_humidity, density_kgm3, viscosity_pas},
+                       gravity_mps2, wind_mps [3],
+                       laws {drag: "constant", drag_coefficient, lift: "linear", lift_slope (k),
+                             lift_coefficient {launch, first_in_view}, decay: "exponential",
+                             spin_decay_time_s},
+                       launch {t_s (video clock), position_m, velocity_mps, speed_mps, elevation_deg,
+                               spin_radps, spin_axis},
+                       first_in_view {t_s, position_m, velocity_mps, speed_mps, spin_radps},
+                       path {t_s[], x_m[], y_m[], z_m[], speed_mps[]}  every 0.1 ms over the visible part,
+                       frames [{frame, t_s (container), t_mid_s (mid-exposure at the BB's row), u_px, v_px
+                                (true projected centre at t_mid_s, distorted pixels), x_m, y_m, z_m, visible
+                                (centre inside the image), radius_px (f*r/Z), streak_len_px (centre's
+                                travel during the exposure; the streak's full length adds the diameter),
+                                spin_radps, spin_angle_rad (integrated spin angle since launch)}]}
+
+Rendering model and its limits are described in :mod:`hopscope.scenes.render`.
 """
 
 from __future__ import annotations

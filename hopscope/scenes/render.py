@@ -687,7 +687,9 @@ def _true_frames(ctx: _ClipContext, motion: _Motion, n_frames: int) -> list[dict
             uv = project_camera_points(cam, pc)[0]
             row = float(np.clip(uv[1], 0.0, h - 1.0))
             t_mid = t_k + row * ctx.readout_s / h + 0.5 * exposure
-        pos, _, present = motion.states(np.array([t_mid - 0.5 * exposure, t_mid, t_mid + 0.5 * exposure]))
+        pos, ang, present = motion.states(np.array([t_mid - 0.5 * exposure, t_mid, t_mid + 0.5 * exposure]))
+        t_rel = float(np.clip(t_mid - motion.t0_s, motion.trajectory.t_s[0], motion.trajectory.t_s[-1]))
+        spin = float(motion.trajectory.sample(np.array([t_rel]))[0, 0, 6])
         pc = cam.to_camera(pos)
         uv3 = project_camera_points(cam, pc)
         uv = uv3[1]
@@ -704,6 +706,8 @@ def _true_frames(ctx: _ClipContext, motion: _Motion, n_frames: int) -> list[dict
             "visible": vis,
             "radius_px": float(fx * r_m / pc[1, 2]),
             "streak_len_px": float(np.linalg.norm(uv3[2] - uv3[0])) if present.all() else 0.0,
+            "spin_radps": spin,
+            "spin_angle_rad": float(ang[1]),
         })
     return out
 
@@ -788,13 +792,13 @@ def _rt(rot: np.ndarray, tr: np.ndarray) -> dict[str, Any]:
 
 
 CORNER_ORDER = (
-    "inner corners as returned for pattern size (cols, rows) by OpenCV's findChessboardCornersSB: "
-    "row-major, index j*cols + i is board point (i*square_m, -j*square_m, 0); rows run along board +x "
-    "(image right), columns along board -y (image down); the first corner is the top-left inner corner. "
+    "inner corners in the order OpenCV's findChessboardCornersSB returns them for pattern size (cols, rows): "
+    "row-major, index j*cols + i is board point (i*square_m, -j*square_m, 0), i.e. rows run along board +x "
+    "(image right) and columns along board -y (image down); the first corner is the top-left inner corner. "
     "cols + rows is odd, so the pattern has no 180-degree symmetry: the square diagonally outside the first "
-    "corner (toward -x, +y) is black and the one diagonally outside the last corner of the first row is "
-    "white (when cols is even) or black (cols odd); a detector that returns the corners reversed can be "
-    "put right by that colour"
+    "corner (toward -x, +y) is white, the one diagonally outside the last corner is black. OpenCV's classic "
+    "findChessboardCorners returns the same corners in reverse order for this colouring (checked in "
+    "tests/scenes/test_render.py)"
 )
 
 
@@ -984,7 +988,8 @@ def _flight_truth(scene: PreparedScene) -> dict[str, Any]:
         "file": "flight.mp4",
         "n_frames": plan.n_frames,
         "fps": spec.camera.fps,
-        "bb": {"kind": spec.bb.kind, "mass_kg": bb.mass_kg, "diameter_m": bb.diameter_m},
+        "bb": {"kind": spec.bb.kind, "mass_kg": bb.mass_kg, "diameter_m": bb.diameter_m,
+               "mark_phase_rad": math.radians(spec.bb.mark_phase_deg)},
         "air": {
             "temperature_k": air.temperature_k,
             "pressure_pa": air.pressure_pa,

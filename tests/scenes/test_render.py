@@ -312,3 +312,37 @@ def test_motion_blur_streak_length_is_speed_times_exposure():
         z_cam = blur.camera.to_camera(np.array([[f["x_m"], f["y_m"], f["z_m"]]]))[0, 2]
         expected_px = speed * exposure * blur.camera.camera_matrix[0, 0] / z_cam
         assert f["streak_len_px"] == pytest.approx(expected_px, rel=CENTRAL_SCALE_REL_TOL)
+
+
+#: Spin frequency from the marked BB's brightness periodogram vs the true spin, relative.
+SPIN_FREQ_REL_TOL = 0.02
+
+
+def test_marked_bb_brightness_flickers_at_the_spin_frequency():
+    # Periodogram of unevenly weighted samples: Lomb (1976), Astrophys. Space Sci. 39:447; Scargle (1982),
+    # ApJ 263:835; computed by scipy.signal.lombscargle (angular frequencies).
+    from scipy.signal import lombscargle
+
+    from hopscope.scenes import builtin_scene
+
+    base = builtin_scene("lane-spin")
+    spec = dataclasses.replace(
+        base, image=CLEAN,
+        lighting=dataclasses.replace(base.lighting, texture_contrast=0.0, gradient=0.0, flicker_amplitude=0.0),
+    )
+    scene = prepare_scene(spec, rng=0)
+    frames = _interior_frames(scene.true_flight_frames(), spec.camera.image_size, margin=15)
+    assert len(frames) >= 20
+    t = np.array([f["t_mid_s"] for f in frames])
+    bright = []
+    for f in frames:
+        diff = scene.flight_frame(f["frame"], quantise=False) - scene.flight_frame(f["frame"], quantise=False,
+                                                                                    bb=False)
+        r, c = int(round(f["v_px"])), int(round(f["u_px"]))
+        bright.append(float(diff[r - 14 : r + 15, c - 14 : c + 15].sum()))
+    y = np.array(bright) - np.mean(bright)
+    assert np.std(y) > 0.05 * np.mean(np.abs(bright))  # a visible flicker
+    f_true = frames[0]["spin_radps"] / (2 * np.pi)
+    freqs = np.linspace(0.3 * f_true, 1.7 * f_true, 4000)
+    power = lombscargle(t, y, 2 * np.pi * freqs)
+    assert freqs[np.argmax(power)] == pytest.approx(f_true, rel=SPIN_FREQ_REL_TOL)
