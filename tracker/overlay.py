@@ -1,0 +1,201 @@
+"""Overlays for people who would rather look than read: a contact sheet (PNG/JPEG) or an annotated video.
+
+The contact sheet shows the clip's first frame with every shot's points joined (one colour per shot) and
+the rejected candidates as small grey crosses, above a grid of enlarged crops around shot points with a
+cross-hair at the fitted centre. The annotated video is the clip itself with the same marks, frame by
+frame (a second decoding pass, streamed).
+
+Pixel (u, v) = (col, row), centre of the top-left pixel at (0, 0).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+
+import av
+import cv2
+import numpy as np
+
+from .pipeline import TrackResult
+from .video import iter_frames
+
+IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg")
+VIDEO_SUFFIXES = (".mp4", ".mkv", ".avi", ".mov")
+
+#: Colours (BGR) for shots 0, 1, 2, ... and for rejected candidates.
+SHOT_COLOURS = ((60, 220, 60), (40, 170, 255), (255, 120, 40), (220, 60, 220), (40, 220, 220))
+REJECT_COLOUR = (150, 150, 150)
+
+#: Enlargement of the contact-sheet crops and crops per row.
+CROP_ZOOM = 4
+CROPS_PER_ROW = 12
+
+#: Drawing coordinates carry this many fractional bits (OpenCV's ``shift``), for sub-pixel marks.
+_SHIFT = 4
+
+
+def check_overlay_path(path: str | os.PathLike[str]) -> None:
+    """Raise a one-line ValueError when the overlay's suffix is neither an image nor a video format."""
+    suffix = Path(path).suffix.lower()
+    if suffix not in IMAGE_SUFFIXES + VIDEO_SUFFIXES:
+        raise ValueError(
+            f"--overlay {path}: unknown format {suffix or '(none)'!r}; use one of "
+            f"{', '.join(IMAGE_SUFFIXES + VIDEO_SUFFIXES)}"
+        )
+
+
+def _pt(u: float, v: float) -> tuple[int, int]:
+    return int(round(u * (1 << _SHIFT))), int(round(v * (1 << _SHIFT)))
+
+
+def _marks(
+    img: np.ndarray, result: TrackResult, upto_frame: int | None = None, only_frame: int | None = None
+):
+    """Draw rejected candidates, shot paths (up to a frame) and the current points on a BGR image."""
+    scale = max(1, img.shape[1] // 640)
+    for (d, _sign), shot in zip(result.detections, result.in_shot, strict=True):
+        if not d.ok or shot >= 0 or (only_frame is not None and d.frame != only_frame):
+            continue
+        if not (math.isfinite(d.u_px) and math.isfinite(d.v_px)):
+            continue
+        cv2.drawMarker(
+            img,
+            (int(round(d.u_px)), int(round(d.v_px))),
+            REJECT_COLOUR,
+            cv2.MARKER_TILTED_CROSS,
+            4 * scale + 4,
+            1,
+        )
+    tr = result.track
+    if tr is None:
+        return
+    for s in tr.shot_ids:
+        m = tr.shot == s
+        if upto_frame is not None:
+            m &= tr.frame <= upto_frame
+        if not np.any(m):
+            continue
+        col = SHOT_COLOURS[s % len(SHOT_COLOURS)]
+        pts = np.array([_pt(u, v) for u, v in zip(tr.u_px[m], tr.v_px[m], strict=True)], np.int32)
+        if len(pts) > 1:
+            cv2.polylines(img, [pts.reshape(-1, 1, 2)], False, col, 1, cv2.LINE_AA, _SHIFT)
+        for (pu, pv), f in zip(pts, tr.frame[m], strict=True):
+            if only_frame is None or f == only_frame:
+                cv2.circle(img, (int(pu), int(pv)), (3 * scale + 3) << _SHIFT, col, 1, cv2.LINE_AA, _SHIFT)
+        if upto_frame is None:
+            u0, v0 = float(tr.u_px[m][0]), float(tr.v_px[m][0])
+            cv2.putText(
+                img,
+                f"shot {s}",
+                (int(u0) + 6, int(v0) - 8),
+                cv2.FONT_HERSHEY_SIMPLEX,
+                0.4 * scale,
+                col,
+                1,
+                cv2.LINE_AA,
+            )
+
+
+def contact_sheet(result: TrackResult) -> np.ndarray:
+    """The contact sheet as a BGR uint8 image."""
+    still = (
+        result.still
+        if result.still is not None
+        else np.zeros((result.info.height, result.info.width), np.uint8)
+    )
+    top = cv2.cvtColor(np.ascontiguousarray(still), cv2.COLOR_GRAY2BGR)
+    _marks(top, result)
+    s = result.summary
+    text = (
+        f"{Path(result.info.path).name}: {s.points} points in {len(s.shot_speeds_mps)} shot(s), "
+        f"{s.rejected_candidates} rejected candidates, polarity {s.polarity}"
+    )
+    cv2.putText(top, text, (8, 18), cv2.FONT_HERSHEY_SIMPLEX, 0.5, (0, 255, 255), 1, cv2.LINE_AA)
+    crops = result.crops
+    if not crops:
+        return top
+    tile = crops[0][3].shape[0] * CROP_ZOOM
+    per_row = max(1, min(CROPS_PER_ROW, len(crops)))
+    n_rows = math.ceil(len(crops) / per_row)
+    width = max(top.shape[1], per_row * (tile + 4))
+    if width > top.shape[1]:
+        top = np.hstack([top, np.zeros((top.shape[0], width - top.shape[1], 3), np.uint8)])
+    sheet = np.zeros((n_rows * (tile + 4), width, 3), np.uint8)
+    tr = result.track
+    for k, (frame, c0, r0, img) in enumerate(crops):
+        big = cv2.resize(img, (tile, tile), interpolation=cv2.INTER_NEAREST)
+        big = cv2.cvtColor(big, cv2.COLOR_GRAY2BGR)
+        if tr is not None:
+            hit = np.flatnonzero(tr.frame == frame)
+            if hit.size:
+                j = int(
+                    hit[
+                        np.argmin(
+                            np.hypot(
+                                tr.u_px[hit] - (c0 + img.shape[1] / 2), tr.v_px[hit] - (r0 + img.shape[0] / 2)
+                            )
+                        )
+                    ]
+                )
+                cu = (tr.u_px[j] - c0 + 0.5) * CROP_ZOOM - 0.5
+                cv = (tr.v_px[j] - r0 + 0.5) * CROP_ZOOM - 0.5
+                col = SHOT_COLOURS[int(tr.shot[j]) % len(SHOT_COLOURS)]
+                cv2.drawMarker(big, (int(round(cu)), int(round(cv))), col, cv2.MARKER_CROSS, tile // 3, 1)
+        cv2.putText(big, str(frame), (2, 12), cv2.FONT_HERSHEY_SIMPLEX, 0.35, (0, 255, 255), 1, cv2.LINE_AA)
+        rr, cc = divmod(k, per_row)
+        y0, x0 = rr * (tile + 4), cc * (tile + 4)
+        sheet[y0 : y0 + tile, x0 : x0 + tile] = big
+    return np.vstack([top, sheet])
+
+
+def write_overlay(path: str | os.PathLike[str], result: TrackResult, video: str) -> None:
+    """Write the overlay for ``result``: a contact sheet (.png/.jpg) or an annotated copy of ``video``.
+
+    Parameters
+    ----------
+    path : output file; its suffix chooses the kind (the app passes a temporary name with the same suffix).
+    result : the tracking result.
+    video : the clip that was tracked (read again for an annotated video).
+
+    Raises
+    ------
+    ValueError
+        Unknown suffix.
+    OSError
+        The file could not be written.
+    """
+    check_overlay_path(path)
+    p = Path(path)
+    if p.suffix.lower() in IMAGE_SUFFIXES:
+        if not cv2.imwrite(str(p), contact_sheet(result)):
+            raise OSError(f"{p}: could not write the overlay image")
+        return
+    _annotated_video(p, result, video)
+
+
+def _annotated_video(path: Path, result: TrackResult, video: str) -> None:
+    rate = result.summary.frame_rate_hz
+    try:
+        out = av.open(str(path), mode="w")
+    except av.error.FFmpegError as exc:
+        raise OSError(f"{path}: could not write the overlay video ({exc})") from None
+    try:
+        stream = out.add_stream(
+            "libx264" if path.suffix.lower() != ".avi" else "mpeg4", rate=max(1, round(rate))
+        )
+        stream.width = result.info.width - result.info.width % 2
+        stream.height = result.info.height - result.info.height % 2
+        stream.pix_fmt = "yuv420p"
+        for fr in iter_frames(video):
+            img = cv2.cvtColor(np.ascontiguousarray(fr.luma), cv2.COLOR_GRAY2BGR)
+            _marks(img, result, upto_frame=fr.index, only_frame=fr.index)
+            img = np.ascontiguousarray(img[: stream.height, : stream.width])
+            vf = av.VideoFrame.from_ndarray(img, format="bgr24")
+            for pkt in stream.encode(vf):
+                out.mux(pkt)
+        for pkt in stream.encode():
+            out.mux(pkt)
+    finally:
+        out.close()
