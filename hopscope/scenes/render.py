@@ -138,16 +138,21 @@ def board_reflectance(board: BoardSpec, bx: np.ndarray, by: np.ndarray, wx: np.n
     """
     s = board.square_m
     m = board.margin_m
-    inside = (bx >= -s - m) & (bx <= board.cols * s + m) & (by >= -board.rows * s - m) & (by <= s + m)
-    checker = (bx >= -s) & (bx <= board.cols * s) & (by >= -board.rows * s) & (by <= s)
-    fx = _box_filtered_square_wave(bx, wx, s)
-    fy = _box_filtered_square_wave(-by, wy, s)
-    black_weight = 0.5 * (1.0 - fx * fy)
-    refl = np.where(
-        checker,
-        board.white_reflectance + (board.black_reflectance - board.white_reflectance) * black_weight,
-        board.white_reflectance,
-    )
+    x0, x1 = -s, board.cols * s  # the checkered area
+    y0, y1 = -board.rows * s, s
+    inside = (bx >= x0 - m) & (bx <= x1 + m) & (by >= y0 - m) & (by <= y1 + m)
+    wx = np.maximum(wx, 1e-9 * s)
+    wy = np.maximum(wy, 1e-9 * s)
+    # fraction of the footprint inside the checkered area (exact for a box footprint)
+    ix = (np.clip(bx + 0.5 * wx, x0, x1) - np.clip(bx - 0.5 * wx, x0, x1)) / wx
+    iy = (np.clip(by + 0.5 * wy, y0, y1) - np.clip(by - 0.5 * wy, y0, y1)) / wy
+    # the squares' pattern, evaluated with the footprint kept inside the area (no phantom squares beyond it)
+    xc = np.clip(bx, x0 + 0.5 * wx, x1 - 0.5 * wx)
+    yc = np.clip(by, y0 + 0.5 * wy, y1 - 0.5 * wy)
+    fx = _box_filtered_square_wave(xc, wx, s)
+    fy = _box_filtered_square_wave(-yc, wy, s)
+    black_weight = 0.5 * (1.0 - fx * fy) * ix * iy
+    refl = board.white_reflectance + (board.black_reflectance - board.white_reflectance) * black_weight
     return inside, refl
 
 
@@ -283,17 +288,17 @@ def _finish(img: np.ndarray, psf_sigma_px: float, image: ImageModelSpec | None, 
 
     Noise: σ² = DN / gain + read² (DN²), Gaussian approximation of Poisson shot noise plus read noise.
     """
-    out = np.ascontiguousarray(img, dtype=np.float32)
+    out: np.ndarray = np.ascontiguousarray(img, dtype=np.float32)
     if psf_sigma_px > 0:
         out = cv2.GaussianBlur(out, (0, 0), psf_sigma_px, borderType=cv2.BORDER_REFLECT)
     if image is not None and image.noise:
         if rng is None:
             raise ValueError("noise needs an rng")
-        var = cv2.max(out, 0.0)
+        var = np.maximum(out, np.float32(0.0))
         var = cv2.addWeighted(var, 1.0 / image.gain_e_per_dn, var, 0.0, image.read_noise_dn**2)
         sigma = cv2.sqrt(var)
         out = cv2.add(out, cv2.multiply(sigma, rng.standard_normal(out.shape, dtype=np.float32)))
-    out = cv2.max(out, 0.0)
+    out = np.maximum(out, np.float32(0.0))
     return cv2.convertScaleAbs(out)  # rounds to nearest and saturates at 255 (values are >= 0 here)
 
 
@@ -727,7 +732,7 @@ def _path_samples(motion: _Motion, t_from: float, t_to: float) -> dict[str, list
 
 def _write_clip(path: Path, frames, size: tuple[int, int], fps: float) -> None:
     with atomic_path(path) as tmp:
-        writer = cv2.VideoWriter(str(tmp), cv2.VideoWriter_fourcc(*"mp4v"), float(fps), size)
+        writer = cv2.VideoWriter(str(tmp), cv2.VideoWriter.fourcc(*"mp4v"), float(fps), size)
         if not writer.isOpened():
             raise OSError(f"{path}: OpenCV cannot open an mp4v video writer")
         try:

@@ -139,11 +139,11 @@ class BoardSpec:
         _finite("board margin_m", self.margin_m)
         if self.margin_m < 0:
             raise ValueError(f"board margin_m must be >= 0, got {self.margin_m!r}")
-        for name, v in (("board black_reflectance", self.black_reflectance),
-                        ("board white_reflectance", self.white_reflectance)):
-            _finite(name, v)
-            if not 0 <= v <= 1:
-                raise ValueError(f"{name} must lie in 0..1, got {v!r}")
+        for name, refl in (("board black_reflectance", self.black_reflectance),
+                           ("board white_reflectance", self.white_reflectance)):
+            _finite(name, refl)
+            if not 0 <= refl <= 1:
+                raise ValueError(f"{name} must lie in 0..1, got {refl!r}")
         if self.black_reflectance >= self.white_reflectance:
             raise ValueError("board black_reflectance must be below white_reflectance")
 
