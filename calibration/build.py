@@ -27,7 +27,7 @@ import cv2
 import numpy as np
 
 from .grid import GridSpec
-from .lens import LensCalibration, ViewPoints, recalibrate
+from .lens import LensCalibration, ViewPoints, distortion_model, recalibrate
 from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose
 from .rig import CameraState, Rig
 
@@ -170,6 +170,7 @@ def make_rig(
             "views_rejected": [{"view": s, "reason": r} for s, r in lens.views_rejected],
             "intrinsics_std": dict(lens.intrinsics_std),
             "frame_coverage": lens.frame_coverage,
+            "distortion_model": distortion_model(lens.flags),
         },
         "plane": {
             "placements": [

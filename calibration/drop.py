@@ -51,6 +51,10 @@ LOCAL_GRAVITY_ALLOWANCE_MPS2 = 0.026
 #: is inconsistent. # common practice, no published source
 DROP_SIGMA_LIMIT = 3.0
 
+#: A drop whose g is known worse than this (relative standard error) gets a warning: it cannot catch a
+#: frame-rate or scale error of a few per cent.
+WEAK_DROP_RELATIVE_STDERR = 0.01
+
 #: The tilt is applied (the world frame levelled) when it is this many standard errors from zero.
 TILT_SIGNIFICANCE = 3.0
 
@@ -305,6 +309,8 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
         if n > 2 and np.sort(areas)[-2] > 0.5 * areas[best - 1]:
             continue  # two similar blobs: ambiguous
         x, y, w, h = stats[best, :4]
+        if x <= 0 or y <= 0 or x + w >= diff.shape[1] or y + h >= diff.shape[0]:
+            continue  # cut by the frame's edge: its centroid would be biased
         pad = 2
         r0, r1 = max(y - pad, 0), min(y + h + pad, diff.shape[0])
         c0, c1 = max(x - pad, 0), min(x + w + pad, diff.shape[1])
@@ -404,6 +410,11 @@ def check_drop(
         }
     )
     warns = []
+    if fit.g_stderr_mps2 > WEAK_DROP_RELATIVE_STDERR * g_expected_mps2:
+        warns.append(
+            f"drop check on {clip.source} is weak: g is known only to ±{100 * fit.g_stderr_mps2 / g_expected_mps2:.1f} % "
+            f"from {fit.n_points} points over {1e3 * fit.duration_s:.0f} ms; film a longer fall (≥ 0.2 s in view)"
+        )
     if verdict == "inconsistent":
         rate_hint = ""
         if math.isfinite(clip.fps):

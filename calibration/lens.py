@@ -38,6 +38,13 @@ POOR_COVERAGE_FRACTION = 0.6
 #: Levenberg–Marquardt stopping rule for cv2.calibrateCamera.
 CALIB_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100, 1e-12)
 
+#: k3 (the sixth-order radial term) is kept only when it is this many standard errors from zero; otherwise
+#: the lens is refitted with k3 = 0 (CALIB_FIX_K3). Without views near the frame's corners k3 is poorly
+#: determined and, left free, bends the distortion where no corner constrains it. The ensemble repeats the
+#: same choice on each resample, so its spread includes the model choice. # common practice, no published
+#: source (parsimony rule; Bevington & Robinson 2003, sec. 11.4, for testing an added term)
+K3_SIGNIFICANCE = 2.0
+
 #: Names of cv2.calibrateCameraExtended's stdDeviationsIntrinsics, in its order.
 INTRINSIC_NAMES = ("fx", "fy", "cx", "cy", "k1", "k2", "p1", "p2", "k3", "k4", "k5", "k6",
                    "s1", "s2", "s3", "s4", "tau_x", "tau_y")  # fmt: skip
@@ -77,7 +84,7 @@ class LensCalibration:
     ----------
     image_size : (w, h), px.
     camera_matrix : (3, 3) K, px.
-    dist_coeffs : (5,) k1, k2, p1, p2, k3.
+    dist_coeffs : (5,) k1, k2, p1, p2, k3 (k3 = 0 when it was not significant).
     rms_px : RMS reprojection error over all corners of the views used, px (2-D distance).
     views_used : names of the views used.
     per_view_rms_px : RMS reprojection error of each used view, px.
@@ -86,6 +93,7 @@ class LensCalibration:
         from cv2.calibrateCameraExtended.
     frame_coverage : share of the frame's cells (:data:`COVERAGE_CELLS`) holding a corner, 0..1.
     warnings : warnings for the user.
+    flags : the cv2.CALIB_* flags of the final fit (CALIB_FIX_K3 when k3 was dropped).
     """
 
     image_size: tuple[int, int]
@@ -128,6 +136,21 @@ def _calibrate(views: Sequence[ViewPoints], image_size, k0=None, d0=None, flags:
     )  # fmt: skip
 
 
+def _calibrate_selecting_k3(views, image_size, k0, d0, flags: int):
+    """Calibrate with k3 free; refit with k3 = 0 when it is not significant (:data:`K3_SIGNIFICANCE`).
+    Returns (rms, K, dist, std of intrinsics, per-view RMS, flags used)."""
+    base = flags & ~cv2.CALIB_FIX_K3
+    rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k0, d0, flags=base)
+    k3, s3 = float(np.ravel(d)[4]), float(np.ravel(std_int)[8])
+    if not (abs(k3) > K3_SIGNIFICANCE * s3):
+        d_fixed = np.ravel(d).copy()
+        d_fixed[4] = 0.0
+        fixed = base | cv2.CALIB_FIX_K3
+        rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k, d_fixed, flags=fixed)
+        return rms, k, d, std_int, np.ravel(per_view), fixed
+    return rms, k, d, std_int, np.ravel(per_view), base
+
+
 def calibrate_lens(
     views: Sequence[ViewPoints],
     image_size: tuple[int, int],
@@ -144,7 +167,7 @@ def calibrate_lens(
     image_size : (w, h), px.
     rejected : (name, reason) of views already left out (grid not found), carried into the result.
     min_views : fewest usable views; fewer raises ValueError.
-    flags : extra cv2.CALIB_* flags.
+    flags : extra cv2.CALIB_* flags (CALIB_FIX_K3 is decided by :data:`K3_SIGNIFICANCE`).
 
     Returns
     -------
@@ -161,15 +184,13 @@ def calibrate_lens(
         raise ValueError(
             f"--views: only {len(views)} usable lens view(s) with the grid found, need at least {min_views}"
         )
-    rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, flags=flags)
-    per_view = np.ravel(per_view)
+    rms, k, d, std_int, per_view, flags = _calibrate_selecting_k3(views, image_size, None, None, flags)
     med = float(np.median(per_view))
     bad = [i for i, e in enumerate(per_view) if e > max(OUTLIER_FACTOR * med, OUTLIER_FLOOR_PX)]
     if bad and len(views) - len(bad) >= min_views:
         rejected += [(views[i].source, f"reprojection error {per_view[i]:.2f} px is an outlier") for i in bad]
         views = [v for i, v in enumerate(views) if i not in set(bad)]
-        rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k, d, flags=flags)
-        per_view = np.ravel(per_view)
+        rms, k, d, std_int, per_view, flags = _calibrate_selecting_k3(views, image_size, k, d, flags)
     std = {n: float(s) for n, s in zip(INTRINSIC_NAMES, np.ravel(std_int), strict=False)}
     cover = frame_coverage([v.image_points for v in views], image_size)
     warns = []
@@ -194,8 +215,14 @@ def calibrate_lens(
 
 
 def recalibrate(views: Sequence[ViewPoints], start: LensCalibration) -> tuple[np.ndarray, np.ndarray]:
-    """Re-run the calibration on ``views`` (e.g. a resample) starting from ``start``; returns (K, dist)."""
-    _, k, d, *_ = _calibrate(
-        views, start.image_size, start.camera_matrix, start.dist_coeffs, flags=start.flags
+    """Re-run the calibration on ``views`` (e.g. a resample) starting from ``start``, with the same k3
+    rule as :func:`calibrate_lens`; returns (K, dist)."""
+    _, k, d, *_ = _calibrate_selecting_k3(
+        views, start.image_size, start.camera_matrix, start.dist_coeffs, start.flags
     )
     return np.array(k, float), np.ravel(d).astype(float)
+
+
+def distortion_model(flags: int) -> str:
+    """Names of the fitted distortion terms for ``flags``."""
+    return "k1, k2, p1, p2" + ("" if flags & cv2.CALIB_FIX_K3 else ", k3")

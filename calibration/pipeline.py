@@ -1,0 +1,116 @@
+"""The calibration stage end to end: files in, a :class:`~calibration.rig.Rig` out (the app writes it).
+
+Lens views → corners → Zhang calibration; plane images → corners in reading order → joint PnP of all
+placements; bootstrap ensemble; optional drop clip → g check and levelling.
+
+Conventions
+-----------
+World frame: x downrange, y up, z toward the camera, metres; origin at the first plane placement's first
+inner corner (top left in the image). Pixels (u, v) in OpenCV order.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
+from .drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop
+from .grid import DEFAULT_DETECTOR, GridSpec
+from .images import Progress, detect_plane_views, detect_views, expand_views, no_progress, parse_plane_arg
+from .lens import LensCalibration, ViewPoints, calibrate_lens
+from .plane import Placement
+from .rig import Rig
+
+
+@dataclass(frozen=True, eq=False)
+class CalibrationRun:
+    """What :func:`calibrate_files` made: the rig, the lens calibration and the summary figures."""
+
+    rig: Rig
+    lens: LensCalibration
+    figures: RigFigures
+    n_views_given: int
+
+
+def calibrate_files(
+    views: Sequence[str],
+    planes: Sequence[str],
+    spec: GridSpec,
+    *,
+    drop: str | None = None,
+    drop_fps: float | None = None,
+    g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
+    plane_z_m: float = 0.0,
+    plane_z_sigma_m: float = 0.0,
+    ensemble_size: int = DEFAULT_ENSEMBLE_SIZE,
+    offset_sigma_m: float = DEFAULT_OFFSET_SIGMA_M,
+    detector: str = DEFAULT_DETECTOR,
+    rng: int | np.random.Generator | None = 0,
+    progress: Progress = no_progress,
+    provenance: Mapping[str, Any] | None = None,
+) -> CalibrationRun:
+    """Calibrate from files.
+
+    Parameters
+    ----------
+    views : ``--views`` arguments (image files, folders, globs, videos).
+    planes : ``--plane`` arguments ``IMAGE[:OFFSET_M]`` (offset downrange from the first, m).
+    spec : the grid (inner corners, square size in m).
+    drop : a drop clip for the g / level check, or None.
+    drop_fps : frame rate of the drop clip, 1/s, overriding its timestamps.
+    g_expected_mps2 : expected local gravity, m/s².
+    plane_z_m, plane_z_sigma_m : distance the boards stood behind the flight plane and its standard
+        error, m (parallax option).
+    ensemble_size : members of the uncertainty ensemble.
+    offset_sigma_m : standard error of each taped offset, m.
+    detector : corner detector (see :data:`calibration.grid.DETECTORS`).
+    rng : seed or generator of the ensemble.
+    progress : wraps an iterable to show progress (the app passes its progress bar).
+
+    Raises
+    ------
+    ValueError / OSError with a one-line message naming the file or option (no grid in any view, too
+    few usable views, unreadable image, plane view without the board, mismatched sizes, bad offset).
+    """
+    sources = expand_views(views)
+    detections, size = detect_views(sources, spec, detector=detector, progress=progress)
+    found = [d for d in detections if d.found]
+    if not found:
+        raise ValueError(
+            f"--views: no {spec.cols}x{spec.rows} grid found in any of the {len(detections)} view(s) "
+            f"(--grid counts inner corners, COLSxROWS)"
+        )
+    rejected = [(d.source, d.reason) for d in detections if not d.found]
+    lens_views = [ViewPoints(d.source, d.corners, spec.board_points()) for d in found]  # type: ignore[arg-type]
+    lens = calibrate_lens(lens_views, size, rejected=rejected)
+    plane_items = [parse_plane_arg(p) for p in planes]
+    placements = [
+        Placement(name, corners, off)
+        for name, corners, off in detect_plane_views(plane_items, spec, size, detector=detector)
+    ]
+    prov: dict[str, Any] = {
+        "inputs": {"views": list(views), "plane": list(planes), "drop": drop},
+        "detector": detector,
+    }
+    if provenance:
+        prov.update(provenance)
+    rig = make_rig(
+        lens_views,
+        lens,
+        placements,
+        spec,
+        plane_z_m=plane_z_m,
+        plane_z_sigma_m=plane_z_sigma_m,
+        ensemble_size=ensemble_size,
+        offset_sigma_m=offset_sigma_m,
+        rng=rng,
+        provenance=prov,
+    )
+    if drop is not None:
+        check, warns = check_drop(rig, drop, fps=drop_fps, g_expected_mps2=g_expected_mps2)
+        rig = apply_level(rig, check, warns)
+    return CalibrationRun(rig, lens, rig_figures(rig), len(detections))
