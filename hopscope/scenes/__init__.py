@@ -7,7 +7,8 @@ Public API
 ----------
 ``SceneSpec`` (and its parts in :mod:`hopscope.scenes.spec`), ``builtin_scene(name)``, ``BUILTIN_SCENES``,
 ``render_scene(spec, out_dir, *, rng=0, progress=None, parts=ALL_PARTS) -> RenderedScene``,
-``load_truth(path)``, ``prepare_scene(spec, rng=...)`` (camera, flight and frames without files),
+``load_truth(path)``, ``load_scene(path)`` (TOML, tables named like the spec's parts) and
+``spec_from_dict(data)``, ``prepare_scene(spec, rng=...)`` (camera, flight and frames without files),
 ``render_board_image(camera, board, R, t, ...)``, ``project_board_corners(camera, board, R, t)``,
 ``board_corners(board)``, ``SceneCamera``, ``small_scene(**changes)`` (a 320×240 scene for fast tests).
 
@@ -87,6 +88,8 @@ from .spec import (
     LightingSpec,
     PlaneViewsSpec,
     SceneSpec,
+    load_scene,
+    spec_from_dict,
 )
 
 __all__ = [
@@ -110,10 +113,12 @@ __all__ = [
     "SceneSpec",
     "board_corners",
     "builtin_scene",
+    "load_scene",
     "load_truth",
     "prepare_scene",
     "project_board_corners",
     "render_board_image",
     "render_scene",
     "small_scene",
+    "spec_from_dict",
 ]

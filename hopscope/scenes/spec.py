@@ -459,3 +459,81 @@ def _jsonable(obj: Any) -> Any:
     if isinstance(obj, list | tuple):
         return [_jsonable(v) for v in obj]
     return obj
+
+
+# ============================================================================================ from files
+
+_PART_TYPES: dict[str, type] = {
+    "camera": CameraSpec,
+    "board": BoardSpec,
+    "lens": LensViewsSpec,
+    "plane": PlaneViewsSpec,
+    "lighting": LightingSpec,
+    "bb": BBSpec,
+    "flight": FlightSpec,
+    "drop": DropSpec,
+    "clutter": ClutterSpec,
+    "image": ImageModelSpec,
+}
+
+
+def _build(cls: type, data: Any, where: str) -> Any:
+    if not isinstance(data, dict):
+        raise ValueError(f"{where}: expected a table of fields, got {type(data).__name__}")
+    fields = {f.name: f for f in dataclasses.fields(cls)}
+    unknown = sorted(set(data) - set(fields))
+    if unknown:
+        raise ValueError(f"{where}: unknown field(s) {', '.join(unknown)}; known: {', '.join(fields)}")
+    kwargs = {}
+    for key, value in data.items():
+        if isinstance(value, list):
+            value = tuple(value)
+        kwargs[key] = value
+    try:
+        return cls(**kwargs)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"{where}: {exc}") from exc
+
+
+def spec_from_dict(data: dict[str, Any], *, source: str = "scene") -> SceneSpec:
+    """A :class:`SceneSpec` from nested dicts (as in ``SceneSpec.to_dict()`` or a TOML file).
+
+    Missing parts and fields take their defaults; ``drop`` may be absent or empty (no drop clip). Unknown
+    keys are rejected with a message that names ``source`` and the part.
+    """
+    if not isinstance(data, dict):
+        raise ValueError(f"{source}: expected a table, got {type(data).__name__}")
+    top = {f.name for f in dataclasses.fields(SceneSpec)}
+    unknown = sorted(set(data) - top)
+    if unknown:
+        raise ValueError(f"{source}: unknown field(s) {', '.join(unknown)}; known: {', '.join(sorted(top))}")
+    kwargs: dict[str, Any] = {}
+    for key, value in data.items():
+        if key in _PART_TYPES:
+            if key == "drop" and (value is None or value == {}):
+                kwargs[key] = None
+                continue
+            kwargs[key] = _build(_PART_TYPES[key], value, f"{source} [{key}]")
+        else:
+            kwargs[key] = value
+    try:
+        return SceneSpec(**kwargs)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"{source}: {exc}") from exc
+
+
+def load_scene(path) -> SceneSpec:
+    """Read a scene description from a TOML file (tables named like the spec's parts)."""
+    import tomllib
+    from pathlib import Path
+
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except OSError as exc:
+        raise OSError(f"{p}: cannot read scene file ({exc.strerror or exc})") from exc
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ValueError(f"{p}: not a valid TOML scene file ({exc})") from exc
+    return spec_from_dict(data, source=str(p))

@@ -153,3 +153,26 @@ def test_distractor_moves_and_flicker_modulates_the_background():
 
     t_mid = spec.camera.exposure_s / 2
     assert ratio == pytest.approx(gain(5 / spec.camera.fps + t_mid) / gain(t_mid), rel=1e-3)
+
+
+def test_scene_round_trips_through_a_dict_and_toml(tmp_path):
+    from hopscope.scenes import load_scene, spec_from_dict
+
+    for name in BUILTIN_SCENES:
+        spec = builtin_scene(name)
+        assert spec_from_dict(spec.to_dict()) == spec
+    toml = tmp_path / "my.toml"
+    toml.write_text('name = "my-lane"\n[camera]\nfps = 1000.0\nexposure_s = 1e-4\n[board]\ncols = 9\nrows = 6\n'
+                    '[bb]\nkind = "tracer"\n', encoding="utf-8")
+    spec = load_scene(toml)
+    assert spec.name == "my-lane" and spec.camera.fps == 1000.0 and spec.board.cols == 9
+    assert spec.bb.kind == "tracer" and spec.drop is None
+
+
+def test_toml_scene_with_unknown_field_names_file_and_part(tmp_path):
+    from hopscope.scenes import load_scene
+
+    toml = tmp_path / "bad.toml"
+    toml.write_text("[camera]\nframe_rate = 100\n", encoding="utf-8")
+    with pytest.raises(ValueError, match=r"bad\.toml \[camera\]: unknown field\(s\) frame_rate"):
+        load_scene(toml)
