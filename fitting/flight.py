@@ -34,10 +34,12 @@ from .bb import BB
 from .constants import STANDARD_GRAVITY_MPS2
 from .laws import ConstantDrag, DecayLaw, DragLaw, ExponentialDecay, LiftLaw, LinearLift
 
-#: Default integration step, s. Measured against scipy's DOP853 (rtol = atol = 1e-12) on random shots
-#: (30-150 m/s, spin, wind, tilted axis, every law): position errors ≲ 1e-7 m over 100 m of flight, far
-#: inside the 1 mm requirement (tests/fitting/test_flight.py); speed: tests/bench/bench_integrator.py.
-DEFAULT_STEP_S = 2e-3
+#: Default integration step, s (the fitter's longest step, ``fitting.observe.MAX_FIT_STEP_S``, is the same).
+#: Measured against scipy's DOP853 (rtol = atol = 1e-12) on random shots (30-150 m/s, spin, wind, tilted
+#: axis, every law) over 100 m of flight: position errors ≤ 1.3e-7 m, and ≤ 1.2e-5 m with the sphere drag
+#: law (its piecewise correlation jumps slightly at piece boundaries), far inside the 1 mm requirement
+#: (tests/fitting/test_flight.py). Speed: tests/bench/bench_integrator.py.
+DEFAULT_STEP_S = 4e-3
 
 STATE_SIZE = 7  # x, y, z, vx, vy, vz, omega
 
@@ -128,17 +130,19 @@ class LaunchState:
 
 
 class _Kernel:
-    """The right-hand side of the equations of motion on a structure-of-arrays state (7, n).
+    """The right-hand side of the equations of motion on a structure-of-arrays state.
 
-    Everything that does not change during a flight (air, BB, wind, spin axis) is folded into constants
-    once, and the rates are written into preallocated buffers, so that one evaluation costs a few dozen
-    numpy passes over n numbers. :func:`derivatives` is the same computation on the public (n, 7) layout.
+    The forces depend on velocity and spin only (uniform air, wind and gravity), so the kernel maps the
+    dynamic part ``d`` = (vx, vy, vz, ω) of shape (4, n) to (ax, ay, az, dω/dt) (4, n); positions follow
+    from velocities in :func:`fly`. Everything that does not change during a flight (air, BB, wind, spin
+    axis) is folded into constants once, and results go into preallocated buffers, so one evaluation
+    costs a few dozen numpy passes over n numbers. :func:`derivatives` is the same computation on the
+    public (n, 7) layout.
     """
 
     def __init__(self, model: FlightModel, spin_axis: np.ndarray) -> None:
         bb, air = model.bb, model.air
         self.model = model
-        self.rho = float(air.density_kgm3)
         self.re_per_speed = air.density_kgm3 * bb.diameter_m / air.viscosity_pas  # s/m
         self.radius = bb.radius_m
         self.q = 0.5 * air.density_kgm3 * bb.area_m2 / bb.mass_kg  # 1/m
@@ -150,45 +154,64 @@ class _Kernel:
         }
         self.gravity = float(model.gravity_mps2)
         self.wind = tuple(float(w) for w in model.wind_mps)
+        # Fast paths for the default laws (same formulas as the law objects, fewer numpy passes):
+        # constant C_D without spin drag, and exponential decay dω/dt = ω·(−1/τ).
+        drag = model.drag
+        self.constant_cd: np.ndarray | None = None
+        if isinstance(drag, ConstantDrag) and np.ndim(drag.spin_drag) == 0 and drag.spin_drag == 0:
+            self.constant_cd = np.asarray(drag.cd, dtype=float)
+        self.neg_inv_tau: np.ndarray | None = None
+        if isinstance(model.decay, ExponentialDecay):
+            tau = np.asarray(model.decay.tau_s, dtype=float)
+            self.neg_inv_tau = np.where(np.isinf(tau), 0.0, -1.0 / np.where(np.isinf(tau), 1.0, tau))
         axis = np.asarray(spin_axis, dtype=float)
-        # One axis for every shot (the usual case) becomes three scalars; otherwise three rows (n,).
+        self.wind_col = np.array(self.wind, dtype=float)[:, None] if any(self.wind) else None
+        # One axis for every shot (the usual case): n × u is the matrix product [n]ₓ u.
         if axis.shape[0] > 0 and np.all(axis == axis[0]):
-            self.axis = tuple(float(a) for a in axis[0])
+            nx, ny, nz = (float(a) for a in axis[0])
+            self.skew: np.ndarray | None = np.array([[0.0, -nz, ny], [nz, 0.0, -nx], [-ny, nx, 0.0]])
+            self.axis_rows = None
         else:
-            self.axis = tuple(np.ascontiguousarray(axis[:, i]) for i in range(3))
+            self.skew = None
+            self.axis_rows = np.ascontiguousarray(axis.T)  # (3, n)
 
-    def rates(self, y: np.ndarray, out: np.ndarray) -> np.ndarray:
-        """Write d/dt of the state ``y`` (7, n) into ``out`` (7, n) and return ``out``."""
-        wx, wy, wz = self.wind
-        ux = y[3] - wx if wx else y[3]
-        uy = y[4] - wy if wy else y[4]
-        uz = y[5] - wz if wz else y[5]
-        omega = y[6]
-        u = ux * ux
-        u += uy * uy
-        u += uz * uz
+    def rates(self, d: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """Write (ax, ay, az, dω/dt) for the dynamic state ``d`` = (vx, vy, vz, ω), both (4, n), into
+        ``out`` and return it (m/s², rad/s²)."""
+        u_vec = d[0:3] if self.wind_col is None else d[0:3] - self.wind_col  # air-relative velocity (3, n)
+        omega = d[3]
+        u = np.einsum("ij,ij->j", u_vec, u_vec)
         np.sqrt(u, out=u)
         u_safe = np.maximum(u, 1e-9)
         s = omega * self.radius
         s /= u_safe
-        cd = self.model.drag.coefficient(u_safe * self.re_per_speed, s)
+        if self.constant_cd is None:
+            cd = self.model.drag.coefficient(u_safe * self.re_per_speed, s)
+        else:
+            cd = self.constant_cd
         cl = self.model.lift.coefficient(s)
         qu = u
         qu *= self.q  # q·u, 1/s
-        a_drag = qu * cd  # 1/s
-        a_lift = qu * cl  # 1/s
-        nx, ny, nz = self.axis
-        out[0:3] = y[3:6]
-        # acceleration = q u (−C_D u_vec + C_L n × u_vec) − g ŷ
-        ax, ay, az = out[3], out[4], out[5]
-        np.multiply(ny * uz - nz * uy, a_lift, out=ax)
-        ax -= a_drag * ux
-        np.multiply(nz * ux - nx * uz, a_lift, out=ay)
-        ay -= a_drag * uy
-        ay -= self.gravity
-        np.multiply(nx * uy - ny * ux, a_lift, out=az)
-        az -= a_drag * uz
-        out[6] = self.model.decay.rate(omega, u_safe, **self.decay_kwargs)
+        # acceleration = q u (C_L n × u_vec − C_D u_vec) − g ŷ
+        acc = out[0:3]
+        if self.skew is not None:
+            np.matmul(self.skew, u_vec, out=acc)
+        else:
+            n = self.axis_rows
+            assert n is not None
+            np.multiply(n[1], u_vec[2], out=acc[0])
+            acc[0] -= n[2] * u_vec[1]
+            np.multiply(n[2], u_vec[0], out=acc[1])
+            acc[1] -= n[0] * u_vec[2]
+            np.multiply(n[0], u_vec[1], out=acc[2])
+            acc[2] -= n[1] * u_vec[0]
+        acc *= qu * cl
+        acc -= u_vec * (qu * cd)
+        out[1] -= self.gravity
+        if self.neg_inv_tau is None:
+            out[3] = self.model.decay.rate(omega, u_safe, **self.decay_kwargs)
+        else:
+            np.multiply(omega, self.neg_inv_tau, out=out[3])
         return out
 
 
@@ -216,7 +239,9 @@ def derivatives(model: FlightModel, state: np.ndarray, spin_axis: np.ndarray) ->
     axis = np.broadcast_to(np.asarray(spin_axis, dtype=float), (state.shape[0], 3))
     y = np.ascontiguousarray(state.T)
     out = np.empty_like(y)
-    return _Kernel(model, axis).rates(y, out).T.copy()
+    out[0:3] = y[3:6]
+    _Kernel(model, axis).rates(y[3:7], out[3:7])
+    return out.T.copy()
 
 
 @dataclass(frozen=True)
@@ -366,7 +391,7 @@ def fly(
     model : the flight model (BB, air, laws).
     launch : launch states of n shots.
     duration_s : length of flight to integrate, s (> 0).
-    step_s : RK4 step, s. Default :data:`DEFAULT_STEP_S` (2 ms), or less so that a short span gets at least
+    step_s : RK4 step, s. Default :data:`DEFAULT_STEP_S` (4 ms), or less so that a short span gets at least
         24 steps. The step is shrunk so that a whole number of steps spans ``duration_s`` exactly.
 
     Returns
@@ -396,30 +421,43 @@ def fly(
     y[0:3] = launch.position_m.T
     y[3:6] = launch.velocity_mps.T
     y[6] = launch.spin_radps
-    kernel.rates(y, rates[0])
-    k2 = np.empty((STATE_SIZE, n))
-    k3 = np.empty((STATE_SIZE, n))
-    k4 = np.empty((STATE_SIZE, n))
-    tmp = np.empty((STATE_SIZE, n))
-    half, sixth = 0.5 * h, h / 6.0
+    rates[0, 0:3] = y[3:6]
+    kernel.rates(y[3:7], rates[0, 3:7])
+    k2 = np.empty((4, n))
+    k3 = np.empty((4, n))
+    k4 = np.empty((4, n))
+    tmp = np.empty((4, n))
+    half, sixth, h2_6 = 0.5 * h, h / 6.0, h * h / 6.0
     for i in range(n_steps):
-        y, k1 = states[i], rates[i]
+        # RK4 on the dynamic part d = (v, ω); the forces do not depend on position, so the RK4 position
+        # update x + h/6 (v1 + 2 v2 + 2 v3 + v4) reduces exactly to x + h v + h²/6 (a1 + a2 + a3).
+        d, k1 = states[i, 3:7], rates[i, 3:7]
         np.multiply(k1, half, out=tmp)
-        tmp += y
+        tmp += d
         kernel.rates(tmp, k2)
         np.multiply(k2, half, out=tmp)
-        tmp += y
+        tmp += d
         kernel.rates(tmp, k3)
         np.multiply(k3, h, out=tmp)
-        tmp += y
+        tmp += d
         kernel.rates(tmp, k4)
-        # y_next = y + h/6 (k1 + 2 k2 + 2 k3 + k4)
+        nxt = states[i + 1]
+        pos = nxt[0:3]
+        np.add(k1[0:3], k2[0:3], out=pos)
+        pos += k3[0:3]
+        pos *= h2_6
+        pos += states[i, 0:3]
+        tmp[0:3] = d[0:3]
+        tmp[0:3] *= h
+        pos += tmp[0:3]
+        # d_next = d + h/6 (k1 + 2 k2 + 2 k3 + k4)
         k2 += k3
         k2 *= 2.0
         k2 += k1
         k2 += k4
-        y_next = states[i + 1]
-        np.multiply(k2, sixth, out=y_next)
-        y_next += y
-        kernel.rates(y_next, rates[i + 1])
+        d_next = nxt[3:7]
+        np.multiply(k2, sixth, out=d_next)
+        d_next += d
+        rates[i + 1, 0:3] = nxt[3:6]
+        kernel.rates(d_next, rates[i + 1, 3:7])
     return Trajectory(np.arange(n_steps + 1) * h, states.transpose(2, 0, 1), rates.transpose(2, 0, 1))
