@@ -117,21 +117,30 @@ SPHERE_CORRELATIONS = {
 
 @runtime_checkable
 class DragLaw(Protocol):
-    name: str
+    """C_D(Re, S): ``coefficient(re, s)`` for Reynolds numbers and spin ratios (arrays), dimensionless."""
+
+    @property
+    def name(self) -> str: ...
 
     def coefficient(self, re: np.ndarray, s: np.ndarray) -> np.ndarray: ...
 
 
 @runtime_checkable
 class LiftLaw(Protocol):
-    name: str
+    """C_L(S): ``coefficient(s)`` for signed spin ratios (arrays), dimensionless."""
+
+    @property
+    def name(self) -> str: ...
 
     def coefficient(self, s: np.ndarray) -> np.ndarray: ...
 
 
 @runtime_checkable
 class DecayLaw(Protocol):
-    name: str
+    """dω/dt (rad/s²) from spin (rad/s), air speed (m/s) and the BB and air constants (SI)."""
+
+    @property
+    def name(self) -> str: ...
 
     def rate(
         self,

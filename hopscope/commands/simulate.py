@@ -424,7 +424,7 @@ def simulate(
         drag=ConstantDrag(shot.drag_coefficient),
         lift=lift,
         decay=ExponentialDecay(shot.spin_decay_s),
-        wind_mps=tuple(float(w) for w in wind_mps),
+        wind_mps=(float(wind_mps[0]), float(wind_mps[1]), float(wind_mps[2])),
     )
     v0 = np.array([math.cos(shot.elevation_rad), math.sin(shot.elevation_rad), 0.0]) * shot.speed_mps
     air_speed0 = float(np.linalg.norm(v0 - np.asarray(model.wind_mps)))

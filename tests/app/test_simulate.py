@@ -336,3 +336,34 @@ def test_heavier_bb_keeps_more_of_its_speed(tmp_path, capsys):
         speeds.append(_read_path(out_csv)[1]["speed_mps"][-1])
     assert speeds[1] > speeds[0]
     assert BB(4e-4).kinetic_energy_j(speeds[1]) > BB(2e-4).kinetic_energy_j(speeds[0])
+
+
+def test_fit_air_can_be_overridden_and_extra_shots_are_named(tmp_path, capsys):
+    doc = _fit_doc()
+    doc["shots"].append(doc["shots"][0])
+    doc["model"]["drag"] = "sphere"
+    fit = tmp_path / "fit.json"
+    fit.write_text(json.dumps(doc), encoding="utf-8")
+    out_csv = tmp_path / "p.csv"
+    argv = [
+        "--fit",
+        str(fit),
+        "--temp-c",
+        "30",
+        "--pressure-hpa",
+        "950",
+        "--humidity-pct",
+        "80",
+        "--range-m",
+        "10",
+    ]
+    rc, _, err = _run(capsys, [*argv, "-o", str(out_csv)])
+    assert rc == 0, err
+    header, _ = _read_path(out_csv)
+    text = "\n".join(header)
+    rho = moist_air_density(303.15, 95000.0, 0.8)  # CIPM-2007 (Picard et al. 2008), tested in test_air.py
+    assert f"density {rho:.5f} kg/m3" in text and "instead of the fit's 1.18 kg/m³" in text
+    warnings = [h for h in header if h.startswith("# warning:")]
+    assert any("holds 2 shots; simulating the first" in w for w in warnings)
+    assert any("drag law 'sphere'" in w for w in warnings)
+    assert err.count("warning:") == len(warnings)
