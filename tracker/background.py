@@ -115,6 +115,9 @@ class WindowFrame:
 def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
     """Per-tile robust σ of a difference image (1.4826 · median |d|), expanded to the image, float32.
 
+    For integer images the median is interpolated within its bin (the grouped-data median, e.g.
+    Spiegel & Stephens, Schaum's Outline of Statistics, ch. 3).
+
     Tiles with no spread (a flat, noise-free synthetic image) get a floor of 0.5 grey level, the
     quantisation of 8-bit video.
     """
@@ -123,7 +126,17 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
     hh, ww = ty * tile if h >= tile else h, tx * tile if w >= tile else w
     bh, bw = hh // ty, ww // tx
     a = np.abs(diff_low[: ty * bh, : tx * bw].astype(np.float32)).reshape(ty, bh, tx, bw)
-    mad = np.median(a.transpose(0, 2, 1, 3).reshape(ty, tx, -1), axis=2)
+    a = a.transpose(0, 2, 1, 3).reshape(ty, tx, -1)
+    mad = np.median(a, axis=2)
+    if np.issubdtype(diff_low.dtype, np.integer):
+        # integer data: interpolate the median within its unit bin (grouped-data median), so the
+        # quantisation of 8-bit video does not bias σ by up to half a grey level
+        m = mad[..., None]
+        below = np.sum(a < m, axis=2)
+        at = np.maximum(np.sum(a == m, axis=2), 1)
+        lo = np.where(mad > 0, mad - 0.5, 0.0)
+        width = np.where(mad > 0, 1.0, 0.5)
+        mad = lo + width * (0.5 * a.shape[2] - below) / at
     sig = np.maximum(MAD_TO_SIGMA * mad, 0.5).astype(np.float32)
     full = np.repeat(np.repeat(sig, bh, axis=0), bw, axis=1)
     out = np.empty((h, w), np.float32)

@@ -37,6 +37,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
+import cv2
 import numpy as np
 from scipy.special import erf
 
@@ -231,12 +232,19 @@ def streak_model(p: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
 def _moments(img: np.ndarray, x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float, float]:
     """Centroid, principal second moments and angle of the significant positive part of ``img``.
 
-    Pixels count when they exceed the window's median by 3 robust σ (so noise does not widen the blob).
+    Pixels count when they exceed the window's median by 3 robust σ and belong to the connected blob
+    around the brightest pixel (so noise does not widen the blob).
     """
     med = float(np.median(img))
     sig = MAD_TO_SIGMA * float(np.median(np.abs(img - med)))
     w = img - med
-    w = np.where(w > 3.0 * sig, w, 0.0)
+    mask = (w > 3.0 * sig).astype(np.uint8)
+    if mask.any():
+        # only the blob around the brightest pixel: stray noise pixels would widen the moments
+        _, labels = cv2.connectedComponents(mask, connectivity=8)
+        peak = np.unravel_index(int(np.argmax(np.where(mask > 0, w, -np.inf))), w.shape)
+        mask = labels == labels[peak]
+    w = np.where(mask > 0, w, 0.0)
     tot = float(w.sum())
     if tot <= 0:
         return float(x.mean()), float(y.mean()), 1.0, 1.0, 0.0

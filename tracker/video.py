@@ -69,6 +69,8 @@ class VideoInfo:
         Pixel format of the decoded frames.
     n_frames : int or None
         Frame count announced by the container (None when it does not say).
+    duration_s : float or None
+        Duration announced by the container, s (None when it does not say).
     average_rate_hz : float or None
         The container's average frame rate, Hz (an average: wrong for variable frame rate files).
     capture_rate_hz : float or None
@@ -85,6 +87,7 @@ class VideoInfo:
     n_frames: int | None
     average_rate_hz: float | None
     capture_rate_hz: float | None
+    duration_s: float | None = None
     metadata: Mapping[str, str] = field(default_factory=dict)
 
 
@@ -117,6 +120,8 @@ def _open(path: str | os.PathLike[str]) -> av.container.InputContainer:
         raise ValueError(f"{p}: video file is empty")
     try:
         container = av.open(str(p), mode="r")
+    except av.error.EOFError:
+        raise ValueError(f"{p}: video has no frames (the file ends after its header)") from None
     except av.error.FFmpegError as exc:
         raise ValueError(f"{p}: not a readable video ({_ffmpeg_reason(exc)})") from None
     if not container.streams.video:
@@ -177,8 +182,19 @@ def _info(container: av.container.InputContainer, path: str) -> VideoInfo:
         n_frames=int(stream.frames) if stream.frames else None,
         average_rate_hz=_rate(stream.average_rate),
         capture_rate_hz=capture,
+        duration_s=_duration(container, stream),
         metadata=meta,
     )
+
+
+def _duration(container: av.container.InputContainer, stream: av.video.stream.VideoStream) -> float | None:
+    if stream.duration and stream.time_base:
+        d = float(stream.duration * stream.time_base)
+    elif container.duration:
+        d = container.duration / 1e6
+    else:
+        return None
+    return d if math.isfinite(d) and d > 0 else None
 
 
 def check_frame_rate(fps: float, what: str = "--fps") -> float:
@@ -266,6 +282,14 @@ def iter_frames(path: str | os.PathLike[str], *, fps_override: float | None = No
             raise ValueError(
                 f"{path}: video is truncated or corrupt (decoded {n} of the {info.n_frames} frames the container announces)"
             )
+        if not info.n_frames and info.duration_s and t0 is not None and n > 1:
+            span = last_t
+            period = span / (n - 1)
+            if span + period < info.duration_s * (1 - TRUNCATION_TOLERANCE) - period:
+                raise ValueError(
+                    f"{path}: video is truncated or corrupt (frames end at {span + period:.4g} s of the "
+                    f"{info.duration_s:.4g} s the container announces)"
+                )
     finally:
         container.close()
 
