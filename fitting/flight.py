@@ -13,8 +13,11 @@ Forces on a BB of mass m, area A, diameter d in air of density ρ, viscosity μ,
 - spin dω/dt from the decay law; the spin axis **n** stays fixed (no precession).
 
 The integrator is the classical fourth-order Runge-Kutta method on a uniform step, run on all shots at
-once (arrays of shape (n_shots, 7)), with cubic Hermite interpolation between steps for output at any
-time. Its accuracy is checked against scipy's DOP853 in the tests.
+once (structure of arrays: each state component is a row of n numbers), with cubic Hermite interpolation
+between steps for output at any time. Air, wind and gravity are uniform, so the forces depend on velocity
+and spin only; RK4 then advances positions exactly as x + h v + h²/6 (a₁ + a₂ + a₃), which is the RK4
+position update written out. Accuracy is checked against scipy's DOP853, the vacuum parabola and the
+closed form of quadratic drag in tests/fitting/test_flight.py; speed in tests/bench/bench_integrator.py.
 
 References
 ----------

@@ -56,8 +56,8 @@ def test_dry_air_at_isa_sea_level():
 
 def test_cipm_2007_worked_values():
     # Worked CIPM-2007 values as printed in S. V. Gupta, *Mass Metrology* (Springer 2012), appendix p. 205:
-    # 10 °C, 730 mmHg, 40 % RH -> 1.19569e-3 g/cm³. Read in a public test suite that cites the book
-    # (the book itself not read). The CIPM-2007 paper's own check value (Picard et al. 2008) could not
+    # 10 °C, 730 mmHg, 40 % RH -> 1.19569e-3 g/cm³. Read in the test suite of the CRAN package masscor,
+    # which cites the book (the book itself not read). The CIPM-2007 paper's own check value (Picard et al. 2008) could not
     # be found to read, so it is not used here.
     rho = moist_air_density(celsius_to_kelvin(10.0), 730.0 * MMHG_PA, 0.40)
     assert rho == pytest.approx(1.19569, rel=WORKED_VALUE_RTOL)
