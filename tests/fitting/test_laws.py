@@ -167,3 +167,44 @@ def test_reynolds_number_and_spin_ratio():
     # Definitions (design.md): Re = ρ u d / μ, S = r ω / u.
     assert float(reynolds_number(100.0, 6e-3, 1.2, 1.8e-5)) == pytest.approx(1.2 * 100 * 6e-3 / 1.8e-5)
     assert float(spin_ratio(-1000.0, 50.0, 3e-3)) == pytest.approx(-0.06)
+
+
+@given(cl=st.floats(min_value=-0.45, max_value=0.45, allow_nan=False))
+def test_lift_laws_invert(cl):
+    for law in (LinearLift(0.7), SaturatingLift()):
+        s = law.spin_ratio_for(cl)
+        assert float(law.coefficient(np.array([s]))[0]) == pytest.approx(cl, rel=1e-12, abs=1e-15)
+
+
+def test_saturating_lift_inverse_rejects_unreachable_coefficient():
+    with pytest.raises(ValueError, match="out of reach of the saturating law"):
+        SaturatingLift(cl_max=0.4).spin_ratio_for(0.4)
+
+
+def test_bb_geometry_and_energy():
+    # Uniform solid sphere: A = π d²/4, I = (2/5) m r² (e.g. Goldstein, *Classical Mechanics*, moments of
+    # inertia; from memory); kinetic energy ½ m v². 6 mm-class BB default diameter 5.95 mm
+    # (common practice, no published source).
+    bb = BB(2.5e-4)
+    assert bb.diameter_m == pytest.approx(5.95e-3)
+    assert bb.radius_m == pytest.approx(2.975e-3)
+    assert bb.area_m2 == pytest.approx(math.pi * 5.95e-3**2 / 4, rel=1e-15)
+    assert bb.inertia_kgm2 == pytest.approx(0.4 * 2.5e-4 * 2.975e-3**2, rel=1e-15)
+    assert bb.kinetic_energy_j(100.0) == pytest.approx(1.25, rel=1e-15)  # 0.25 g at 100 m/s
+
+
+@pytest.mark.parametrize(
+    ("mass", "diameter", "match"),
+    [
+        (0.0, 5.95e-3, "BB mass must be a positive finite number"),
+        (-1e-4, 5.95e-3, "BB mass must be a positive finite number"),
+        (math.nan, 5.95e-3, "BB mass must be a positive finite number"),
+        (2.5e-4, 0.0, "BB diameter must be a positive finite number"),
+        (2.5e-4, math.inf, "BB diameter must be a positive finite number"),
+        (1.0, 5.95e-3, "outside 0.01..10 g"),
+        (2.5e-4, 0.5, "outside 1..20 mm"),
+    ],
+)
+def test_bb_rejects_bad_values(mass, diameter, match):
+    with pytest.raises(ValueError, match=match):
+        BB(mass, diameter)
