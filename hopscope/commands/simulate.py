@@ -499,6 +499,8 @@ def _csv_text(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace, w
 
 
 def run(args: argparse.Namespace) -> int:
+    if Path(args.output).is_dir():
+        raise ValueError(f"-o: {args.output} is a folder; give the path of the CSV file to write")
     _check_common(args)
     shot = _fit_inputs(args) if args.fit is not None else _manual_inputs(args)
     wind = (args.wind_mps, 0.0, args.crosswind_mps)

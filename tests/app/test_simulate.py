@@ -326,6 +326,12 @@ def test_missing_output_folder(tmp_path, capsys):
     assert rc == 2 and "does not exist" in err
 
 
+def test_output_is_a_folder(tmp_path, capsys):
+    rc, _, err = _run(capsys, [*BASE, "-o", str(tmp_path)])
+    assert rc == 2 and f"-o: {tmp_path} is a folder" in err
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_heavier_bb_keeps_more_of_its_speed(tmp_path, capsys):
     # common practice, no published source: at the same exit speed and C_D a heavier BB slows less.
     speeds = []
