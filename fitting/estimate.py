@@ -200,6 +200,43 @@ class ShotFit:
 
 
 @dataclass(frozen=True, eq=False)
+class FittedModel:
+    """What prediction needs from a fit: the model, the parameter vector and its covariance (SI).
+
+    ``theta`` is the full vector (names ``names``: own slots shot by shot, then the shared drag and decay
+    parameters); ``covariance`` is over the ``free`` entries. ``t0_s`` are the shots' first tracked times.
+    """
+
+    spec: ModelSpec
+    names: tuple[str, ...]
+    theta: np.ndarray
+    free: np.ndarray
+    covariance: np.ndarray
+    labels: tuple[str, ...]
+    t0_s: np.ndarray
+
+    @property
+    def n_shots(self) -> int:
+        return len(self.labels)
+
+    def rows(self, theta: np.ndarray | None = None) -> RowParams:
+        """Per-shot row parameters of ``theta`` (default: the fitted vector)."""
+        return rows_from_vector(self.spec, self.theta if theta is None else theta, self.n_shots)
+
+    def sample_theta(self, n: int, rng) -> np.ndarray:
+        """n parameter vectors (n, p) drawn from N(θ̂, Cov) over the free entries; decay kept ≥ 0."""
+        gen = np.random.default_rng(rng)
+        out = np.tile(self.theta, (n, 1))
+        cov = 0.5 * (self.covariance + self.covariance.T)
+        w, v = np.linalg.eigh(cov)
+        z = gen.standard_normal((n, w.size)) * np.sqrt(np.clip(w, 0.0, None))
+        out[:, self.free] += z @ v.T
+        out[:, -1] = np.abs(out[:, -1])  # decay parameters are ≥ 0 (reflect at the bound)
+        out[:, -2] = np.abs(out[:, -2])
+        return out
+
+
+@dataclass(frozen=True, eq=False)
 class FlightFit:
     """Result of :func:`fit_shots` (SI throughout).
 
@@ -249,6 +286,18 @@ class FlightFit:
     @property
     def free_names(self) -> tuple[str, ...]:
         return tuple(n for n, f in zip(self.parameter_names, self.free, strict=True) if f)
+
+    def fitted_model(self) -> FittedModel:
+        """The model, parameters and covariance for prediction."""
+        return FittedModel(
+            self.spec,
+            self.parameter_names,
+            self.parameter_values.copy(),
+            self.free.copy(),
+            self.covariance.copy(),
+            tuple(s.label for s in self.shots),
+            np.array([s.t0_s for s in self.shots]),
+        )
 
 
 def drag_param_name(spec: ModelSpec) -> str:
@@ -979,6 +1028,7 @@ __all__ = [
     "Estimate",
     "FitProblem",
     "FitStatistics",
+    "FittedModel",
     "FlightFit",
     "ShotFit",
     "fit_shots",

@@ -1,0 +1,228 @@
+"""``hopscope fit``: track files in, fit.json out, the parameter table, bad input and non-convergence."""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+
+import numpy as np
+import pytest
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.fitfile import read_fit
+from fitting.observe import ModelSpec, simulate_shot
+from hopscope import cli
+from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK, EXIT_UNEXPECTED
+from tracker.trackfile import Track, TrackMeta, track_to_csv
+
+MASS_KG = 2.5e-4
+TRUTH = {
+    "speed_mps": 95.0,
+    "elevation_rad": 0.01,
+    "lift_coefficient": 0.2,
+    "drag_param": 0.45,
+    "decay_param": 1 / 3,
+}
+SIGMA_M = 5e-4
+#: The fit recovers the simulated speed within this many of its own standard errors.
+Z_TOL = 4.0
+
+
+def _track(n_shots=1, n=40, fps=2000.0, seed=0, k_cal=4, rig="abc123", warnings=()):
+    spec = ModelSpec(BB(MASS_KG), Air.standard())
+    rng = np.random.default_rng(seed)
+    cols = {k: [] for k in ("frame", "t_s", "x_m", "y_m", "sigma_m", "shot")}
+    cal = []
+    for sid in range(n_shots):
+        t = 0.1 * sid + np.arange(n) / fps
+        s = simulate_shot(spec, t_s=t, sigma_m=SIGMA_M, rng=rng, x0_m=0.2, **TRUTH)
+        cols["frame"] += list(range(sid * 1000, sid * 1000 + n))
+        cols["t_s"] += list(s.t_s)
+        cols["x_m"] += list(s.x_m)
+        cols["y_m"] += list(s.y_m)
+        cols["sigma_m"] += list(s.sigma_m)
+        cols["shot"] += [sid] * n
+        # a calibration ensemble: small scale errors about the origin (systematic across points)
+        scales = rng.normal(0, 1e-4, k_cal)
+        cal.append(np.stack([scales[:, None] * s.x_m[None], scales[:, None] * s.y_m[None]], axis=-1))
+    n_all = len(cols["t_s"])
+    cal_all = np.concatenate(cal, axis=1) if k_cal else np.zeros((0, n_all, 2))
+    x = np.array(cols["x_m"])
+    y = np.array(cols["y_m"])
+    meta = TrackMeta("clip.mp4", "container", fps, 0.0, None, rig, (1920, 1080), tuple(warnings))
+    return Track(
+        frame=np.array(cols["frame"]),
+        t_s=np.array(cols["t_s"]),
+        u_px=1000 * x,
+        v_px=-1000 * y,
+        x_m=x,
+        y_m=y,
+        sigma_px=np.full(n_all, 0.5),
+        sigma_m=np.array(cols["sigma_m"]),
+        shot=np.array(cols["shot"]),
+        brightness=np.full(n_all, 100.0),
+        streak_len_px=np.zeros(n_all),
+        flags=("",) * n_all,
+        cal_dx_m=cal_all[:, :, 0],
+        cal_dy_m=cal_all[:, :, 1],
+        meta=meta,
+    )
+
+
+def _write(tmp_path, name="track.csv", **kw):
+    p = tmp_path / name
+    p.write_text(track_to_csv(_track(**kw)), encoding="utf-8")
+    return p
+
+
+def _run(capsys, argv):
+    try:
+        rc = cli.main(["fit", *argv])
+    except SystemExit as exc:  # argparse usage errors
+        rc = exc.code
+    cap = capsys.readouterr()
+    return rc, cap.out, cap.err
+
+
+def test_fit_writes_fit_json_and_prints_table(tmp_path, capsys):
+    track = _write(tmp_path)
+    out = tmp_path / "fit.json"
+    rc, text, err = _run(capsys, [str(track), "--mass-g", "0.25", "-o", str(out)])
+    assert rc == EXIT_OK, err
+    fit = read_fit(out)
+    d = fit.data
+    assert d["schema"] == "hopscope.fit/1" and d["converged"] is True
+    speed = d["shots"][0]["initial"]["speed_mps"]
+    assert abs(speed["value"] - TRUTH["speed_mps"]) < Z_TOL * speed["stderr"]
+    assert speed["stderr_calibration"] > 0  # the ensemble reached the error bars
+    assert d["inputs"]["tracks"][0]["rig_digest"] == "abc123"
+    assert d["aero"]["spin_decay_time_s"]["value"] is None  # 20 ms cannot see the decay
+    assert any("spin decay not determined" in w for w in d["warnings"])
+    assert len(d["shots"][0]["residuals"]["dx_m"]) == 40
+    assert d["air"]["density_kgm3"] == pytest.approx(Air.standard().density_kgm3)
+    # the table in user units, the warnings on stderr
+    assert "m/s" in text and "fps" in text and "C_D" in text and "spin decay τ" in text
+    assert "warning: spin decay not determined" in err
+    assert "warning: air conditions not given" in err
+
+
+def test_two_files_fit_jointly_and_share_drag(tmp_path, capsys):
+    a = _write(tmp_path, "a.csv", seed=1)
+    b = _write(tmp_path, "b.csv", n_shots=2, seed=2)
+    out = tmp_path / "fit.json"
+    rc, _, err = _run(
+        capsys,
+        [
+            str(a),
+            str(b),
+            "--mass-g",
+            "0.25",
+            "--temp-c",
+            "20",
+            "--pressure-hpa",
+            "1013.25",
+            "--humidity-pct",
+            "50",
+            "-o",
+            str(out),
+        ],
+    )
+    assert rc == EXIT_OK, err
+    d = json.loads(out.read_text())
+    assert [s["label"] for s in d["shots"]] == ["a.csv#0", "b.csv#0", "b.csv#1"]
+    assert len(d["parameters"]["names"]) == 5 * 3 + 2
+    assert "air conditions not given" not in err
+
+
+def test_chronograph_prior_tightens_speed(tmp_path, capsys):
+    track = _write(tmp_path, k_cal=0)
+    out1, out2 = tmp_path / "a.json", tmp_path / "b.json"
+    assert _run(capsys, [str(track), "--mass-g", "0.25", "-o", str(out1)])[0] == EXIT_OK
+    rc, text, _ = _run(capsys, [str(track), "--mass-g", "0.25", "--chrono-mps", "95:0.02", "-o", str(out2)])
+    assert rc == EXIT_OK
+    s1 = json.loads(out1.read_text())["shots"][0]["initial"]["speed_mps"]["stderr"]
+    s2 = json.loads(out2.read_text())["shots"][0]["initial"]["speed_mps"]["stderr"]
+    assert s2 < s1
+    assert json.loads(out2.read_text())["inputs"]["chronograph"]["sigma_mps"] == 0.02
+    assert "chronograph prior" in text
+
+
+@pytest.mark.parametrize(
+    ("args", "match"),
+    [
+        (["--mass-g", "0"], r"--mass-g"),
+        (["--mass-g", "-1"], r"--mass-g"),
+        (["--mass-g", "0.25", "--chrono-mps", "abc"], r"--chrono-mps"),
+        (["--mass-g", "0.25", "--muzzle-x-m", "0"], r"--muzzle-x-m: needs --chrono-mps"),
+        (["--mass-g", "0.25", "--drag", "cubic"], r"--drag"),
+        (["--mass-g", "0.25", "--temp-c", "500"], r"--temp-c"),
+    ],
+)
+def test_bad_options_exit_2_and_write_nothing(tmp_path, capsys, args, match):
+    track = _write(tmp_path)
+    out = tmp_path / "fit.json"
+    rc, _, err = _run(capsys, [str(track), *args, "-o", str(out)])
+    assert rc == EXIT_BAD_INPUT
+    assert len(err.strip().splitlines()) == 1
+    assert re.search(match, err), err
+    assert not out.exists()
+
+
+def _corrupt(tmp_path, how):
+    p = _write(tmp_path)
+    lines = p.read_text().splitlines()
+    head = [i for i, ln in enumerate(lines) if not ln.startswith("#")][0]
+    if how == "nan":
+        cells = lines[head + 3].split(",")
+        cells[4] = "nan"
+        lines[head + 3] = ",".join(cells)
+    elif how == "missing":
+        cols = lines[head].split(",")
+        drop = cols.index("sigma_m")
+        lines = [
+            ln if ln.startswith("#") else ",".join(c for j, c in enumerate(ln.split(",")) if j != drop)
+            for ln in lines
+        ]
+    elif how == "schema":
+        lines[0] = "# schema: hopscope.track/9"
+    elif how == "order":
+        a, b = lines[head + 5], lines[head + 6]
+        lines[head + 5], lines[head + 6] = b, a
+    elif how == "short":
+        lines = lines[: head + 4]
+    p.write_text("\n".join(lines) + "\n")
+    return p
+
+
+@pytest.mark.parametrize("how", ["nan", "missing", "schema", "order", "short"])
+def test_bad_track_files_exit_2_with_one_line(tmp_path, capsys, how):
+    p = _corrupt(tmp_path, how)
+    out = tmp_path / "fit.json"
+    rc, _, err = _run(capsys, [str(p), "--mass-g", "0.25", "-o", str(out)])
+    assert rc == EXIT_BAD_INPUT, err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and "track.csv" in lines[0] and "Traceback" not in err
+    assert not out.exists()
+    assert not list(tmp_path.glob(".fit*"))  # no partial file left behind
+
+
+def test_missing_track_file_exits_2(tmp_path, capsys):
+    rc, _, err = _run(
+        capsys, [str(tmp_path / "nope.csv"), "--mass-g", "0.25", "-o", str(tmp_path / "f.json")]
+    )
+    assert rc == EXIT_BAD_INPUT and "nope.csv" in err
+
+
+def test_non_converged_fit_writes_converged_false_and_exits_1(tmp_path, capsys):
+    # a BB mass far from the data's: the fitted C_D is driven to its upper bound
+    track = _write(tmp_path)
+    out = tmp_path / "fit.json"
+    rc, text, err = _run(capsys, [str(track), "--mass-g", "8", "-o", str(out)])
+    assert rc == EXIT_UNEXPECTED
+    d = json.loads(out.read_text())
+    assert d["converged"] is False and "ran to its bound" in d["reason"]
+    assert "drag_coefficient" in d["reason"]
+    assert "did not converge" in err and "NO:" in text
+    assert math.isfinite(d["aero"]["drag_coefficient"]["value"])
