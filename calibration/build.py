@@ -170,6 +170,7 @@ def make_rig(
             "views_rejected": [{"view": s, "reason": r} for s, r in lens.views_rejected],
             "intrinsics_std": dict(lens.intrinsics_std),
             "frame_coverage": lens.frame_coverage,
+            "corner_extent_px": list(lens.corner_extent_px),
             "distortion_model": distortion_model(lens.flags),
         },
         "plane": {

@@ -86,12 +86,12 @@ def calibrate_files(
         )
     rejected = [(d.source, d.reason) for d in detections if not d.found]
     lens_views = [ViewPoints(d.source, d.corners, spec.board_points()) for d in found]  # type: ignore[arg-type]
-    lens = calibrate_lens(lens_views, size, rejected=rejected)
     plane_items = [parse_plane_arg(p) for p in planes]
     placements = [
         Placement(name, corners, off)
         for name, corners, off in detect_plane_views(plane_items, spec, size, detector=detector)
     ]
+    lens = calibrate_lens(lens_views, size, rejected=rejected)
     prov: dict[str, Any] = {
         "inputs": {"views": list(views), "plane": list(planes), "drop": drop},
         "detector": detector,

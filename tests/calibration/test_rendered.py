@@ -1,0 +1,148 @@
+"""Calibration on rendered scenes with a known camera (hopscope.scenes): images in, rig out, vs truth.
+
+The renderer projects through OpenCV's camera model with its own supersampled texture rendering, lens
+blur and noise; the truth (camera, board poses, true BB path) comes from its truth.json.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import cv2
+import numpy as np
+import pytest
+
+from calibration.grid import GridSpec
+from calibration.pipeline import calibrate_files
+from calibration.rig import Rig, read_rig, rig_to_json
+from hopscope.scenes import DropSpec, builtin_scene, prepare_scene, render_scene
+
+pytestmark = pytest.mark.slow
+
+#: The issue's acceptance: focal length and principal point within 0.2 %.
+INTRINSICS_RTOL = 2e-3
+#: Distortion recovered: displacement field within this many px over the frame's inner 90 %.
+DISTORTION_FIELD_TOL_PX = 0.25
+#: Plane mapping error along the true path, inside the region the plane references cover (the issue's
+#: 0.3 mm for lane-close).
+PATH_TOL_COVERED_M = 0.3e-3
+#: ... and over the whole visible path, where the lens model extrapolates toward the frame's edges:
+#: the error must stay within this many ensemble standard deviations (plus a floor) and below a bound.
+PATH_Z_LIMIT = 3.5
+PATH_Z_FLOOR_M = 0.02e-3
+#: ... and within the frame region the lens views' corners reach (no extrapolation of the distortion).
+PATH_TOL_LENS_COVERED_M = 0.3e-3
+#: The issue's acceptance: g within 0.5 % on a rendered drop.
+G_RTOL = 5e-3
+
+
+def _truth_rig(truth) -> Rig:
+    c = truth["camera"]
+    return Rig(
+        tuple(c["image_size"]),
+        c["camera_matrix"],
+        c["dist_coeffs"],
+        c["rotation"],
+        c["translation"],
+        0.0,
+        0.0,
+    )
+
+
+@pytest.fixture(scope="module")
+def close_scene(tmp_path_factory):
+    spec = builtin_scene("lane-close")
+    scene = render_scene(spec, tmp_path_factory.mktemp("lane-close"), rng=0, parts=("lens", "plane"))
+    b = scene.truth["board"]
+    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
+    run = calibrate_files(
+        [str(p) for p in scene.lens_view_paths], [f"{p}:{off}" for p, off in scene.plane_views], grid, rng=0
+    )
+    return spec, scene, run
+
+
+def test_intrinsics_within_tolerance(close_scene):
+    _, scene, run = close_scene
+    k_true = np.array(scene.truth["camera"]["camera_matrix"])
+    k = run.rig.camera_matrix
+    for i, j in [(0, 0), (1, 1), (0, 2), (1, 2)]:
+        assert abs(k[i, j] - k_true[i, j]) / k_true[i, j] < INTRINSICS_RTOL, (i, j, k[i, j], k_true[i, j])
+    assert run.lens.views_rejected == ()
+
+
+def test_distortion_recovered(close_scene):
+    _, scene, run = close_scene
+    c = scene.truth["camera"]
+    k_true, d_true = np.array(c["camera_matrix"]), np.array(c["dist_coeffs"])
+    w, h = c["image_size"]
+    u, v = np.meshgrid(np.linspace(0.05, 0.95, 15) * w, np.linspace(0.05, 0.95, 9) * h)
+    xn = (np.column_stack([u.ravel(), v.ravel()]) - k_true[:2, 2]) / np.diag(k_true)[:2]
+    obj = np.column_stack([xn, np.ones(len(xn))]).reshape(-1, 1, 3)
+    want, _ = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k_true, d_true)
+    got, _ = cv2.projectPoints(obj, np.zeros(3), np.zeros(3), k_true, run.rig.dist_coeffs)
+    assert np.max(np.abs(got - want)) < DISTORTION_FIELD_TOL_PX
+
+
+def test_plane_mapping_along_true_path(close_scene):
+    spec, scene, run = close_scene
+    truth = _truth_rig(scene.truth)
+    frames = [f for f in prepare_scene(spec, rng=0).true_flight_frames() if f["visible"]]
+    xy = np.array([[f["x_m"], f["y_m"]] for f in frames])
+    uv = truth.world_to_pixel(xy)  # where the plane point under the BB images
+    rig = run.rig
+    err = np.linalg.norm(rig.pixel_to_world(uv) - xy, axis=1)
+    covered = rig.in_coverage(xy)
+    assert covered.sum() >= 10
+    assert err[covered].max() < PATH_TOL_COVERED_M
+    spread = rig.ensemble_pixel_to_world(uv) - rig.pixel_to_world(uv)[None]
+    sd = np.sqrt(np.mean(np.sum(spread**2, axis=2), axis=0))
+    assert np.all(err < PATH_Z_LIMIT * sd + PATH_Z_FLOOR_M)
+    u0, u1, v0, v1 = run.lens.corner_extent_px
+    inside = (uv[:, 0] >= u0) & (uv[:, 0] <= u1) & (uv[:, 1] >= v0) & (uv[:, 1] <= v1)
+    assert inside.sum() > 0.7 * len(uv)
+    assert err[inside].max() < PATH_TOL_LENS_COVERED_M
+    print(err[covered].max(), err[inside].max(), err.max(), (err / sd).max())
+
+
+def test_rig_file_round_trip_of_rendered_calibration(close_scene, tmp_path):
+    _, _, run = close_scene
+    p = tmp_path / "rig.json"
+    p.write_text(rig_to_json(run.rig))
+    back = read_rig(p)
+    assert back.digest == run.rig.digest
+    uv = np.array([[10.0, 10.0], [640.0, 360.0]])
+    np.testing.assert_allclose(back.pixel_to_world(uv), run.rig.pixel_to_world(uv))
+
+
+@pytest.fixture(scope="module")
+def drop_scene(tmp_path_factory):
+    # a longer fall than the built-in drop (which is in view for only ~25 ms): the camera runs at 500 fps
+    # and the ball is released just inside the frame, 0.3 s of fall
+    from hopscope.scenes import CameraSpec
+
+    spec = builtin_scene("lane-close")
+    cam = dataclasses.replace(spec.camera, fps=500.0)
+    assert isinstance(cam, CameraSpec)
+    spec = dataclasses.replace(
+        spec, camera=cam, drop=DropSpec(release_m=(0.3, 0.42, 0.0), lead_frames=10, n_frames=150)
+    )
+    scene = render_scene(spec, tmp_path_factory.mktemp("drop"), rng=1, parts=("lens", "plane", "drop"))
+    return spec, scene
+
+
+def test_rendered_drop_recovers_g_and_wrong_rate_is_flagged(drop_scene):
+    _, scene = drop_scene
+    b = scene.truth["board"]
+    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
+    views = [str(p) for p in scene.lens_view_paths]
+    planes = [f"{p}:{off}" for p, off in scene.plane_views]
+    run = calibrate_files(views, planes, grid, drop=str(scene.drop_clip_path), ensemble_size=0)
+    d = run.rig.drop_check
+    g_true = scene.truth["drop"]["g_mps2"]
+    assert d["verdict"] == "consistent", d
+    assert abs(d["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
+    wrong = calibrate_files(
+        views, planes, grid, drop=str(scene.drop_clip_path), drop_fps=600.0, ensemble_size=0
+    )
+    assert wrong.rig.drop_check["verdict"] == "inconsistent"
+    assert any("frame rate" in w for w in wrong.rig.warnings)
