@@ -35,7 +35,17 @@ import numpy as np
 from .air import Air
 from .bb import BB
 from .constants import STANDARD_GRAVITY_MPS2
-from .laws import ConstantDrag, DecayLaw, DragLaw, ExponentialDecay, LiftLaw, LinearLift
+from .laws import (
+    SPHERE_CORRELATIONS_UNCHECKED,
+    AerodynamicDecay,
+    ConstantDrag,
+    DecayLaw,
+    DragLaw,
+    ExponentialDecay,
+    LiftLaw,
+    LinearLift,
+    SphereDrag,
+)
 
 #: Default integration step, s (the fitter's longest step, ``fitting.observe.MAX_FIT_STEP_S``, is the same).
 #: Measured against scipy's DOP853 (rtol = atol = 1e-12) on random shots (30-150 m/s, spin, wind, tilted
@@ -160,13 +170,26 @@ class _Kernel:
         # Fast paths for the default laws (same formulas as the law objects, fewer numpy passes):
         # constant C_D without spin drag, and exponential decay dω/dt = ω·(−1/τ).
         drag = model.drag
+        # constant C_D without spin drag; sphere C_D(Re) without the input checks (Re > 0 here by
+        # construction); exponential decay dω/dt = ω·(−1/τ); aerodynamic decay dω/dt = −(cρAr²/2I)·u·ω.
+        drag = model.drag
         self.constant_cd: np.ndarray | None = None
+        self.sphere = None
         if isinstance(drag, ConstantDrag) and np.ndim(drag.spin_drag) == 0 and drag.spin_drag == 0:
             self.constant_cd = np.asarray(drag.cd, dtype=float)
+        elif isinstance(drag, SphereDrag):
+            spin_drag = None if np.ndim(drag.spin_drag) == 0 and drag.spin_drag == 0 else drag.spin_drag
+            self.sphere = (SPHERE_CORRELATIONS_UNCHECKED[drag.correlation], drag.scale, spin_drag)
+        decay = model.decay
         self.neg_inv_tau: np.ndarray | None = None
-        if isinstance(model.decay, ExponentialDecay):
-            tau = np.asarray(model.decay.tau_s, dtype=float)
+        self.neg_aero_k: np.ndarray | None = None
+        if isinstance(decay, ExponentialDecay):
+            tau = np.asarray(decay.tau_s, dtype=float)
             self.neg_inv_tau = np.where(np.isinf(tau), 0.0, -1.0 / np.where(np.isinf(tau), 1.0, tau))
+        elif isinstance(decay, AerodynamicDecay):
+            self.neg_aero_k = -np.asarray(decay.torque_slope, dtype=float) * (
+                air.density_kgm3 * bb.area_m2 * bb.radius_m**2 / (2.0 * bb.inertia_kgm2)
+            )
         axis = np.asarray(spin_axis, dtype=float)
         self.wind_col = np.array(self.wind, dtype=float)[:, None] if any(self.wind) else None
         # One axis for every shot (the usual case): n × u is the matrix product [n]ₓ u.
@@ -188,10 +211,16 @@ class _Kernel:
         u_safe = np.maximum(u, 1e-9)
         s = omega * self.radius
         s /= u_safe
-        if self.constant_cd is None:
-            cd = self.model.drag.coefficient(u_safe * self.re_per_speed, s)
-        else:
+        if self.constant_cd is not None:
             cd = self.constant_cd
+        elif self.sphere is not None:
+            correlation, scale, spin_drag = self.sphere
+            cd = correlation(u_safe * self.re_per_speed)
+            cd *= scale
+            if spin_drag is not None:
+                cd += spin_drag * (s * s)
+        else:
+            cd = self.model.drag.coefficient(u_safe * self.re_per_speed, s)
         cl = self.model.lift.coefficient(s)
         qu = u
         qu *= self.q  # q·u, 1/s
@@ -211,10 +240,13 @@ class _Kernel:
         acc *= qu * cl
         acc -= u_vec * (qu * cd)
         out[1] -= self.gravity
-        if self.neg_inv_tau is None:
-            out[3] = self.model.decay.rate(omega, u_safe, **self.decay_kwargs)
-        else:
+        if self.neg_inv_tau is not None:
             np.multiply(omega, self.neg_inv_tau, out=out[3])
+        elif self.neg_aero_k is not None:
+            np.multiply(omega, u_safe, out=out[3])
+            out[3] *= self.neg_aero_k
+        else:
+            out[3] = self.model.decay.rate(omega, u_safe, **self.decay_kwargs)
         return out
 
 

@@ -75,9 +75,17 @@ def cd_clift_grace_weber(re: ArrayLike) -> np.ndarray:
     Clift, Grace & Weber (1978), *Bubbles, Drops, and Particles*, Academic Press, Table 5.2; the same
     pieces as implemented in the ``fluids`` library (``fluids.drag.Clift``), against which it is tested.
     """
+    return _cgw_unchecked(_checked_reynolds(re))
+
+
+def _checked_reynolds(re: ArrayLike) -> np.ndarray:
     re = np.asarray(re, dtype=float)
     if np.any(~np.isfinite(re)) or np.any(re <= 0):
         raise ValueError("Reynolds number must be positive and finite")
+    return re
+
+
+def _cgw_unchecked(re: np.ndarray) -> np.ndarray:
     piece = np.searchsorted(_CGW_BOUNDS, re, side="right")
     first = int(piece.flat[0]) if re.size else 0
     if re.size and np.all(piece == first):  # the usual case inside a flight: one piece for all shots
@@ -100,15 +108,23 @@ def cd_brown_lawler(re: ArrayLike) -> np.ndarray:
     Brown & Lawler (2003), "Sphere drag and settling velocity revisited", J. Environ. Eng. 129(3):222-231,
     eq. 19.
     """
-    re = np.asarray(re, dtype=float)
-    if np.any(~np.isfinite(re)) or np.any(re <= 0):
-        raise ValueError("Reynolds number must be positive and finite")
+    return _bl_unchecked(_checked_reynolds(re))
+
+
+def _bl_unchecked(re: np.ndarray) -> np.ndarray:
     return 24.0 / re * (1.0 + 0.150 * re**0.681) + 0.407 / (1.0 + 8710.0 / re)
 
 
 SPHERE_CORRELATIONS = {
     "clift-grace-weber": cd_clift_grace_weber,
     "brown-lawler": cd_brown_lawler,
+}
+
+#: The same correlations without input checks, for the integrator's inner loop (Re > 0 there by
+#: construction). Keys as in :data:`SPHERE_CORRELATIONS`.
+SPHERE_CORRELATIONS_UNCHECKED = {
+    "clift-grace-weber": _cgw_unchecked,
+    "brown-lawler": _bl_unchecked,
 }
 
 
@@ -246,7 +262,9 @@ class SaturatingLift:
         """The spin ratio S that gives lift coefficient ``cl`` (|cl| < cl_max): S = s½·C_L / (c − |C_L|)."""
         cl = np.asarray(cl, dtype=float)
         if np.any(np.abs(cl) >= np.abs(self.cl_max)):
-            raise ValueError(f"lift coefficient {cl!r} is out of reach of the saturating law (|C_L| < cl_max)")
+            raise ValueError(
+                f"lift coefficient {cl!r} is out of reach of the saturating law (|C_L| < cl_max)"
+            )
         return self.s_half * cl / (self.cl_max - np.abs(cl))
 
 
