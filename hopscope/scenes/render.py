@@ -165,9 +165,13 @@ def board_corners(board: BoardSpec) -> np.ndarray:
     return np.stack([i.ravel() * board.square_m, -j.ravel() * board.square_m, np.zeros(i.size)], axis=1)
 
 
-def board_outline(board: BoardSpec, per_edge: int = 16) -> np.ndarray:
-    """Points along the sheet's outer edge (margin included), board coordinates (N, 3), m."""
-    s, m = board.square_m, board.margin_m
+def board_outline(board: BoardSpec, per_edge: int = 16, *, margin_m: float | None = None) -> np.ndarray:
+    """Points along the sheet's outer edge, board coordinates (N, 3), m.
+
+    ``margin_m`` replaces the board's white margin (e.g. 0 for the edge of the checkered area).
+    """
+    s = board.square_m
+    m = board.margin_m if margin_m is None else margin_m
     x0, x1 = -s - m, board.cols * s + m
     y0, y1 = -board.rows * s - m, s + m
     t = np.linspace(0.0, 1.0, per_edge, endpoint=False)
@@ -353,41 +357,63 @@ def project_board_corners(camera: SceneCamera, board: BoardSpec, rotation, trans
     return project_camera_points(camera, pts)
 
 
+#: Where the lens views put the board, cycling: the four corners, the four edges, the centre (image
+#: half-sizes; the board is pushed that way until it touches the image border).
+_LENS_TARGETS = ((-1, -1), (1, -1), (1, 1), (-1, 1), (0, -1), (1, 0), (0, 1), (-1, 0), (0, 0))
+
+
 def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_deg, fill,
                     rng: np.random.Generator) -> list[tuple[np.ndarray, np.ndarray]]:
     """Board poses (R, t) (board→camera) as a careful user holds them: tilted 20-45°, filling the frame.
 
-    Tilt directions go round the compass; the board's centre moves about the frame so that its corners
-    reach toward the image edges. Each pose keeps the whole sheet inside the image.
+    Tilt directions go round the compass; the board visits the image's corners, edges and centre in turn
+    and is pushed toward them until its sheet touches the image border (1 % margin), so the corners reach
+    toward the image edges (distortion is recoverable). Each pose keeps the checkered area and a strip of
+    the white margin (a third of it, at least 1 % of the image width from the border) inside the image; the
+    rest of the margin may leave the frame, as it does when a user fills the frame.
     """
     w, h = camera.image_size
     base = np.diag([1.0, -1.0, -1.0])  # board x → camera x, board y (up) → camera −y, normal → camera −z
     centre_b = np.array([(board.cols - 1) * board.square_m / 2, -(board.rows - 1) * board.square_m / 2, 0.0])
+    outline = board_outline(board, margin_m=board.margin_m / 3.0)
+    margin = 0.01 * w
     out: list[tuple[np.ndarray, np.ndarray]] = []
+
+    def fits(rot, tr) -> bool:
+        pts = outline @ rot.T + tr
+        if np.any(pts[:, 2] <= 0.05 * tr[2]):
+            return False
+        uv = project_camera_points(camera, pts)
+        return bool(uv[:, 0].min() > margin and uv[:, 0].max() < w - 1 - margin and uv[:, 1].min() > margin
+                    and uv[:, 1].max() < h - 1 - margin)
+
+    def pose(rot, f, off):
+        z = camera.camera_matrix[0, 0] * board.width_m / (f * w)
+        target = np.array([[(w - 1) / 2 + off[0] * w, (h - 1) / 2 + off[1] * h]])
+        ray = camera.undistort_pixels(target)[0]
+        return z * np.array([ray[0], ray[1], 1.0]) - rot @ centre_b
+
     for i in range(n_views):
         tilt = math.radians(rng.uniform(*tilt_deg))
         psi = 2 * math.pi * (i + rng.uniform(-0.3, 0.3)) / max(n_views, 1)
         gamma = math.radians(rng.uniform(-15.0, 15.0))
         f = rng.uniform(*fill)
-        off = rng.uniform(-0.22, 0.22, 2)
+        goal = np.array(_LENS_TARGETS[i % len(_LENS_TARGETS)], dtype=float) * 0.5 + rng.uniform(-0.03, 0.03, 2)
         rot = rotation_about((math.cos(psi), math.sin(psi), 0.0), tilt) @ base @ rotation_about((0, 0, 1), gamma)
-        for _attempt in range(60):
-            z = camera.camera_matrix[0, 0] * board.width_m / (f * w)
-            target = np.array([[(w - 1) / 2 + off[0] * w, (h - 1) / 2 + off[1] * h]])
-            ray = camera.undistort_pixels(target)[0]
-            tr = z * np.array([ray[0], ray[1], 1.0]) - rot @ centre_b
-            pts = board_outline(board) @ rot.T + tr
-            if np.all(pts[:, 2] > 0.05):
-                uv = project_camera_points(camera, pts)
-                margin = 0.01 * w
-                if (uv[:, 0].min() > margin and uv[:, 0].max() < w - 1 - margin and uv[:, 1].min() > margin
-                        and uv[:, 1].max() < h - 1 - margin):
-                    break
+        for _attempt in range(40):  # a smaller board if even the centred one does not fit
+            if fits(rot, pose(rot, f, np.zeros(2))):
+                break
             f *= 0.95
-            off *= 0.9
         else:
             raise ValueError(f"lens view {i}: cannot fit the {board.width_m:.2f} m board into the image")
-        out.append((rot, tr))
+        lo, hi = 0.0, 1.0  # largest fraction of the way to the goal that still fits (bisection)
+        for _ in range(20):
+            mid = 0.5 * (lo + hi)
+            if fits(rot, pose(rot, f, goal * mid)):
+                lo = mid
+            else:
+                hi = mid
+        out.append((rot, pose(rot, f, goal * lo)))
     return out
 
 

@@ -22,7 +22,7 @@ BB_KINDS = ("white", "tracer", "marked")
 LIGHTING_KINDS = ("daylight", "dusk")
 
 #: Bump when the renderer's output for a given spec and seed changes (invalidates cached renders).
-RENDERER_VERSION = 1
+RENDERER_VERSION = 2
 
 
 def _finite(name: str, value: float) -> None:
@@ -172,7 +172,7 @@ class LensViewsSpec:
 
     n_views: int = 12
     tilt_deg: tuple[float, float] = (20.0, 45.0)
-    fill: tuple[float, float] = (0.55, 0.85)
+    fill: tuple[float, float] = (0.5, 0.8)
     supersample: int = 3
 
     def __post_init__(self) -> None:
