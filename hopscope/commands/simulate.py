@@ -206,7 +206,7 @@ def _check_speed(option: str, value: float) -> float:
 
 def _check_common(args: argparse.Namespace) -> None:
     _in_range("--range-m", args.range_m, 0.0, 1000.0, "m", open_lo=True)
-    _in_range("--muzzle-height-m", args.muzzle_height_m, 0.0, 100.0, "m")
+    _in_range("--muzzle-height-m", args.muzzle_height_m, 0.0, 100.0, "m", open_lo=True)
     _in_range("--wind-mps", args.wind_mps, -50.0, 50.0, "m/s")
     _in_range("--crosswind-mps", args.crosswind_mps, -50.0, 50.0, "m/s")
     _in_range("--sample-ms", args.sample_ms, 0.0, 1000.0, "ms", open_lo=True)

@@ -296,6 +296,7 @@ BAD_INPUT = [
     ("--range-m", "nan", "--range-m: must be a finite number"),
     ("--wind-mps", "inf", "--wind-mps: must be a finite number"),
     ("--muzzle-height-m", "-1", "--muzzle-height-m: -1 m is outside"),
+    ("--muzzle-height-m", "0", "--muzzle-height-m: 0 m is outside the accepted range (0, 100] m"),
 ]
 
 
