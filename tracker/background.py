@@ -93,6 +93,8 @@ class WindowFrame:
     noise_low : per-pixel noise σ of ``diff_low`` (tile map), float32, grey levels.
     samples : the frames the background is the median of.
     scale : block size of the low-res image, px.
+    diff_coarse, noise_coarse : ``diff_low`` block-averaged by 2 (float32) and its noise map: faint,
+        extended blobs (long streaks) stand out better there.
     """
 
     frame: VideoFrame
@@ -101,6 +103,8 @@ class WindowFrame:
     noise_low: np.ndarray
     samples: tuple[VideoFrame, ...]
     scale: int
+    diff_coarse: np.ndarray | None = None
+    noise_coarse: np.ndarray | None = None
 
     def background_roi(self, r0: int, r1: int, c0: int, c1: int) -> np.ndarray:
         """Full-resolution median background in rows r0:r1, cols c0:c1, float32 grey levels."""
@@ -137,7 +141,8 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
         lo = np.where(mad > 0, mad - 0.5, 0.0)
         width = np.where(mad > 0, 1.0, 0.5)
         mad = lo + width * (0.5 * a.shape[2] - below) / at
-    sig = np.maximum(MAD_TO_SIGMA * mad, 0.5).astype(np.float32)
+    floor = 0.5 if np.issubdtype(diff_low.dtype, np.integer) else 0.125
+    sig = np.maximum(MAD_TO_SIGMA * mad, floor).astype(np.float32)
     full = np.repeat(np.repeat(sig, bh, axis=0), bw, axis=1)
     out = np.empty((h, w), np.float32)
     out[: full.shape[0], : full.shape[1]] = full
@@ -174,11 +179,12 @@ def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 
     buf: deque[tuple[VideoFrame, np.ndarray]] = deque()
     first_index: int | None = None
     noise: np.ndarray | None = None
+    noise_c: np.ndarray | None = None
     done = 0
     total = 0
 
     def ready(pos: int) -> WindowFrame:
-        nonlocal noise, done
+        nonlocal noise, noise_c, done
         frame, low = buf[pos]
         picks = []
         for j in range(1, SIDE_SAMPLES + 1):
@@ -193,8 +199,13 @@ def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 
             )
         bg = median_of([buf[q][1] for q in picks])
         diff = cv2.subtract(low, bg, dtype=cv2.CV_16S)
+        h2, w2 = diff.shape[0] // 2, diff.shape[1] // 2
+        coarse = None
+        if h2 >= 8 and w2 >= 8:
+            coarse = cv2.resize(diff.astype(np.float32), (w2, h2), interpolation=cv2.INTER_AREA)
         if noise is None or done % NOISE_EVERY == 0:
             noise = noise_map(diff)
+            noise_c = noise_map(coarse, tile=max(8, NOISE_TILE // 2)) if coarse is not None else None
         done += 1
         return WindowFrame(
             frame=frame,
@@ -203,6 +214,8 @@ def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 
             noise_low=noise,
             samples=tuple(buf[q][0] for q in picks),
             scale=scale,
+            diff_coarse=coarse,
+            noise_coarse=noise_c,
         )
 
     # buf holds frames k - reach .. k + reach; position of frame k is `reach` once the buffer is full.

@@ -1,7 +1,8 @@
 """Candidate blobs from the low-resolution difference image, with a noise-scaled threshold.
 
 A pixel is significant when |frame − background| exceeds ``threshold_sigma`` times the local noise σ (the
-tile map of :func:`tracker.background.noise_map`). Significant pixels seed blobs, which are grown to
+tile map of :func:`tracker.background.noise_map`), on the detection image and on a copy binned by 2 (a
+two-level pyramid: a faint, extended streak stands out where its signal adds up over more pixels). Significant pixels seed blobs, which are grown to
 ``grow_sigma`` (hysteresis, so a faint streak's ends stay in the fit window). Each blob becomes a
 :class:`Candidate` with its sign (+1 brighter than the background, −1 darker) and a full-resolution window.
 
@@ -75,27 +76,44 @@ def find_candidates(
     -------
     list of Candidate, strongest first within each polarity.
     """
-    diff = wf.diff_low
-    noise = wf.noise_low
-    lim = noise * np.float32(threshold_sigma)
+    levels = [(wf.diff_low, wf.noise_low, wf.scale)]
+    if wf.diff_coarse is not None and wf.noise_coarse is not None:
+        levels.append((wf.diff_coarse, wf.noise_coarse, 2 * wf.scale))
     out: list[Candidate] = []
     for sign in (1, -1):
         if polarity and sign != polarity:
             continue
-        sd = diff if sign > 0 else np.negative(diff)  # int16: no overflow for 8-bit sources
-        seeds = sd > lim
-        if not seeds.any():
-            continue
-        out.extend(_blobs(wf, sd, seeds, sign, grow_sigma, max_candidates))
+        found: list[Candidate] = []
+        for diff, noise, scale in levels:
+            sd = diff if sign > 0 else np.negative(diff)  # int16: no overflow for 8-bit sources
+            seeds = sd > noise * np.float32(threshold_sigma)
+            if not seeds.any():
+                continue
+            for c in _blobs(wf, sd, noise, scale, seeds, sign, grow_sigma, max_candidates):
+                # the coarse level adds only blobs the fine level missed
+                if not any(_inside(c, f) for f in found):
+                    found.append(c)
+        found.sort(key=lambda c: -c.peak_snr)
+        out.extend(found[:max_candidates])
     return out
 
 
+def _inside(c: Candidate, f: Candidate) -> bool:
+    r0, r1, c0, c1 = f.box
+    return r0 <= c.v_px < r1 and c0 <= c.u_px < c1
+
+
 def _blobs(
-    wf: WindowFrame, sd: np.ndarray, seeds: np.ndarray, sign: int, grow_sigma: float, max_candidates: int
+    wf: WindowFrame,
+    sd: np.ndarray,
+    noise: np.ndarray,
+    s: int,
+    seeds: np.ndarray,
+    sign: int,
+    grow_sigma: float,
+    max_candidates: int,
 ) -> list[Candidate]:
-    s = wf.scale
-    h_low, w_low = sd.shape
-    grow = (sd > wf.noise_low * np.float32(grow_sigma)).astype(np.uint8)
+    grow = (sd > noise * np.float32(grow_sigma)).astype(np.uint8)
     n, labels, stats, _ = cv2.connectedComponentsWithStats(grow, connectivity=8)
     seed_labels = np.unique(labels[seeds])
     seed_labels = seed_labels[seed_labels > 0]
@@ -104,7 +122,7 @@ def _blobs(
         x, y, w, h, _area = stats[lab]
         sub_l = labels[y : y + h, x : x + w] == lab
         sub = np.where(sub_l, sd[y : y + h, x : x + w].astype(np.float32), 0.0)
-        snr = float(np.max(sub / wf.noise_low[y : y + h, x : x + w]))
+        snr = float(np.max(sub / noise[y : y + h, x : x + w]))
         tot = float(sub.sum())
         yy, xx = np.mgrid[y : y + h, x : x + w]
         cu = float((sub * xx).sum() / tot) if tot > 0 else x + w / 2

@@ -24,7 +24,15 @@ from .background import default_scale, windowed
 from .detect import THRESHOLD_SIGMA, Candidate, find_candidates
 from .localise import Detection, localise
 from .trackfile import Track, TrackMeta
-from .video import VideoFrame, VideoInfo, check_frame_rate, iter_frames, probe_video, timing_warnings
+from .video import (
+    VideoFrame,
+    VideoInfo,
+    check_frame_rate,
+    iter_frames,
+    probe_video,
+    regularise_times,
+    timing_warnings,
+)
 
 #: Plausible BB speeds, m/s: outside this the timing (playback time) or the scale is probably wrong.
 #: Airsoft replicas shoot at roughly 60–170 m/s; 5 m/s is a slow drop.  # common practice, no published source
@@ -221,6 +229,12 @@ def track_video(
     if n_frames == 0:
         raise ValueError(f"{video}: video has no frames")
     t_all = np.array(times)
+    notes: list[str] = []
+    if opt.fps_override is None:
+        t_all, note = regularise_times(t_all, info.time_base_s)
+        if note:
+            notes.append(note)
+            dets = [(d, sgn, float(t_all[d.frame]), edge) for d, sgn, _, edge in dets]
     if opt.fps_override is not None:
         rate = float(opt.fps_override)
         source = "override"
@@ -231,7 +245,7 @@ def track_video(
         if not rate:
             raise ValueError(f"{video}: cannot tell the frame rate from one frame; give it with --fps")
         check_frame_rate(rate, f"{video}: container timestamps imply a frame rate that")
-    warns = timing_warnings(info, t_all, fps_override=opt.fps_override)
+    warns = notes + timing_warnings(info, t_all, fps_override=opt.fps_override)
     if n_frames > 1:
         period = float(np.min(np.diff(t_all)))
         if opt.readout_s >= period:

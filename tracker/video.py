@@ -71,6 +71,8 @@ class VideoInfo:
         Frame count announced by the container (None when it does not say).
     duration_s : float or None
         Duration announced by the container, s (None when it does not say).
+    time_base_s : float or None
+        Resolution of the stream's timestamps, s (Matroska: 1 ms; MP4: often 1/90000 s or finer).
     average_rate_hz : float or None
         The container's average frame rate, Hz (an average: wrong for variable frame rate files).
     capture_rate_hz : float or None
@@ -88,6 +90,7 @@ class VideoInfo:
     average_rate_hz: float | None
     capture_rate_hz: float | None
     duration_s: float | None = None
+    time_base_s: float | None = None
     metadata: Mapping[str, str] = field(default_factory=dict)
 
 
@@ -183,6 +186,7 @@ def _info(container: av.container.InputContainer, path: str) -> VideoInfo:
         average_rate_hz=_rate(stream.average_rate),
         capture_rate_hz=capture,
         duration_s=_duration(container, stream),
+        time_base_s=float(stream.time_base) if stream.time_base else None,
         metadata=meta,
     )
 
@@ -324,6 +328,40 @@ def timing_warnings(info: VideoInfo, times_s: np.ndarray, *, fps_override: float
             f"if so rerun with --fps {info.capture_rate_hz:.6g}"
         )
     return out
+
+
+def regularise_times(times_s: np.ndarray, time_base_s: float | None) -> tuple[np.ndarray, str | None]:
+    """Undo the rounding of a constant-rate clip's timestamps to a coarse time base.
+
+    When every timestamp lies within half a time-base step of an evenly spaced sequence t₀ + k·Δt (Δt a
+    whole or N·1000/1001 frame rate that fits, else the least-squares slope), the clip is constant-rate and the spread is rounding (Matroska stores times in
+    milliseconds: ±0.5 ms is 12 % of a 240 fps frame period). The evenly spaced times are returned with a
+    note; otherwise the times are returned unchanged with None.
+    """
+    t = np.asarray(times_s, dtype=float)
+    if t.size < 3 or not time_base_s or time_base_s <= 0:
+        return t, None
+    k = np.arange(t.size)
+    dt = float(np.median(np.diff(t)))
+    if time_base_s < 1e-3 * dt:
+        return t, None  # timestamps fine enough already
+    half = 0.5 * time_base_s * (1 + 1e-6) + 1e-12
+    slope, _ = np.polyfit(k, t, 1)
+    # prefer a whole frame rate, or an NTSC-style one (N·1000/1001), when it fits within the rounding
+    rates = [float(round(1 / slope)), round(1 / slope * 1.001) / 1.001, 1 / slope]
+    for rate in rates:
+        b = 1.0 / rate
+        dev = t - b * k
+        a = 0.5 * (dev.max() + dev.min())
+        if np.max(np.abs(dev - a)) <= half:
+            slope = b
+            break
+    else:
+        return t, None
+    return slope * k, (
+        f"container timestamps are rounded to {time_base_s * 1e3:.3g} ms; the frames are evenly spaced at "
+        f"{1 / slope:.6g} fps within that rounding, so evenly spaced times are used"
+    )
 
 
 def timestamp_rate_hz(times_s: np.ndarray) -> float | None:

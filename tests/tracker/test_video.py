@@ -16,6 +16,7 @@ from tracker.video import (
     frame_times,
     iter_frames,
     probe_video,
+    regularise_times,
     timestamp_rate_hz,
     timing_warnings,
 )
@@ -155,3 +156,20 @@ def test_non_increasing_timestamps_need_fps(tmp_path):
     with pytest.raises(ValueError, match="timestamps do not increase at frame .*--fps"):
         list(iter_frames(path))
     assert len(list(iter_frames(path, fps_override=100.0))) == len(pts)
+
+
+def test_rounded_constant_rate_times_are_regularised(tmp_path):
+    # Matroska stores times in milliseconds: a 240 fps clip gets 4/5 ms steps.
+    path = write_clip(tmp_path / "ms.mkv", _frames(30), fps=240)
+    info = probe_video(path)
+    raw = frame_times(path)
+    assert info.time_base_s == pytest.approx(1e-3)
+    assert np.max(np.abs(raw - np.arange(30) / 240)) > 1e-4  # rounded
+    fixed, note = regularise_times(raw, info.time_base_s)
+    np.testing.assert_allclose(fixed, np.arange(30) / 240, atol=2e-5)
+    assert note and "rounded to 1 ms" in note
+    # genuinely variable spacing is left alone
+    g = np.random.default_rng(1)
+    vfr = np.round(np.cumsum(g.uniform(0.003, 0.006, 30)), 3)
+    same, none = regularise_times(vfr, 1e-3)
+    assert none is None and np.array_equal(same, vfr)
