@@ -83,6 +83,9 @@ OUTLIER_SIGMA = 5.0
 #: the level a clean Gaussian residual vector of that length exceeds with probability 1 %, if higher.
 ROBUST_TRIGGER_SIGMA = 4.0
 
+#: A larger fraction of outliers than this suggests a wrong model or a broken track (warning).
+OUTLIER_FRACTION_WARN = 0.1
+
 #: Default robust loss and its scale in units of σ.
 DEFAULT_LOSS = "soft_l1"
 DEFAULT_F_SCALE = 2.5
@@ -155,7 +158,12 @@ class Estimate:
 
 @dataclass(frozen=True)
 class FitStatistics:
-    """Goodness of fit over the inlier points (χ² in units of the tracked σ)."""
+    """Goodness of fit (χ² in units of the tracked σ).
+
+    ``chi2``, ``dof``, the RMS and the error-bar scale use the inlier points. ``aic`` = R + 2k and
+    ``bic`` = R + k·ln(n) use ``robust_chi2`` R = Σ c²ρ(r²/c²) over all n residuals with the requested
+    loss ρ (= χ² for clean data or the linear loss), so laws fitted to the same data compare fairly.
+    """
 
     n_points: int
     n_residuals: int
@@ -169,6 +177,7 @@ class FitStatistics:
     residual_rms_m: float
     residual_rms_sigma: float
     n_outliers: int
+    robust_chi2: float = math.nan
 
 
 @dataclass(frozen=True, eq=False)
@@ -599,18 +608,46 @@ def _cal_groups(shots: Sequence[ShotData]) -> list[list[int]]:
     return out
 
 
-def _statistics(problem: FitProblem, x: np.ndarray) -> _Stats:
+def robust_sum(r: np.ndarray, loss: str, f_scale: float) -> float:
+    """Σ c²·ρ(r²/c²) for scipy's loss ρ and scale c (σ units): χ² for the linear loss, ≈ χ² for small r.
+
+    References
+    ----------
+    The loss functions ρ(z) of scipy.optimize.least_squares (documentation of its ``loss`` argument).
+    """
+    z = np.square(r) / f_scale**2
+    if loss == "linear":
+        rho = z
+    elif loss == "soft_l1":
+        rho = 2.0 * (np.sqrt(1.0 + z) - 1.0)
+    elif loss == "huber":
+        rho = np.where(z <= 1.0, z, 2.0 * np.sqrt(z) - 1.0)
+    elif loss == "cauchy":
+        rho = np.log1p(z)
+    elif loss == "arctan":
+        rho = np.arctan(z)
+    else:
+        raise ValueError(f"loss: unknown {loss!r}")
+    return float(f_scale**2 * np.sum(rho))
+
+
+def _statistics(problem: FitProblem, x: np.ndarray, loss: str = "linear", f_scale: float = 1.0) -> _Stats:
     r, jac = problem._evaluate(x)
     stack = problem.stack
     n_pts_entries = problem.n_point_entries
     pts = r[:n_pts_entries].reshape(-1, 2)
-    out_pt = np.max(np.abs(pts), axis=1) > OUTLIER_SIGMA
+    # outliers relative to the robust scatter (1.4826·median |r| estimates σ for Gaussian residuals), so
+    # that σ stated too small by the tracker widens the error bars instead of discarding good points
+    scatter = max(1.0, 1.4826 * float(np.median(np.abs(pts)))) if pts.size else 1.0
+    out_pt = np.max(np.abs(pts), axis=1) > OUTLIER_SIGMA * scatter
     inlier = np.concatenate([np.repeat(~out_pt, 2), np.ones(r.size - n_pts_entries, dtype=bool)])
     point_outlier = np.zeros(stack.mask.shape, dtype=bool)
     point_outlier[stack.mask] = out_pt
     ji = jac[inlier]
     n_free = ji.shape[1]
     chi2 = float(np.sum(r[inlier] ** 2))
+    # model comparison over all residuals (the same data for every law), outliers tamed by the loss
+    robust_chi2 = robust_sum(r, loss, f_scale)
     m = int(np.count_nonzero(inlier))
     dof = m - n_free
     red = chi2 / dof if dof > 0 else math.inf
@@ -649,11 +686,12 @@ def _statistics(problem: FitProblem, x: np.ndarray) -> _Stats:
         chi2=chi2,
         reduced_chi2=red,
         stderr_scale=scale,
-        aic=chi2 + 2.0 * n_free,
-        bic=chi2 + n_free * math.log(max(m, 1)),
+        aic=robust_chi2 + 2.0 * n_free,
+        bic=robust_chi2 + n_free * math.log(max(r.size, 1)),
         residual_rms_m=rms_m,
         residual_rms_sigma=rms_sigma,
         n_outliers=int(out_pt.sum()),
+        robust_chi2=robust_chi2,
     )
     return _Stats(r, jac, inlier, point_outlier, cov_noise, cov_cal, stats, singular)
 
@@ -795,7 +833,7 @@ def fit_shots(
             fixed_value = ref
             problem = _with_decay_fixed(problem, problem.x0, ref)
     x, success, message, nfev, loss_used = _solve(problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev)
-    st = _statistics(problem, x)
+    st = _statistics(problem, x, loss, f_scale)
     if decay_fixed is None:
         if fixed_value is None:
             theta_hat = problem.full(x)
@@ -805,7 +843,7 @@ def fit_shots(
             # the decay as the data see it at the solution: free-decay covariance there
             free_all = np.ones(theta.size, dtype=bool)
             probe = FitProblem(shots, spec, problem.full(x), free_all, lower, upper, chrono)
-            st_probe = _statistics(probe, probe.x0)
+            st_probe = _statistics(probe, probe.x0, loss, f_scale)
             decay_est = _direct(
                 probe.full(probe.x0), free_all, st_probe.cov_noise, st_probe.cov_cal, theta.size - 1
             )
@@ -835,7 +873,7 @@ def fit_shots(
                     problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev
                 )
                 nfev += nfev2
-                st = _statistics(problem, x)
+                st = _statistics(problem, x, loss, f_scale)
         if undetermined:
             span = max(s.duration_s for s in shots)
             if err is not None and val is not None and math.isfinite(err):
@@ -890,9 +928,11 @@ def fit_shots(
             f"(reduced χ² {st.stats.reduced_chi2:.3g}): error bars scaled up to match"
         )
     if st.stats.n_outliers:
+        frac = st.stats.n_outliers / st.stats.n_points
         warnings.append(
-            f"{st.stats.n_outliers} of {st.stats.n_points} points are outliers (> {OUTLIER_SIGMA:g} σ): "
-            "down-weighted in the fit, left out of χ² and the error bars"
+            f"{st.stats.n_outliers} of {st.stats.n_points} points are outliers (> {OUTLIER_SIGMA:g}× the "
+            "residual scatter): down-weighted in the fit, left out of χ² and the error bars"
+            + ("; so many that the model or the track may be wrong" if frac > OUTLIER_FRACTION_WARN else "")
         )
 
     # ---- per-shot results

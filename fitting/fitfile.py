@@ -25,7 +25,8 @@ determine the quantity)::
                    "residuals": {"t_s": [...], "dx_m": [...], "dy_m": [...], "outlier": [...]}}
     statistics    {"n_points", "n_residuals", "n_parameters", "dof", "chi2", "reduced_chi2",
                    "stderr_scale", "aic", "bic", "residual_rms_m", "residual_rms_sigma", "n_outliers",
-                   "n_calibrations"}
+                   "robust_chi2", "n_calibrations"}  (χ², dof, RMS over inliers; AIC = robust_chi2 + 2k,
+                   BIC = robust_chi2 + k ln n over all n residuals)
     parameters    {"names", "values", "free", "covariance" (free × free), "correlation" (free × free),
                    "covariance_calibration" (free × free)}
 
@@ -188,6 +189,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
             "residual_rms_m": _num(st.residual_rms_m),
             "residual_rms_sigma": _num(st.residual_rms_sigma),
             "n_outliers": st.n_outliers,
+            "robust_chi2": _num(st.robust_chi2),
             "n_calibrations": result.n_calibrations,
         },
         "parameters": {
