@@ -34,7 +34,8 @@ ISA_SEA_LEVEL_P_PA = 101325.0
 ISA_SEA_LEVEL_RHO_KGM3 = 1.2250
 
 #: WGS84 normal gravity (Somigliana) constants: equatorial gravity m/s², k, first eccentricity squared.
-#: Source: NIMA TR8350.2 (2000), "Department of Defense World Geodetic System 1984", eq. 4-1.  # from memory
+#: Source: NIMA TR8350.2 (2000), "Department of Defense World Geodetic System 1984", eq. 4-1; the values
+#: read in several independent public implementations of it (the document itself not read).
 WGS84_GAMMA_E = 9.7803253359
 WGS84_K = 0.00193185265241
 WGS84_E2 = 0.00669437999013

@@ -21,12 +21,14 @@ from fitting.constants import (
     ISA_SEA_LEVEL_RHO_KGM3,
     ISA_SEA_LEVEL_T_K,
     STANDARD_GRAVITY_MPS2,
+    WGS84_K,
 )
 from fitting.units import celsius_to_kelvin, hpa_to_pa, percent_to_fraction
 
 DENSITY_VS_COOLPROP_RTOL = 2e-4
 VISCOSITY_VS_COOLPROP_RTOL = 5e-3
 ISA_DENSITY_RTOL = 5e-4  # ISA density is given to 5 digits; CIPM-2007 dry air differs from ISA's ideal gas
+WGS84_K_RTOL = 1e-8  # k = ratio − 1 loses ~3 digits: inputs rounded to 1e-10 give ~5e-9 on k
 WORKED_VALUE_RTOL = 1e-5  # printed to 6 significant digits
 SATURATION_VS_COOLPROP_RTOL = 1e-3
 
@@ -88,8 +90,12 @@ def test_viscosity_matches_coolprop_air(t_c):
 
 
 def test_latitude_gravity_reference_points():
-    # WGS84 normal gravity (NIMA TR8350.2, 2000, eq. 4-1): equator 9.7803253359, pole 9.8321849378 m/s²
-    # (from memory); 45° lies close to standard gravity (3rd CGPM 1901).
+    # WGS84 normal gravity (NIMA TR8350.2, 2000, eq. 4-1): equator 9.7803253359, pole 9.8321849378 m/s²,
+    # semi-axes a = 6378137 m, b = 6356752.3142 m (read in several public implementations of TR8350.2).
+    # Somigliana's k must equal b·γ_p / (a·γ_e) − 1; 45° lies close to standard gravity (3rd CGPM 1901).
+    assert WGS84_K == pytest.approx(
+        6356752.3142 * 9.8321849378 / (6378137.0 * 9.7803253359) - 1.0, rel=WGS84_K_RTOL
+    )
     assert latitude_gravity(0.0) == pytest.approx(9.7803253359, abs=1e-9)
     assert latitude_gravity(90.0) == pytest.approx(9.8321849378, abs=1e-8)
     assert latitude_gravity(-90.0) == pytest.approx(latitude_gravity(90.0), abs=1e-12)
