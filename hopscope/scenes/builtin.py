@@ -69,6 +69,8 @@ def _lane_long() -> SceneSpec:
                           drag_coefficient=0.44, lift_coefficient=0.022, lift_slope=0.1,
                           spin_decay_time_s=1.5, temperature_k=288.15, pressure_pa=99800.0,
                           relative_humidity=0.7, lead_frames=20, tail_frames=5),
+        # dropped from 1.2 m above the flight line in the middle of the field: ~0.5 s of fall, 67 px
+        drop=DropSpec(release_m=(13.0, 1.2, 0.0), lead_frames=10, n_frames=130),
         clutter=ClutterSpec(distractor=True, start_px=(1300.0, 380.0), velocity_pxps=(-180.0, 40.0),
                             wobble_px=25.0, wobble_hz=2.0, radius_px=2.5, darkness=0.0, glow_dn=30.0),
         image=ImageModelSpec(gain_e_per_dn=2.5, read_noise_dn=2.0),
