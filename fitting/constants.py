@@ -23,12 +23,13 @@ CELSIUS_ZERO_K = 273.15
 
 #: Sutherland's law for air: reference viscosity constant (Pa·s·K^-1/2) and Sutherland temperature (K).
 #: Source: the classic air fit mu = C1 T^1.5 / (T + S) as tabulated in the U.S. Standard Atmosphere (1976),
-#: eq. 51, C1 = 1.458e-6, S = 110.4 K.  # from memory (constants), formula read
+#: eq. 51, C1 = 1.458e-6, S = 110.4 K (read in several public implementations that cite eq. 51; the
+#: document itself not read).
 SUTHERLAND_C1 = 1.458e-6
 SUTHERLAND_S_K = 110.4
 
 #: ICAO standard atmosphere at sea level: temperature K, pressure Pa, density kg/m³.
-#: Source: ICAO Doc 7488 (1993).  # from memory
+#: Source: ICAO Doc 7488 (1993).  # from memory (the same values appear in public ISA implementations)
 ISA_SEA_LEVEL_T_K = 288.15
 ISA_SEA_LEVEL_P_PA = 101325.0
 ISA_SEA_LEVEL_RHO_KGM3 = 1.2250
