@@ -64,6 +64,10 @@ MIN_DROP_POINTS = 8
 #: The drag term stays in the model when it lowers χ² by more than this (≈ 2σ for one added parameter).
 DRAG_TERM_MIN_DCHI2 = 4.0
 
+#: ... and only when it is physical (k > 0) and small enough for the first-order model (k v² below this
+#: fraction of g at the fastest point); a larger fitted k means the curvature comes from something else.
+DRAG_TERM_MAX_FRACTION = 0.1
+
 #: Detection: threshold in robust noise σ of the difference image, and its floor in grey levels.
 DETECT_SIGMA = 6.0
 DETECT_FLOOR_DN = 8.0
@@ -219,7 +223,10 @@ def fit_free_fall(t_s: Any, xy_m: Any, *, drag: str = "auto") -> FreeFallFit:
     if drag != "off":
         pd, covd, rssd, dofd = _solve(tk, xyk, True, p)
         s2 = rssd / dofd
-        if drag == "on" or (rss - rssd) / s2 > DRAG_TERM_MIN_DCHI2:
+        k_fit = float(pd[6])
+        v_max = abs(float(pd[3])) + abs(float(pd[4])) * float(tk[-1])
+        valid = 0.0 < k_fit and k_fit * v_max**2 < DRAG_TERM_MAX_FRACTION * abs(float(pd[4]))
+        if drag == "on" or (valid and (rss - rssd) / s2 > DRAG_TERM_MIN_DCHI2):
             p, cov, rss, with_drag = pd, covd, rssd, True
     g = float(p[4])
     theta = float(math.remainder(p[2], 2 * math.pi))

@@ -234,6 +234,20 @@ def parse_plane_arg(item: str) -> tuple[Path, float]:
     return Path(path), value
 
 
+def check_plane_items(items: Sequence[tuple[Path, float]]) -> None:
+    """Cheap checks of the ``--plane`` list: not empty, files exist, the first offset is 0."""
+    if not items:
+        raise ValueError("--plane: need at least one plane image")
+    if items[0][1] != 0.0:
+        raise ValueError(
+            f"--plane {items[0][0]}: the first placement defines the origin, its offset must be 0 "
+            f"(got {items[0][1]:g} m)"
+        )
+    for path, _ in items:
+        if not path.is_file():
+            raise FileNotFoundError(f"{path}: no such plane image (--plane)")
+
+
 def detect_plane_views(
     items: Sequence[tuple[Path, float]],
     spec: GridSpec,
@@ -246,13 +260,7 @@ def detect_plane_views(
     Raises ValueError naming the file when the board is not found, the image size differs from the
     lens views', or the first placement's offset is not 0.
     """
-    if not items:
-        raise ValueError("--plane: need at least one plane image")
-    if items[0][1] != 0.0:
-        raise ValueError(
-            f"--plane {items[0][0]}: the first placement defines the origin, its offset must be 0 "
-            f"(got {items[0][1]:g} m)"
-        )
+    check_plane_items(items)
     out = []
     for path, off in items:
         img = read_image(path)

@@ -20,7 +20,15 @@ import numpy as np
 from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
 from .drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop
 from .grid import DEFAULT_DETECTOR, GridSpec
-from .images import Progress, detect_plane_views, detect_views, expand_views, no_progress, parse_plane_arg
+from .images import (
+    Progress,
+    check_plane_items,
+    detect_plane_views,
+    detect_views,
+    expand_views,
+    no_progress,
+    parse_plane_arg,
+)
 from .lens import LensCalibration, ViewPoints, calibrate_lens
 from .plane import Placement
 from .rig import Rig
@@ -76,6 +84,8 @@ def calibrate_files(
     ValueError / OSError with a one-line message naming the file or option (no grid in any view, too
     few usable views, unreadable image, plane view without the board, mismatched sizes, bad offset).
     """
+    plane_items = [parse_plane_arg(p) for p in planes]
+    check_plane_items(plane_items)  # cheap checks before the slow detection
     sources = expand_views(views)
     detections, size = detect_views(sources, spec, detector=detector, progress=progress)
     found = [d for d in detections if d.found]
@@ -86,7 +96,6 @@ def calibrate_files(
         )
     rejected = [(d.source, d.reason) for d in detections if not d.found]
     lens_views = [ViewPoints(d.source, d.corners, spec.board_points()) for d in found]  # type: ignore[arg-type]
-    plane_items = [parse_plane_arg(p) for p in planes]
     placements = [
         Placement(name, corners, off)
         for name, corners, off in detect_plane_views(plane_items, spec, size, detector=detector)
