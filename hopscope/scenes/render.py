@@ -17,6 +17,16 @@ Image model (every effect can be switched off for tests through :class:`~hopscop
 
 The BB is flown by the project's flight model (:func:`fitting.flight.fly`), never by physics of its own.
 
+Known simplifications (honest limits of the model):
+
+- the BB's image is a disk of radius f·r/Z centred on the projected centre; the lens distortion's local
+  change of scale (a few per cent at the frame's edges) and the perspective offset of a sphere's outline
+  (far below 0.01 px here) are not drawn;
+- shot noise is Gaussian with the Poisson variance; there is no fixed-pattern noise, vignetting, defocus
+  or sensor saturation bloom (the tracer's glow is a Gaussian halo);
+- the distractor moves in image space (it is not a 3-D object), and the wall is a flat plane;
+- lighting is the same for every board pose (no shadows or glare on the board).
+
 Notes
 -----
 Pixel points are (u, v) with the centre of the top-left pixel at (0, 0); images are indexed (row, col).
@@ -897,6 +907,12 @@ def render_scene(
         if progress is not None:
             progress(stage, done, total)
 
+    # a stale truth.json must not describe the files about to be rewritten, nor stale views linger
+    # (users and the demo pass whole folders of views to the calibration)
+    (out / "truth.json").unlink(missing_ok=True)
+    for pattern in ("lens/lens_*.png", "plane/plane_*.png"):
+        for old in out.glob(pattern):
+            old.unlink()
     scene = prepare_scene(spec, rng=rng if seed is None else seed)
     cam = scene.camera
     truth: dict[str, Any] = {

@@ -346,3 +346,12 @@ def test_marked_bb_brightness_flickers_at_the_spin_frequency():
     freqs = np.linspace(0.3 * f_true, 1.7 * f_true, 4000)
     power = lombscargle(t, y, 2 * np.pi * freqs)
     assert freqs[np.argmax(power)] == pytest.approx(f_true, rel=SPIN_FREQ_REL_TOL)
+
+
+def test_rerender_with_fewer_views_leaves_no_stale_views(tmp_path):
+    spec3 = small_scene()
+    render_scene(spec3, tmp_path, rng=0, parts=("lens",))
+    assert len(list((tmp_path / "lens").glob("*.png"))) == 3
+    spec1 = small_scene(lens=dataclasses.replace(spec3.lens, n_views=1))
+    scene = render_scene(spec1, tmp_path, rng=0, parts=("lens",))
+    assert sorted((tmp_path / "lens").glob("*.png")) == list(scene.lens_view_paths)
