@@ -811,7 +811,29 @@ class PreparedScene:
                           quantise=quantise, with_clutter=with_clutter)
 
     def true_flight_frames(self) -> list[dict[str, Any]]:
+        """truth.json's per-frame records of the flight clip."""
         return _true_frames(self.context, self.flight_motion, self.plan.n_frames)
+
+    def drop_plan(self) -> tuple[_Motion, int, float]:
+        """(motion, n_frames, release time s) of the drop clip; ``ValueError`` when the scene has none."""
+        if self.spec.drop is None:
+            raise ValueError(f"scene {self.spec.name!r} has no drop clip")
+        cached = self.__dict__.get("_drop")
+        if cached is None:
+            cached = plan_drop(self.spec, self.plan.model, self.readout_s)
+            object.__setattr__(self, "_drop", cached)
+        return cached
+
+    def drop_frame(self, k: int, *, rng: np.random.Generator | None = None, bb: bool = True,
+                   quantise: bool = True) -> np.ndarray:
+        """Frame ``k`` of the drop clip (8-bit, or float DN before noise when ``quantise=False``)."""
+        motion = self.drop_plan()[0]
+        return clip_frame(self.context, k, motion if bb else None, rng=rng, quantise=quantise)
+
+    def true_drop_frames(self) -> list[dict[str, Any]]:
+        """truth.json's per-frame records of the drop clip."""
+        motion, n, _ = self.drop_plan()
+        return _true_frames(self.context, motion, n)
 
 
 def prepare_scene(spec: SceneSpec, *, rng: int | np.random.Generator = 0) -> PreparedScene:
@@ -974,12 +996,11 @@ def render_scene(
             truth["plane_views"].append({"file": name, "offset_m": off, **_rt(rot, tr)})
             tick("plane views", i + 1, len(spec.plane.offsets_m))
     if "drop" in parts and spec.drop is not None:
-        motion, n_drop, t0 = plan_drop(spec, scene.plan.model, scene.readout_s)
-        ctx = scene.context
+        motion, n_drop, t0 = scene.drop_plan()
         rng_d = scene.streams["drop"]
-        frames = (clip_frame(ctx, k, motion, rng=rng_d) for k in range(n_drop))
+        frames = (scene.drop_frame(k, rng=rng_d) for k in range(n_drop))
         _write_clip(out / "drop.mp4", _counting(frames, n_drop, "drop clip", tick), cam.image_size, spec.camera.fps)
-        tf = _true_frames(ctx, motion, n_drop)
+        tf = scene.true_drop_frames()
         vis_t = [f["t_mid_s"] for f in tf if f["visible"]]
         truth["drop"] = {
             "file": "drop.mp4",

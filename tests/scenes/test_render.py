@@ -355,3 +355,23 @@ def test_rerender_with_fewer_views_leaves_no_stale_views(tmp_path):
     spec1 = small_scene(lens=dataclasses.replace(spec3.lens, n_views=1))
     scene = render_scene(spec1, tmp_path, rng=0, parts=("lens",))
     assert sorted((tmp_path / "lens").glob("*.png")) == list(scene.lens_view_paths)
+
+
+def test_drop_clip_truth_lands_on_the_rendered_bb_and_falls_under_gravity():
+    from hopscope.scenes import DropSpec
+
+    spec = small_scene(image=CLEAN, lighting=FLAT, drop=DropSpec(release_m=(0.15, 0.05, 0.0), lead_frames=2,
+                                                                 n_frames=60))
+    scene = prepare_scene(spec, rng=0)
+    frames = _interior_frames(scene.true_drop_frames(), spec.camera.image_size)
+    assert len(frames) >= 50
+    for f in frames[::10]:
+        cu, cv = _bb_centroid(scene.drop_frame(f["frame"], quantise=False),
+                              scene.drop_frame(f["frame"], quantise=False, bb=False), f["u_px"], f["v_px"])
+        assert math.hypot(cu - f["u_px"], cv - f["v_px"]) < CENTROID_TOL_PX
+    # free fall from rest, drag negligible at < 0.3 m/s: y = y0 − g t²/2 (Galileo), to 0.1 %
+    t0 = scene.drop_plan()[2]
+    t = np.array([f["t_mid_s"] for f in frames]) - t0
+    y = np.array([f["y_m"] for f in frames])
+    g = scene.plan.model.gravity_mps2
+    assert np.allclose(0.05 - y, 0.5 * g * t**2, rtol=1e-3)
