@@ -11,8 +11,9 @@ sensor defect does not. The linker works frame by frame in image space:
 
 Closed tracks are then checked as projectiles: points that do not lie on a smooth path through their
 neighbours (a local quadratic in time, leave-one-out) are dropped as outliers; tracks that barely move,
-whose step length or direction jumps about, that turn by more than ``max_turn_rad`` or change speed by
-more than ``max_speed_change`` over their length, or that keep fewer than ``min_points`` points, are
+that wiggle about a smooth arc (a quadratic in time over ``arc_points`` consecutive points, by more than
+``max_wiggle`` times their noise), that turn by more than ``max_turn_rad`` or change speed by more than
+``max_speed_change`` over their length, or that keep fewer than ``min_points`` points, are
 rejected with the reason. Tracks of one BB broken by a gap are joined when one extrapolates onto the other.
 Each surviving track is one shot.
 
@@ -51,6 +52,11 @@ SIGMA_FLOOR_PX = 0.05
 #: A track that loses more than this fraction of its points as outliers is not a projectile.
 MAX_OUTLIER_FRACTION = 0.3
 
+#: Points per arc in the wiggle test, and the largest RMS of residuals about the arc, in units of the
+#: points' σ (floored at SIGMA_FLOOR_PX): a BB stays near 1 (2 on compressed video).
+ARC_POINTS = 15
+MAX_WIGGLE = 6.0
+
 #: Largest change of direction over a track, rad, and largest relative change of step length.
 MAX_TURN_RAD = math.radians(35.0)
 MAX_SPEED_CHANGE = 0.6
@@ -71,6 +77,8 @@ class LinkOptions:
     max_turn_rad: float = MAX_TURN_RAD
     max_speed_change: float = MAX_SPEED_CHANGE
     max_first_step_px: float = 400.0
+    arc_points: int = ARC_POINTS
+    max_wiggle: float = MAX_WIGGLE
 
 
 @dataclass(frozen=True)
@@ -131,6 +139,8 @@ def link(
     v_px: np.ndarray,
     sigma_px: np.ndarray,
     options: LinkOptions | None = None,
+    *,
+    world_xy: np.ndarray | None = None,
 ) -> LinkResult:
     """Link detections into tracks.
 
@@ -141,6 +151,8 @@ def link(
     u_px, v_px : (N,) positions, px.
     sigma_px : (N,) per-axis position uncertainty, px.
     options : tuning (defaults: :class:`LinkOptions`).
+    world_xy : (N, 2) positions on the flight plane, m, optional. The wiggle test then runs in the world,
+        where a flight is a true ballistic arc (in the image, lens distortion and perspective bend it).
 
     Returns
     -------
@@ -153,6 +165,11 @@ def link(
     v = np.asarray(v_px, dtype=float)
     sig = np.asarray(sigma_px, dtype=float)
     n = frame.size
+    arc_xy = None
+    if world_xy is not None:
+        arc_xy = np.asarray(world_xy, dtype=float)
+        if arc_xy.shape != (n, 2) or not np.all(np.isfinite(arc_xy)):
+            arc_xy = None
     if n == 0:
         return LinkResult(tracks=())
     order = np.argsort(frame, kind="stable")
@@ -214,7 +231,7 @@ def link(
     candidates = _join(candidates, frame, t, u, v, opt)
     results = []
     for idx in candidates:
-        results.append((idx, *_check(idx, frame, t, u, v, sig, opt)))
+        results.append((idx, *_check(idx, frame, t, u, v, sig, opt, arc_xy)))
     taken = np.zeros(n, bool)
     for _idx, keep, _out, reason in results:
         if not reason:
@@ -225,7 +242,7 @@ def link(
             continue
         grown = _extend(keep, taken, frame, t, u, v, sig, opt)
         if grown.size > keep.size:
-            keep2, out2, reason2 = _check(grown, frame, t, u, v, sig, opt)
+            keep2, out2, reason2 = _check(grown, frame, t, u, v, sig, opt, arc_xy)
             if not reason2:
                 taken[keep] = False
                 keep, out = keep2, np.concatenate([out, out2]).astype(np.int64)
@@ -337,7 +354,32 @@ def _loo_residuals(
     return res, spred
 
 
-def _check(idx: np.ndarray, frame, t, u, v, sig, opt: LinkOptions) -> tuple[np.ndarray, np.ndarray, str]:
+def _wiggle(tt: np.ndarray, uu: np.ndarray, vv: np.ndarray, ss: np.ndarray, arc: int) -> float:
+    """Largest RMS of normalised residuals about a quadratic arc fitted to ``arc`` consecutive points.
+
+    Over a short stretch a projectile's image path is a parabola in time to within its noise (gravity,
+    drag and lift change slowly); a wobbling insect or a fluttering leaf is not.
+    """
+    n = tt.size
+    w = min(arc, n)
+    if w < 5:
+        return 0.0
+    worst = 0.0
+    for start in sorted({*range(0, n - w + 1, max(1, w // 2)), n - w}):
+        sl = slice(start, start + w)
+        ts = tt[sl] - tt[sl].mean()
+        scale = max(float(np.max(np.abs(ts))), 1e-12)
+        x = np.vander(ts / scale, 3) / ss[sl, None]
+        for y in (uu[sl], vv[sl]):
+            coef, *_ = np.linalg.lstsq(x, y / ss[sl], rcond=None)
+            r = x @ coef - y / ss[sl]
+            worst = max(worst, math.sqrt(float(r @ r) / (w - 3)))
+    return worst
+
+
+def _check(
+    idx: np.ndarray, frame, t, u, v, sig, opt: LinkOptions, arc_xy: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, str]:
     """(kept indices, outlier indices, reason-or-empty) for one candidate track."""
     idx = idx[np.argsort(frame[idx], kind="stable")]
     if idx.size < opt.min_points:
@@ -363,6 +405,23 @@ def _check(idx: np.ndarray, frame, t, u, v, sig, opt: LinkOptions) -> tuple[np.n
         return idx, np.array(out), f"not a smooth path ({len(out)} of {idx.size} points off it)"
     if keep.size < opt.min_points:
         return idx, np.array(out), f"only {keep.size} points on a smooth path (need {opt.min_points})"
+    se = np.maximum(sig[keep], SIGMA_FLOOR_PX)
+    if arc_xy is not None and keep.size >= 2:
+        # σ in metres from the local scale (metres per pixel from neighbouring points' spacing)
+        step_m = np.hypot(*np.diff(arc_xy[keep], axis=0).T)
+        step_px = np.hypot(np.diff(u[keep]), np.diff(v[keep]))
+        m_per_px = float(np.median(step_m / np.maximum(step_px, 1e-9)))
+        wig = _wiggle(t[keep], arc_xy[keep, 0], arc_xy[keep, 1], se * m_per_px, opt.arc_points)
+    else:
+        wig = _wiggle(t[keep], u[keep], v[keep], se, opt.arc_points)
+    if wig > opt.max_wiggle:
+        return (
+            idx,
+            np.array(out),
+            (
+                f"wiggles: {wig:.1f} times its noise about a smooth arc (an insect or a leaf, not a projectile)"
+            ),
+        )
     du, dv = np.diff(u[keep]), np.diff(v[keep])
     df = np.maximum(np.diff(frame[keep]), 1)
     step = np.hypot(du, dv) / df

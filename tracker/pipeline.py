@@ -259,7 +259,7 @@ def track_video(
             )
 
     ok = [i for i, (d, _, _, _) in enumerate(dets) if d.ok]
-    chosen, res, pol_name = _choose_polarity(dets, ok, want, opt, info)
+    chosen, res, pol_name = _choose_polarity(dets, ok, want, opt, info, rig)
     in_shot = [-1] * len(dets)
     points: list[int] = []
     shot_of: list[int] = []
@@ -338,6 +338,7 @@ def _choose_polarity(
     want: int,
     opt: TrackOptions,
     info: VideoInfo,
+    rig: Rig,
 ) -> tuple[list[int], LinkResult, str]:
     """Link each polarity's detections; keep the polarity whose shots hold more points (auto)."""
     diag = math.hypot(info.width, info.height)
@@ -351,6 +352,7 @@ def _choose_polarity(
         sel = [i for i in ok if dets[i][1] == sign]
         if sel:
             d = [dets[i][0] for i in sel]
+            uv = np.array([[x.u_px, x.v_px] for x in d])
             res = link(
                 np.array([x.frame for x in d]),
                 np.array([dets[i][2] for i in sel]),
@@ -358,6 +360,7 @@ def _choose_polarity(
                 np.array([x.v_px for x in d]),
                 np.array([x.sigma_px for x in d]),
                 lopt,
+                world_xy=rig.pixel_to_world(uv),
             )
         else:
             res = LinkResult(tracks=())
