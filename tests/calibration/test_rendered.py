@@ -50,9 +50,8 @@ def _truth_rig(truth) -> Rig:
 
 
 @pytest.fixture(scope="module")
-def close_scene(tmp_path_factory):
-    spec = builtin_scene("lane-close")
-    scene = render_scene(spec, tmp_path_factory.mktemp("lane-close"), rng=0, parts=("lens", "plane"))
+def close_scene(rendered_close):
+    spec, scene = rendered_close
     b = scene.truth["board"]
     grid = GridSpec(b["cols"], b["rows"], b["square_m"])
     run = calibrate_files(

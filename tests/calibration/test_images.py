@@ -1,0 +1,151 @@
+"""Reading calibration inputs: view expansion, plane arguments, images, reading order, video sampling."""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+import cv2
+import numpy as np
+import pytest
+
+from calibration.grid import GridSpec, canonical_order, detect_grid, parse_grid, to_gray
+from calibration.images import (
+    check_plane_items,
+    detect_views,
+    expand_views,
+    parse_plane_arg,
+    read_image,
+    sample_video_views,
+)
+
+SPEC = GridSpec(5, 4, 0.03)
+
+
+def _grid_points(spec, origin=(100.0, 50.0), step=20.0):
+    c, r = np.meshgrid(np.arange(spec.cols), np.arange(spec.rows))
+    return np.column_stack([origin[0] + step * c.ravel(), origin[1] + step * r.ravel()])
+
+
+def test_canonical_order_undoes_flips():
+    want = _grid_points(SPEC)
+    g = want.reshape(SPEC.rows, SPEC.cols, 2)
+    for flipped in (g[:, ::-1], g[::-1, :], g[::-1, ::-1]):
+        np.testing.assert_array_equal(canonical_order(flipped.reshape(-1, 2), SPEC), want)
+
+
+def test_canonical_order_rejects_board_turned_90_degrees():
+    pts = _grid_points(SPEC)[:, ::-1]  # rows now run down the image
+    with pytest.raises(ValueError, match=r"rows run vertically .* --grid should be 4x5"):
+        canonical_order(pts, SPEC)
+
+
+def test_parse_grid_and_spec_checks():
+    assert parse_grid("11x6") == (11, 6) and parse_grid(" 9 X 7 ") == (9, 7)
+    with pytest.raises(ValueError, match="--grid: expected COLSxROWS"):
+        parse_grid("11,6")
+    with pytest.raises(ValueError, match="--grid: need at least 3x3"):
+        GridSpec(2, 6, 0.1)
+    with pytest.raises(ValueError, match="--square-mm"):
+        GridSpec(5, 4, -1.0)
+
+
+def test_board_points_follow_world_frame():
+    pts = SPEC.board_points(2.0)
+    assert pts[0].tolist() == [2.0, 0.0, 0.0]
+    assert pts[1, 0] == pytest.approx(2.03) and pts[SPEC.cols, 1] == pytest.approx(-0.03)  # x right, y up
+
+
+def test_expand_views_folders_globs_and_missing(tmp_path):
+    for name in ("b.png", "a.jpg", "notes.txt"):
+        (tmp_path / name).write_bytes(b"x")
+    got = expand_views([str(tmp_path)])
+    assert [s.path.name for s in got] == ["a.jpg", "b.png"]
+    assert [s.path.name for s in expand_views([str(tmp_path / "*.png")])] == ["b.png"]
+    with pytest.raises(FileNotFoundError, match=r"\*\.tif: the pattern matches no files"):
+        expand_views([str(tmp_path / "*.tif")])
+    with pytest.raises(FileNotFoundError, match="gone.png: no such file or folder"):
+        expand_views([str(tmp_path / "gone.png")])
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    with pytest.raises(ValueError, match="the folder holds no images"):
+        expand_views([str(empty)])
+
+
+def test_parse_plane_arg(tmp_path):
+    assert parse_plane_arg("p.png") == (parse_plane_arg("p.png")[0], 0.0)
+    path, off = parse_plane_arg("far/p.png:12.5")
+    assert str(path) == "far/p.png" and off == 12.5
+    with pytest.raises(ValueError, match=r"--plane p.png:abc: the offset 'abc' is not a number"):
+        parse_plane_arg("p.png:abc")
+    with pytest.raises(ValueError, match="not a finite number"):
+        parse_plane_arg("p.png:nan")
+    odd = tmp_path / "a:b.png"  # an existing file whose name holds a colon is taken whole
+    odd.write_bytes(b"x")
+    assert parse_plane_arg(str(odd)) == (odd, 0.0)
+    with pytest.raises(FileNotFoundError, match="no such plane image"):
+        check_plane_items([(tmp_path / "none.png", 0.0)])
+
+
+def test_read_image_errors(tmp_path):
+    bad = tmp_path / "bad.png"
+    bad.write_bytes(b"\x89PNG garbage")
+    with pytest.raises(OSError, match=r"bad\.png: cannot read the image"):
+        read_image(bad)
+    with pytest.raises(FileNotFoundError, match="no such image file"):
+        read_image(tmp_path / "missing.png")
+    colour = np.zeros((4, 6, 3), np.uint8)
+    assert to_gray(colour).shape == (4, 6)
+    assert to_gray(np.full((4, 6), 65535, np.uint16)).max() == 255
+
+
+@pytest.mark.slow
+def test_video_of_lens_views_is_sampled_and_calibrates(rendered_close, tmp_path):
+    import av
+
+    from calibration.lens import ViewPoints, calibrate_lens
+
+    spec, scene = rendered_close
+    b = scene.truth["board"]
+    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
+    imgs = [cv2.imread(str(p), cv2.IMREAD_GRAYSCALE) for p in scene.lens_view_paths]
+    video = tmp_path / "views.mkv"
+    with av.open(str(video), "w") as out:
+        stream = out.add_stream("ffv1", rate=Fraction(30))
+        stream.width, stream.height, stream.pix_fmt = imgs[0].shape[1], imgs[0].shape[0], "gray"
+        for img in imgs + imgs[:3]:  # three repeated views: the varied-view selection drops repeats
+            for pkt in stream.encode(av.VideoFrame.from_ndarray(img, format="gray")):
+                out.mux(pkt)
+        for pkt in stream.encode():
+            out.mux(pkt)
+    dets, size = sample_video_views(video, grid, max_views=len(imgs))
+    found = [d for d in dets if d.found]
+    assert size == (1280, 720)
+    assert len(found) == len(imgs)
+    assert all("#" in d.source for d in dets)
+    assert sum("similar to another view" in d.reason for d in dets) == 3
+    lens = calibrate_lens([ViewPoints(d.source, d.corners, grid.board_points()) for d in found], size)
+    f_true = scene.truth["camera"]["camera_matrix"][0][0]
+    assert abs(lens.camera_matrix[0, 0] - f_true) / f_true < 2e-3
+    # the same through detect_views (file list with a video in it)
+    all_dets, size2 = detect_views(expand_views([str(video)]), grid)
+    assert size2 == size and len(all_dets) == len(imgs) + 3
+
+
+@pytest.mark.slow
+def test_detected_plane_corners_are_in_reading_order(rendered_close):
+    _, scene = rendered_close
+    b = scene.truth["board"]
+    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
+    path, _ = scene.plane_views[0]
+    det = detect_grid(read_image(path), grid, reading_order=True)
+    c = scene.truth["camera"]
+    pv = scene.truth["plane_views"][0]
+    rvec, _ = cv2.Rodrigues(np.array(pv["rotation"]))
+    want, _ = cv2.projectPoints(
+        grid.board_points().reshape(-1, 1, 3),
+        rvec,
+        np.array(pv["translation"]),
+        np.array(c["camera_matrix"]),
+        np.array(c["dist_coeffs"]),
+    )
+    assert np.max(np.linalg.norm(det.corners - want.reshape(-1, 2), axis=1)) < 0.3
