@@ -1,0 +1,379 @@
+"""BB profile: drag coefficient vs Reynolds number and lift vs spin ratio (or speed), for one BB type.
+
+From shots of one BB type at different speeds:
+
+- **drag**: the shots are binned by the Reynolds number at their first tracked point; each bin is fitted
+  jointly (shared C_D, the spin decay fixed at the all-shot fit's value) → C_D ± σ per bin, with the bin's
+  Reynolds-number span and mean;
+- **lift**: every shot's C_L at its first point, from the all-shot joint fit, against its Reynolds number
+  and speed; against the spin ratio S = rω/u only where the spin is known (measured ``spin_radps`` per
+  shot). A trajectory fixes the lift force, not the spin (under the linear law only k·ω₀), so without a
+  measured spin the profile says so instead of inventing S.
+
+Files: ``profile.json`` (schema ``hopscope.profile/1``) and a CSV with the same rows (``kind`` = drag or
+lift) and ``#`` header lines (schema, BB, air, notes, warnings), both loadable by a trajectory simulator.
+
+Notes
+-----
+Reynolds number Re = ρ u d / μ at the shot's first tracked point (air-relative speed).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import os
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .air import Air
+from .bb import BB
+from .estimate import fit_shots
+from .laws import reynolds_number
+from .observe import ShotData
+
+SCHEMA = "hopscope.profile/1"
+DEFAULT_BINS = 4
+CSV_COLUMNS = (
+    "kind", "label", "re_lo", "re_hi", "re", "speed_mps", "spin_ratio", "coefficient", "stderr", "n_shots",
+)  # fmt: skip
+
+
+@dataclass(frozen=True)
+class DragBin:
+    """C_D of one Reynolds-number bin (SI; Re dimensionless)."""
+
+    re_lo: float
+    re_hi: float
+    re: float
+    speed_mps: float
+    cd: float | None
+    cd_stderr: float | None
+    n_shots: int
+    converged: bool
+
+
+@dataclass(frozen=True)
+class LiftPoint:
+    """C_L at one shot's first tracked point; ``spin_ratio`` None unless the spin was measured."""
+
+    label: str
+    re: float
+    speed_mps: float
+    spin_ratio: float | None
+    cl: float | None
+    cl_stderr: float | None
+
+
+@dataclass(frozen=True)
+class BBProfile:
+    """A BB type's local aerodynamic profile (SI).
+
+    Attributes
+    ----------
+    label : name of the BB type. mass_kg, diameter_m : the BB. density_kgm3, viscosity_pas : the air.
+    drag : C_D per Reynolds-number bin. lift : C_L per shot.
+    spin_decay_time_s, spin_decay_time_stderr_s : τ from the all-shot fit (None where undetermined).
+    notes, warnings : one line each.
+    """
+
+    label: str
+    mass_kg: float
+    diameter_m: float
+    density_kgm3: float
+    viscosity_pas: float
+    drag: tuple[DragBin, ...]
+    lift: tuple[LiftPoint, ...]
+    spin_decay_time_s: float | None
+    spin_decay_time_stderr_s: float | None
+    notes: tuple[str, ...]
+    warnings: tuple[str, ...]
+
+
+def _edges(re: np.ndarray, n_bins: int) -> np.ndarray:
+    n_bins = max(1, min(n_bins, re.size))
+    q = np.quantile(re, np.linspace(0, 1, n_bins + 1))
+    q[0] *= 1 - 1e-9
+    q[-1] *= 1 + 1e-9
+    return np.unique(q)
+
+
+def build_profile(
+    shots: Sequence[ShotData],
+    *,
+    bb: BB,
+    air: Air,
+    label: str = "",
+    re_edges: Sequence[float] | None = None,
+    n_bins: int = DEFAULT_BINS,
+    spin_radps: Sequence[float | None] | None = None,
+    lift: str = "linear",
+) -> BBProfile:
+    """Build a BB profile from shots of one BB type (see the module docstring).
+
+    Parameters
+    ----------
+    shots : tracked shots of one BB type, at different speeds.
+    bb, air : the BB and the air.
+    label : name of the BB type (for the files).
+    re_edges : Reynolds-number bin edges (ascending); default ``n_bins`` bins with equal shot counts.
+    n_bins : number of bins when ``re_edges`` is not given.
+    spin_radps : measured spin at each shot's first tracked point, rad/s (None entries: not measured).
+    lift : lift law for the fits.
+    """
+    shots = tuple(shots)
+    if len(shots) < 2:
+        raise ValueError("shots: a profile needs at least two shots")
+    if spin_radps is not None and len(spin_radps) != len(shots):
+        raise ValueError(f"spin_radps: expected {len(shots)} entries (one per shot), got {len(spin_radps)}")
+    allfit = fit_shots(shots, bb=bb, air=air, lift=lift)
+    warnings = [f"all shots: {w}" for w in allfit.warnings]
+    if not allfit.converged:
+        warnings.append(f"all-shot fit did not converge: {allfit.reason}")
+    speeds = np.array([s.speed_mps.value for s in allfit.shots], dtype=float)
+    re = np.asarray(reynolds_number(speeds, bb.diameter_m, air.density_kgm3, air.viscosity_pas), dtype=float)
+    if re_edges is None:
+        edges = _edges(re, n_bins)
+    else:
+        edges = np.asarray(re_edges, dtype=float)
+        if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0) or not np.all(np.isfinite(edges)):
+            raise ValueError("re_edges: expected at least two finite, strictly ascending Reynolds numbers")
+    decay_value = float(allfit.parameter_values[-1])
+    bins = []
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        members = [i for i in range(len(shots)) if lo <= re[i] < hi or (hi == edges[-1] and re[i] == hi)]
+        if not members:
+            continue
+        f = fit_shots([shots[i] for i in members], bb=bb, air=air, lift=lift, decay_fixed=decay_value)
+        if not f.converged:
+            warnings.append(f"Re {lo:.4g}..{hi:.4g}: fit did not converge: {f.reason}")
+        bins.append(
+            DragBin(
+                re_lo=float(lo),
+                re_hi=float(hi),
+                re=float(np.mean(re[members])),
+                speed_mps=float(np.mean(speeds[members])),
+                cd=f.drag_coefficient.value,
+                cd_stderr=f.drag_coefficient.stderr,
+                n_shots=len(members),
+                converged=f.converged,
+            )
+        )
+    lift_pts = []
+    measured = 0
+    for i, s in enumerate(allfit.shots):
+        w = None if spin_radps is None else spin_radps[i]
+        ratio = None
+        if w is not None:
+            if not math.isfinite(w):
+                raise ValueError(f"spin_radps[{i}]: expected a finite spin, got {w!r}")
+            ratio = bb.radius_m * float(w) / speeds[i]
+            measured += 1
+        lift_pts.append(
+            LiftPoint(
+                s.label,
+                float(re[i]),
+                float(speeds[i]),
+                ratio,
+                s.lift_coefficient.value,
+                s.lift_coefficient.stderr,
+            )
+        )
+    notes = [
+        "drag: C_D per Reynolds-number bin (Re at the first tracked point), each bin fitted jointly",
+        "lift: C_L at each shot's first tracked point from the all-shot joint fit",
+    ]
+    if measured < len(shots):
+        notes.append(
+            "spin not measured for "
+            + (f"{len(shots) - measured} shots" if measured else "any shot")
+            + ": their C_L is given against Re and speed only (a trajectory fixes the lift force, not the "
+            "spin; under the linear law S = C_L/k for an assumed k)"
+        )
+    tau = allfit.spin_decay_time_s
+    return BBProfile(
+        label=label,
+        mass_kg=bb.mass_kg,
+        diameter_m=bb.diameter_m,
+        density_kgm3=air.density_kgm3,
+        viscosity_pas=air.viscosity_pas,
+        drag=tuple(bins),
+        lift=tuple(lift_pts),
+        spin_decay_time_s=tau.value,
+        spin_decay_time_stderr_s=tau.stderr,
+        notes=tuple(notes),
+        warnings=tuple(warnings),
+    )
+
+
+# ---------------------------------------------------------------------------------------------- files
+
+
+def _num(x: float | None) -> float | None:
+    return None if x is None or not math.isfinite(x) else float(x)
+
+
+def profile_to_dict(p: BBProfile) -> dict[str, Any]:
+    return {
+        "schema": SCHEMA,
+        "label": p.label,
+        "bb": {"mass_kg": p.mass_kg, "diameter_m": p.diameter_m},
+        "air": {"density_kgm3": p.density_kgm3, "viscosity_pas": p.viscosity_pas},
+        "drag": [
+            {
+                "re_lo": b.re_lo,
+                "re_hi": b.re_hi,
+                "re": b.re,
+                "speed_mps": b.speed_mps,
+                "drag_coefficient": {"value": _num(b.cd), "stderr": _num(b.cd_stderr)},
+                "n_shots": b.n_shots,
+                "converged": b.converged,
+            }
+            for b in p.drag
+        ],
+        "lift": [
+            {
+                "label": lp.label,
+                "re": lp.re,
+                "speed_mps": lp.speed_mps,
+                "spin_ratio": _num(lp.spin_ratio),
+                "lift_coefficient": {"value": _num(lp.cl), "stderr": _num(lp.cl_stderr)},
+            }
+            for lp in p.lift
+        ],
+        "spin_decay_time_s": {"value": _num(p.spin_decay_time_s), "stderr": _num(p.spin_decay_time_stderr_s)},
+        "notes": list(p.notes),
+        "warnings": list(p.warnings),
+    }
+
+
+def profile_to_json(p: BBProfile) -> str:
+    """``profile.json`` text (schema ``hopscope.profile/1``)."""
+    return json.dumps(profile_to_dict(p), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def _cell(x: Any) -> str:
+    if x is None:
+        return ""
+    if isinstance(x, float):
+        return repr(x)
+    text = str(x)
+    if any(c in text for c in ',"\n'):
+        text = '"' + text.replace('"', '""') + '"'
+    return text
+
+
+def profile_to_csv(p: BBProfile) -> str:
+    """Profile CSV text: ``#`` header lines, then one row per drag bin and per lift point."""
+    out = io.StringIO()
+    out.write(f"# schema: {SCHEMA}\n")
+    out.write(f"# label: {p.label}\n")
+    out.write(f"# bb: mass_kg={p.mass_kg!r} diameter_m={p.diameter_m!r}\n")
+    out.write(f"# air: density_kgm3={p.density_kgm3!r} viscosity_pas={p.viscosity_pas!r}\n")
+    if p.spin_decay_time_s is not None:
+        out.write(f"# spin_decay_time_s: {p.spin_decay_time_s!r} +- {p.spin_decay_time_stderr_s!r}\n")
+    for n in p.notes:
+        out.write(f"# note: {n}\n")
+    for w in p.warnings:
+        out.write(f"# warning: {w}\n")
+    out.write(",".join(CSV_COLUMNS) + "\n")
+    for b in p.drag:
+        row = [
+            "drag",
+            "",
+            b.re_lo,
+            b.re_hi,
+            b.re,
+            b.speed_mps,
+            None,
+            _num(b.cd),
+            _num(b.cd_stderr),
+            b.n_shots,
+        ]
+        out.write(",".join(_cell(v) for v in row) + "\n")
+    for lp in p.lift:
+        row = ["lift", lp.label, None, None, lp.re, lp.speed_mps, _num(lp.spin_ratio), _num(lp.cl),
+               _num(lp.cl_stderr), 1]  # fmt: skip
+        out.write(",".join(_cell(v) for v in row) + "\n")
+    return out.getvalue()
+
+
+def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
+    """Parse and validate ``profile.json`` text; errors name ``source`` and the key."""
+    try:
+        d = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise ValueError(f"{source}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
+    if not isinstance(d, dict) or d.get("schema") != SCHEMA:
+        got = d.get("schema") if isinstance(d, dict) else None
+        raise ValueError(f"{source}: key schema: expected {SCHEMA!r}, got {got!r}")
+
+    def num(obj, key, where, null=False):
+        if not isinstance(obj, dict) or key not in obj:
+            raise ValueError(f"{source}: key {where}.{key}: missing")
+        v = obj[key]
+        if v is None and null:
+            return None
+        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+            raise ValueError(f"{source}: key {where}.{key}: expected a finite number, got {v!r}")
+        return float(v)
+
+    def est(obj, key, where):
+        if not isinstance(obj, dict) or not isinstance(obj.get(key), dict):
+            raise ValueError(f"{source}: key {where}.{key}: expected an estimate {{value, stderr}}")
+        e = obj[key]
+        return num(e, "value", f"{where}.{key}", True), num(e, "stderr", f"{where}.{key}", True)
+
+    for key in ("drag", "lift", "notes", "warnings"):
+        if not isinstance(d.get(key), list):
+            raise ValueError(f"{source}: key {key}: expected a list")
+    bins = []
+    for i, b in enumerate(d["drag"]):
+        w = f"drag[{i}]"
+        cd, cds = est(b, "drag_coefficient", w)
+        bins.append(DragBin(num(b, "re_lo", w), num(b, "re_hi", w), num(b, "re", w), num(b, "speed_mps", w),
+                            cd, cds, int(num(b, "n_shots", w)), bool(b.get("converged", True))))  # fmt: skip
+    pts = []
+    for i, lp in enumerate(d["lift"]):
+        w = f"lift[{i}]"
+        cl, cls = est(lp, "lift_coefficient", w)
+        pts.append(LiftPoint(str(lp.get("label", "")), num(lp, "re", w), num(lp, "speed_mps", w),
+                             num(lp, "spin_ratio", w, True), cl, cls))  # fmt: skip
+    tau, taus = est(d, "spin_decay_time_s", "(top)")
+    return BBProfile(
+        label=str(d.get("label", "")),
+        mass_kg=num(d.get("bb"), "mass_kg", "bb"),
+        diameter_m=num(d.get("bb"), "diameter_m", "bb"),
+        density_kgm3=num(d.get("air"), "density_kgm3", "air"),
+        viscosity_pas=num(d.get("air"), "viscosity_pas", "air"),
+        drag=tuple(bins),
+        lift=tuple(pts),
+        spin_decay_time_s=tau,
+        spin_decay_time_stderr_s=taus,
+        notes=tuple(str(n) for n in d["notes"]),
+        warnings=tuple(str(w) for w in d["warnings"]),
+    )
+
+
+def read_profile(path: str | os.PathLike[str]) -> BBProfile:
+    """Read and validate a ``profile.json`` file."""
+    p = Path(path)
+    return profile_from_json(p.read_text(encoding="utf-8"), str(p))
+
+
+__all__ = [
+    "SCHEMA",
+    "BBProfile",
+    "DragBin",
+    "LiftPoint",
+    "build_profile",
+    "profile_from_json",
+    "profile_to_csv",
+    "profile_to_json",
+    "read_profile",
+]
