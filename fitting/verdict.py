@@ -11,6 +11,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from .air import Air
 from .bb import BB
 from .constants import STANDARD_GRAVITY_MPS2
@@ -89,3 +91,50 @@ def judge_hop(ratio: float, ratio_stderr: float) -> HopVerdict:
     return HopVerdict(
         "flat", ratio, ratio_stderr, "Flat", f"{band}; lift about balances weight near the muzzle."
     )
+
+
+@dataclass(frozen=True, eq=False)
+class LiftProfile:
+    """Speed and lift-to-weight ratio along a fitted shot's nominal path (SI).
+
+    Attributes
+    ----------
+    x_m : (m,) downrange distance, m. speed_mps : (m,) speed, m/s. lift_coefficient : (m,) C_L.
+    ratio : (m,) Magnus lift over weight.
+    """
+
+    x_m: np.ndarray
+    speed_mps: np.ndarray
+    lift_coefficient: np.ndarray
+    ratio: np.ndarray
+
+
+def lift_profile(fit, *, shot: int = 0, range_m: float = 50.0, points: int = 200) -> LiftProfile:
+    """Lift-to-weight ratio and speed along the nominal path of one fitted shot out to ``range_m``.
+
+    ``fit`` is a FlightFit, FitFile or FittedModel. The lift coefficient at each point is the lift law at
+    the spin ratio S = r ω / u of the integrated state.
+    """
+    from .flight import fly
+    from .observe import flight_for
+    from .predict import check_shot, fitted_model_of, flight_time_to, shot_rows
+
+    fm = fitted_model_of(fit)
+    check_shot(fm, shot)
+    if not (math.isfinite(range_m) and range_m > 0):
+        raise ValueError(f"range_m must be positive, got {range_m!r}")
+    rows = shot_rows(fm, fm.theta[None, :], shot)
+    model, launch = flight_for(fm.spec, rows)
+    traj = fly(model, launch, flight_time_to(fm, rows, range_m))
+    t = np.linspace(0.0, traj.t_s[-1], points)
+    st = traj.sample(t)[0]
+    keep = st[:, 0] <= range_m
+    st = st[keep]
+    u_vec = st[:, 3:6] - np.asarray(model.wind_mps)
+    u = np.linalg.norm(u_vec, axis=1)
+    s = model.bb.radius_m * st[:, 6] / u
+    cl = np.asarray(model.lift.coefficient(s), dtype=float) * np.ones_like(u)
+    ratio = (
+        0.5 * model.air.density_kgm3 * model.bb.area_m2 * cl * u**2 / (model.bb.mass_kg * model.gravity_mps2)
+    )
+    return LiftProfile(st[:, 0], np.linalg.norm(st[:, 3:6], axis=1), cl, ratio)

@@ -27,6 +27,10 @@ def atomic_path(final: str | os.PathLike[str]) -> Iterator[Path]:
     fd, tmp_name = tempfile.mkstemp(prefix=f".{final.stem}.", suffix=f".partial{final.suffix}", dir=parent)
     os.close(fd)
     tmp = Path(tmp_name)
+    # mkstemp creates 0600; give the file the permissions a plain open() would (0666 minus the umask)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield tmp
         os.replace(tmp, final)
