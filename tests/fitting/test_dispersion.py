@@ -1,0 +1,93 @@
+"""Effective range: Monte Carlo against the normal-distribution closed form, spread bookkeeping, errors."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.stats import norm
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.dispersion import effective_range, shot_spread
+from fitting.estimate import FittedModel, parameter_names
+from fitting.flight import fly
+from fitting.observe import ModelSpec, flight_for
+from fitting.predict import heights_at, shot_rows
+
+SPEC = ModelSpec(BB(2.5e-4), Air.standard())
+SIGMA_EL_RAD = 0.004
+#: Monte Carlo (4000 shots) against the closed form: the 90 % point of the fraction moves ~1 % with
+#: 4000 shots; 4 % is a real check.
+RANGE_REL_TOL = 0.04
+
+
+def _model(elevations, speeds=None, cov_scale=0.0):
+    n = len(elevations)
+    theta = []
+    for i, el in enumerate(elevations):
+        v = 100.0 if speeds is None else speeds[i]
+        theta += [0.0, 0.0, v, el, 0.015]
+    theta += [0.45, 1 / 3]
+    p = 5 * n + 2
+    cov = np.eye(p) * cov_scale
+    return FittedModel(SPEC, parameter_names(SPEC, n), np.array(theta), np.ones(p, dtype=bool), cov,
+                       tuple(f"s{i}" for i in range(n)), np.zeros(n))  # fmt: skip
+
+
+def _exact_elevations(n, sigma, seed=0):
+    z = np.random.default_rng(seed).standard_normal(n)
+    return (z - z.mean()) / z.std(ddof=1) * sigma
+
+
+def test_elevation_spread_matches_the_normal_closed_form():
+    fm = _model(_exact_elevations(50, SIGMA_EL_RAD))
+    res = effective_range(fm, n_shots=4000, include_parameter_uncertainty=False, max_range_m=60.0, rng=2)
+    # closed form: heights at x spread normally with σ_y(x) = |∂y/∂θ|(x)·σ_θ; 90 % inside ±D/2 when
+    # σ_y = (D/2)/z_0.95 (z from scipy.stats.norm)
+    x = np.linspace(1.0, 60.0, 400)
+    h = 1e-6
+    th = np.tile(fm.theta, (2, 1))
+    th[0, 3] += h
+    th[1, 3] -= h
+    model, launch = flight_for(SPEC, shot_rows(fm, th, 0))
+    ys, _ = heights_at(fly(model, launch, 2.0), x)
+    sigma_y = np.abs(ys[0] - ys[1]) / (2 * h) * SIGMA_EL_RAD
+    target = 0.15 / norm.ppf(0.95)
+    x_exact = float(np.interp(target, sigma_y, x))
+    assert res.effective_range_m == pytest.approx(x_exact, rel=RANGE_REL_TOL)
+    assert res.state_cov[1, 1] == pytest.approx(SIGMA_EL_RAD**2, rel=1e-9)
+    assert np.all(np.diff(res.spread_sd_m[np.isfinite(res.spread_sd_m)]) > 0)
+
+
+def test_measurement_noise_is_not_counted_as_spread():
+    # shots that agree within their own error bars: no real spread left, the group stays in the target
+    fm = _model(_exact_elevations(10, 1e-4), cov_scale=1e-6)
+    mean, cov = shot_spread(fm)
+    assert np.allclose(cov, 0.0)
+    res = effective_range(fm, include_parameter_uncertainty=False, max_range_m=40.0, rng=1)
+    assert res.effective_range_m is None and "beyond 40 m" in res.reason
+
+
+def test_parameter_uncertainty_gives_a_stderr():
+    fm = _model(_exact_elevations(20, SIGMA_EL_RAD), cov_scale=1e-8)
+    res = effective_range(fm, n_shots=2000, max_range_m=60.0, rng=3)
+    assert res.effective_range_stderr_m is not None and res.effective_range_stderr_m > 0
+    assert res.n_shots == 2000 and res.n_fitted_shots == 20
+
+
+def test_one_shot_cannot_give_a_spread():
+    res = effective_range(_model([0.0]), rng=0)
+    assert res.effective_range_m is None and "at least two fitted shots" in res.reason
+
+
+@pytest.mark.parametrize(
+    ("kw", "match"),
+    [
+        ({"target_diameter_m": 0.0}, "target_diameter_m must be positive"),
+        ({"hit_fraction": 1.0}, "hit_fraction must lie strictly between 0 and 1"),
+        ({"n_shots": 10}, "n_shots must be at least 100"),
+    ],
+)
+def test_bad_arguments(kw, match):
+    with pytest.raises(ValueError, match=match):
+        effective_range(_model([0.0, 0.001]), **kw)

@@ -1,0 +1,107 @@
+"""BB profile: C_D per Re bin against the Clift-Grace-Weber curve of the `fluids` library, lift points,
+files and errors."""
+
+from __future__ import annotations
+
+import json
+
+import fluids.drag
+import numpy as np
+import pytest
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.observe import ModelSpec, simulate_shot
+from fitting.profile import (
+    SCHEMA,
+    build_profile,
+    profile_from_json,
+    profile_to_csv,
+    profile_to_json,
+    read_profile,
+)
+
+BB_025 = BB(2.5e-4)
+AIR = Air.standard()
+SPEEDS = (60.0, 80.0, 100.0, 120.0)
+#: Allowance for the bin's C_D being an average over the tracked span rather than the value at its start.
+SPAN_AVERAGE_TOL = 0.003
+
+
+@pytest.fixture(scope="module")
+def shots():
+    spec = ModelSpec(BB_025, AIR, drag="sphere")
+    rng = np.random.default_rng(0)
+    return [
+        simulate_shot(spec, t_s=np.arange(60) / 2000.0, sigma_m=3e-4, rng=rng, speed_mps=v, elevation_rad=0.0,
+                      lift_coefficient=0.02, drag_param=1.0, decay_param=1 / 3, label=f"v{v:.0f}#{k}")
+        for v in SPEEDS for k in range(2)
+    ]  # fmt: skip
+
+
+@pytest.fixture(scope="module")
+def profile(shots):
+    spins = [None] * 6 + [2500.0, 2600.0]
+    return build_profile(shots, bb=BB_025, air=AIR, label="demo 0.25 g", n_bins=4, spin_radps=spins)
+
+
+def test_drag_bins_follow_the_published_sphere_curve(profile):
+    # reference: Clift, Grace & Weber (1978), Bubbles, Drops and Particles, Table 5.2, as implemented in
+    # the `fluids` library (fluids.drag.Clift) — the data were made with the same law times 1.0
+    assert len(profile.drag) == 4
+    for b in profile.drag:
+        ref = fluids.drag.Clift(b.re)
+        assert abs(b.cd - ref) < 3 * b.cd_stderr + SPAN_AVERAGE_TOL, (b.re, b.cd, ref)
+        assert b.n_shots == 2 and b.re_lo <= b.re <= b.re_hi
+    res = [b.re for b in profile.drag]
+    assert res == sorted(res)
+
+
+def test_lift_points_say_where_spin_is_known(profile):
+    assert len(profile.lift) == 8
+    assert all(lp.spin_ratio is None for lp in profile.lift[:6])
+    last = profile.lift[-1]
+    assert last.spin_ratio == pytest.approx(BB_025.radius_m * 2600.0 / last.speed_mps)
+    assert any("spin not measured for 6 shots" in n for n in profile.notes)
+    for lp in profile.lift:
+        assert abs(lp.cl - 0.02) < 4 * lp.cl_stderr
+
+
+def test_files_round_trip_and_carry_the_schema(profile, tmp_path):
+    text = profile_to_json(profile)
+    assert json.loads(text)["schema"] == SCHEMA
+    p = tmp_path / "profile.json"
+    p.write_text(text, encoding="utf-8")
+    back = read_profile(p)
+    assert back.drag == profile.drag and back.lift == profile.lift and back.notes == profile.notes
+    csv = profile_to_csv(profile).splitlines()
+    assert csv[0] == f"# schema: {SCHEMA}"
+    header = next(line for line in csv if not line.startswith("#"))
+    assert header.split(",")[:2] == ["kind", "label"]
+    rows = [line.split(",") for line in csv if line.startswith(("drag", "lift"))]
+    assert sum(r[0] == "drag" for r in rows) == 4 and sum(r[0] == "lift" for r in rows) == 8
+    assert float(rows[0][7]) == pytest.approx(profile.drag[0].cd)
+
+
+@pytest.mark.parametrize(
+    ("mutate", "match"),
+    [
+        (lambda d: d.update(schema="hopscope.profile/2"), r"p.json: key schema"),
+        (lambda d: d["drag"][0].update(re="x"), r"p.json: key drag\[0\].re: expected a finite number"),
+        (lambda d: d.pop("lift"), r"p.json: key lift: expected a list"),
+    ],
+)
+def test_bad_profile_files(profile, mutate, match):
+    d = json.loads(profile_to_json(profile))
+    mutate(d)
+    with pytest.raises(ValueError, match=match):
+        profile_from_json(json.dumps(d), "p.json")
+
+
+def test_bad_inputs(shots):
+    with pytest.raises(ValueError, match="at least two shots"):
+        build_profile(shots[:1], bb=BB_025, air=AIR)
+    with pytest.raises(ValueError, match="spin_radps: expected 8 entries"):
+        build_profile(shots, bb=BB_025, air=AIR, spin_radps=[1.0])
+    with pytest.raises(ValueError, match="re_edges"):
+        build_profile(shots, bb=BB_025, air=AIR, re_edges=[3e4, 2e4])
