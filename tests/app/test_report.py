@@ -1,0 +1,129 @@
+"""The HTML report: content, escaping, figures, and the page as a real browser shows it."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from markupsafe import escape
+
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.estimate import fit_shots
+from fitting.fitfile import fit_to_json
+from fitting.observe import ModelSpec, simulate_shot
+from hopscope import cli
+from hopscope.report import CAUTIONS, figures, load_report_inputs, render_report
+
+from .browser import open_report
+
+ROOT = Path(__file__).resolve().parents[2]
+ARTIFACTS = ROOT / "test-artifacts"
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+N_FIGURES = 4
+
+
+@pytest.fixture(scope="module")
+def fit_json(tmp_path_factory) -> Path:
+    """A converged two-shot fit of simulated tracks (the report needs nothing but fit.json)."""
+    spec = ModelSpec(BB(2.8e-4), Air.standard())
+    shots = [
+        simulate_shot(
+            spec,
+            t_s=np.linspace(0.010, 0.040, 60),
+            speed_mps=v,
+            elevation_rad=0.004,
+            lift_coefficient=0.02,
+            drag_param=0.42,
+            decay_param=0.5,
+            sigma_m=3e-4,
+            rng=i,
+            label=f"lane<b>#{i}",
+        )
+        for i, v in enumerate((94.0, 96.0))
+    ]
+    fit = fit_shots(shots, bb=spec.bb, air=spec.air)
+    path = tmp_path_factory.mktemp("report") / "fit.json"
+    path.write_text(fit_to_json(fit))
+    return path
+
+
+def test_report_has_cautions_table_and_figures(fit_json):
+    html = render_report(load_report_inputs(fit_json, range_m=40.0))
+    for caution in CAUTIONS:
+        assert str(escape(caution)) in html
+    assert 'id="parameters"' in html
+    assert len(re.findall(r'<img src="data:image/png;base64,', html)) == N_FIGURES
+    assert "drag coefficient C_D" in html
+
+
+def test_labels_are_escaped(fit_json):
+    html = render_report(load_report_inputs(fit_json, title="<script>alert(1)</script>"))
+    assert "<script>alert(1)</script>" not in html
+    assert "&lt;script&gt;" in html
+    assert "lane<b>#0" not in html and "lane&lt;b&gt;#0" in html
+
+
+def test_bad_range_is_rejected(fit_json):
+    with pytest.raises(ValueError, match="--range-m"):
+        load_report_inputs(fit_json, range_m=-1.0)
+
+
+def test_figures_render_png():
+    x = np.linspace(0, 40, 50)
+    png = figures.range_figure(
+        x, -0.001 * x**2, -0.001 * x**2 - 0.01, -0.001 * x**2 + 0.01, launch_height_m=0.0
+    )
+    assert png.startswith(PNG_MAGIC) and len(png) > 5000
+    png = figures.speed_lift_figure(x, 95 - x, 1.2 - 0.02 * x)
+    assert png.startswith(PNG_MAGIC)
+
+
+def test_report_command_writes_file_and_rejects_other_schema(fit_json, tmp_path, capsys):
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(fit_json), "-o", str(out)]) == 0
+    assert out.read_text().startswith("<!DOCTYPE html>")
+    capsys.readouterr()
+    bad = tmp_path / "other.json"
+    bad.write_text('{"schema": "hopscope.fit/9"}')
+    out2 = tmp_path / "r2.html"
+    assert cli.main(["report", str(bad), "-o", str(out2)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "other.json" in err[0] and "schema" in err[0]
+    assert not out2.exists()
+
+
+@pytest.mark.parametrize(
+    ("content", "expect"),
+    [("", "other.json"), ("{not json", "other.json"), ('{"schema": "hopscope.fit/1"}', "other.json")],
+    ids=["empty", "corrupt", "missing-keys"],
+)
+def test_report_command_bad_fit_files(tmp_path, capsys, content, expect):
+    bad = tmp_path / "other.json"
+    bad.write_text(content)
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(bad), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and expect in err[0]
+    assert not out.exists() and sorted(p.name for p in tmp_path.iterdir()) == ["other.json"]
+
+
+def test_report_command_missing_fit(tmp_path, capsys):
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(tmp_path / "absent.json"), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "absent.json" in err and "No such file" in err and not out.exists()
+
+
+@pytest.mark.browser
+def test_report_in_headless_chromium(fit_json, tmp_path):
+    out = tmp_path / "report.html"
+    assert cli.main(["report", str(fit_json), "-o", str(out), "--range-m", "40"]) == 0
+    page = open_report(out, ARTIFACTS / "report.png")
+    assert page.console_errors == ()
+    assert page.images_total == N_FIGURES and page.images_loaded == N_FIGURES
+    assert page.parameter_rows >= 10
+    assert "Eye protection" in page.text and "chronograph" in page.text
+    assert (ARTIFACTS / "report.png").stat().st_size > 10_000
