@@ -37,6 +37,7 @@ Time: frame k has container timestamp k/fps; row r of frame k is exposed over
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from collections.abc import Callable, Sequence
@@ -367,9 +368,10 @@ def project_board_corners(camera: SceneCamera, board: BoardSpec, rotation, trans
     return project_camera_points(camera, pts)
 
 
-#: Where the lens views put the board, cycling: the four corners, the four edges, the centre (image
-#: half-sizes; the board is pushed that way until it touches the image border).
-_LENS_TARGETS = ((-1, -1), (1, -1), (1, 1), (-1, 1), (0, -1), (1, 0), (0, 1), (-1, 0), (0, 0))
+#: Where the lens views put the board, cycling: the four corners, the four edges, the corners again, the
+#: centre (image half-sizes; the board is pushed that way until it touches the image border).
+_LENS_TARGETS = ((-1, -1), (1, -1), (1, 1), (-1, 1), (0, -1), (1, 0), (0, 1), (-1, 0),
+                 (-1, 1), (1, 1), (1, -1), (-1, -1), (0, 0))
 
 
 def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_deg, fill,
@@ -403,27 +405,53 @@ def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_de
         ray = camera.undistort_pixels(target)[0]
         return z * np.array([ray[0], ray[1], 1.0]) - rot @ centre_b
 
-    for i in range(n_views):
-        tilt = math.radians(rng.uniform(*tilt_deg))
-        psi = 2 * math.pi * (i + rng.uniform(-0.3, 0.3)) / max(n_views, 1)
-        gamma = math.radians(rng.uniform(-15.0, 15.0))
-        f = rng.uniform(*fill)
-        goal = np.array(_LENS_TARGETS[i % len(_LENS_TARGETS)], dtype=float) * 0.5 + rng.uniform(-0.03, 0.03, 2)
-        rot = rotation_about((math.cos(psi), math.sin(psi), 0.0), tilt) @ base @ rotation_about((0, 0, 1), gamma)
-        for _attempt in range(40):  # a smaller board if even the centred one does not fit
-            if fits(rot, pose(rot, f, np.zeros(2))):
-                break
-            f *= 0.95
-        else:
-            raise ValueError(f"lens view {i}: cannot fit the {board.width_m:.2f} m board into the image")
-        lo, hi = 0.0, 1.0  # largest fraction of the way to the goal that still fits (bisection)
+    corners = board_corners(board)
+
+    def push(rot, f, goal):
+        """Pose pushed as far toward ``goal`` as the image allows (bisection), or None if none fits."""
+        if not fits(rot, pose(rot, f, np.zeros(2))):
+            return None
+        lo, hi = 0.0, 1.0
         for _ in range(20):
             mid = 0.5 * (lo + hi)
             if fits(rot, pose(rot, f, goal * mid)):
                 lo = mid
             else:
                 hi = mid
-        out.append((rot, pose(rot, f, goal * lo)))
+        return pose(rot, f, goal * lo)
+
+    for i in range(n_views):
+        tilt = math.radians(rng.uniform(*tilt_deg))
+        jitter = rng.uniform(-0.3, 0.3)
+        gamma = math.radians(rng.uniform(-15.0, 15.0))
+        target = _LENS_TARGETS[i % len(_LENS_TARGETS)]
+        # smaller boards reach the corners, bigger ones the edges and the centre
+        share = {2: (0.0, 0.4), 1: (0.3, 0.8), 0: (0.6, 1.0)}[abs(target[0]) + abs(target[1])]
+        f = fill[0] + (fill[1] - fill[0]) * rng.uniform(*share)
+        goal = np.array(target, dtype=float) * 0.5 + rng.uniform(-0.03, 0.03, 2)
+        if target == (0, 0):  # tilt directions go round the compass
+            psis = [2 * math.pi * (i + jitter) / max(n_views, 1)]
+        else:  # tilt about an axis across the target direction, whichever way reaches the edge closer
+            base_psi = math.atan2(target[1], target[0]) + 0.5 * math.pi + 0.5 * jitter
+            psis = [base_psi, base_psi + math.pi]
+        best = None
+        for _attempt in range(40):  # a smaller board if even the centred one does not fit
+            for psi, g in itertools.product(psis, (gamma, -gamma) if target != (0, 0) else (gamma,)):
+                rot = (rotation_about((math.cos(psi), math.sin(psi), 0.0), tilt) @ base
+                       @ rotation_about((0, 0, 1), g))
+                tr = push(rot, f, goal)
+                if tr is None:
+                    continue
+                uv = project_camera_points(camera, corners @ rot.T + tr)
+                reach = float(np.max(uv @ np.asarray(target, dtype=float))) if target != (0, 0) else 0.0
+                if best is None or reach > best[0]:
+                    best = (reach, rot, tr)
+            if best is not None:
+                break
+            f *= 0.95
+        if best is None:
+            raise ValueError(f"lens view {i}: cannot fit the {board.width_m:.2f} m board into the image")
+        out.append((best[1], best[2]))
     return out
 
 
@@ -545,11 +573,19 @@ def plan_flight(spec: SceneSpec, camera: SceneCamera, readout_s: float) -> Fligh
     return FlightPlan(model, launch, traj, launch_time, n_frames, t_enter, t_exit)
 
 
+def drop_fps(spec: SceneSpec) -> float:
+    """Frame rate of the drop clip, 1/s (the camera's unless the drop says otherwise)."""
+    if spec.drop is None or spec.drop.fps is None:
+        return spec.camera.fps
+    return spec.drop.fps
+
+
 def plan_drop(spec: SceneSpec, model: FlightModel, readout_s: float) -> tuple[_Motion, int, float]:
     """The drop: released at rest at ``release_m`` after ``lead_frames``; returns (motion, n_frames, t0)."""
     d = spec.drop
-    assert d is not None
-    fps = spec.camera.fps
+    if d is None:
+        raise ValueError(f"scene {spec.name!r} has no drop clip")
+    fps = drop_fps(spec)
     t0 = d.lead_frames / fps
     n_frames = d.lead_frames + d.n_frames
     duration = (n_frames + 1) / fps + readout_s + spec.camera.exposure_s - t0 + 1e-3
@@ -567,6 +603,7 @@ class _ClipContext:
     spec: SceneSpec
     background: np.ndarray  # sharp wall, DN
     readout_s: float  # effective (0 without rolling shutter)
+    fps: float  # frame rate of this clip, 1/s
 
 
 def _row_offsets(ctx: _ClipContext, rows: np.ndarray) -> np.ndarray:
@@ -690,8 +727,7 @@ def clip_frame(ctx: _ClipContext, k: int, motion: _Motion | None, *, rng: np.ran
                with_clutter: bool = True, quantise: bool = True) -> np.ndarray:
     """Frame ``k`` of a clip: background × flicker, distractor, BB, lens blur, noise, 8-bit (or float DN)."""
     spec = ctx.spec
-    fps = spec.camera.fps
-    t_k = k / fps
+    t_k = k / ctx.fps
     h = ctx.camera.height
     row_t = t_k + _row_offsets(ctx, np.arange(h)) + 0.5 * spec.camera.exposure_s
     gain = _flicker_gain(spec.lighting, row_t)
@@ -711,7 +747,7 @@ def clip_frame(ctx: _ClipContext, k: int, motion: _Motion | None, *, rng: np.ran
 def _true_frames(ctx: _ClipContext, motion: _Motion, n_frames: int) -> list[dict[str, Any]]:
     """Per frame: container time, mid-exposure time at the BB's row, true projected centre, etc."""
     cam = ctx.camera
-    fps = ctx.spec.camera.fps
+    fps = ctx.fps
     exposure = ctx.spec.camera.exposure_s
     fx = float(cam.camera_matrix[0, 0])
     r_m = 0.5 * ctx.spec.bb.diameter_m
@@ -802,7 +838,11 @@ class PreparedScene:
 
     @property
     def context(self) -> _ClipContext:
-        return _ClipContext(self.camera, self.spec, self.background, self.readout_s)
+        return _ClipContext(self.camera, self.spec, self.background, self.readout_s, self.spec.camera.fps)
+
+    @property
+    def drop_context(self) -> _ClipContext:
+        return _ClipContext(self.camera, self.spec, self.background, self.readout_s, drop_fps(self.spec))
 
     def flight_frame(self, k: int, *, rng: np.random.Generator | None = None, bb: bool = True,
                      quantise: bool = True, with_clutter: bool = True) -> np.ndarray:
@@ -828,12 +868,12 @@ class PreparedScene:
                    quantise: bool = True) -> np.ndarray:
         """Frame ``k`` of the drop clip (8-bit, or float DN before noise when ``quantise=False``)."""
         motion = self.drop_plan()[0]
-        return clip_frame(self.context, k, motion if bb else None, rng=rng, quantise=quantise)
+        return clip_frame(self.drop_context, k, motion if bb else None, rng=rng, quantise=quantise)
 
     def true_drop_frames(self) -> list[dict[str, Any]]:
         """truth.json's per-frame records of the drop clip."""
         motion, n, _ = self.drop_plan()
-        return _true_frames(self.context, motion, n)
+        return _true_frames(self.drop_context, motion, n)
 
 
 def prepare_scene(spec: SceneSpec, *, rng: int | np.random.Generator = 0) -> PreparedScene:
@@ -999,12 +1039,12 @@ def render_scene(
         motion, n_drop, t0 = scene.drop_plan()
         rng_d = scene.streams["drop"]
         frames = (scene.drop_frame(k, rng=rng_d) for k in range(n_drop))
-        _write_clip(out / "drop.mp4", _counting(frames, n_drop, "drop clip", tick), cam.image_size, spec.camera.fps)
+        _write_clip(out / "drop.mp4", _counting(frames, n_drop, "drop clip", tick), cam.image_size, drop_fps(spec))
         tf = scene.true_drop_frames()
         vis_t = [f["t_mid_s"] for f in tf if f["visible"]]
         truth["drop"] = {
             "file": "drop.mp4",
-            "fps": spec.camera.fps,
+            "fps": drop_fps(spec),
             "n_frames": n_drop,
             "g_mps2": scene.plan.model.gravity_mps2,
             "gravity_direction": [0.0, -1.0, 0.0],

@@ -22,7 +22,7 @@ BB_KINDS = ("white", "tracer", "marked")
 LIGHTING_KINDS = ("daylight", "dusk")
 
 #: Bump when the renderer's output for a given spec and seed changes (invalidates cached renders).
-RENDERER_VERSION = 3
+RENDERER_VERSION = 5
 
 
 def _finite(name: str, value: float) -> None:
@@ -334,20 +334,25 @@ class FlightSpec:
 class DropSpec:
     """A BB released at rest in the flight plane (for the scale / frame-rate / level check).
 
-    Flown with the same flight model as the shot (gravity and drag, no spin), at the camera's frame rate.
+    Flown with the same flight model as the shot (gravity and drag, no spin), by the same camera (lens,
+    pose, exposure, readout), at the camera's frame rate unless ``fps`` says otherwise.
 
     Attributes
     ----------
     release_m : release point, m (just above the image, so the hand stays out of view).
     lead_frames : frames of background before the release.
     n_frames : frames after the release.
+    fps : frame rate of the drop clip, 1/s (None: the camera's ``fps``).
     """
 
     release_m: tuple[float, float, float] = (0.3, 0.47, 0.0)
     lead_frames: int = 20
     n_frames: int = 160
+    fps: float | None = None
 
     def __post_init__(self) -> None:
+        if self.fps is not None:
+            _positive("drop fps", self.fps)
         _vector("drop release_m", self.release_m, 3)
         for name, v in (("lead_frames", self.lead_frames), ("n_frames", self.n_frames)):
             if not (isinstance(v, int) and 0 <= v <= 100000):
@@ -441,6 +446,13 @@ class SceneSpec:
     image: ImageModelSpec = field(default_factory=ImageModelSpec)
 
     def __post_init__(self) -> None:
+        if self.drop is not None and self.drop.fps is not None:
+            period = 1.0 / self.drop.fps
+            if self.camera.exposure_s > period + 1e-12 or self.camera.readout_s > period + 1e-12:
+                raise ValueError(
+                    f"drop fps {self.drop.fps:g}: the camera's exposure_s and readout_s must each be at most "
+                    f"the drop's frame period ({period:g} s)"
+                )
         if not (isinstance(self.name, str) and self.name and all(c.isalnum() or c in "-_" for c in self.name)):
             raise ValueError(f"scene name must be a non-empty word of letters, digits, '-' or '_', got {self.name!r}")
 

@@ -176,3 +176,10 @@ def test_toml_scene_with_unknown_field_names_file_and_part(tmp_path):
     toml.write_text("[camera]\nframe_rate = 100\n", encoding="utf-8")
     with pytest.raises(ValueError, match=r"bad\.toml \[camera\]: unknown field\(s\) frame_rate"):
         load_scene(toml)
+
+
+def test_drop_frame_rate_must_allow_the_exposure():
+    from hopscope.scenes import DropSpec
+
+    with pytest.raises(ValueError, match=r"drop fps 50000: the camera's exposure_s and readout_s"):
+        small_scene(drop=DropSpec(fps=50000.0))
