@@ -1140,6 +1140,7 @@ def _flight_truth(scene: PreparedScene) -> dict[str, Any]:
 # ============================================================================================ truth I/O
 
 
+_CLIP_KEYS = ("file", "fps", "n_frames", "path", "frames")
 _TRUTH_KEYS = ("schema", "scene", "camera", "board", "lens_views", "plane_views", "drop", "flight")
 
 
@@ -1160,4 +1161,13 @@ def load_truth(path: str | Path) -> dict:
     missing = [k for k in _TRUTH_KEYS if k not in data]
     if missing:
         raise ValueError(f"{p}: missing field(s) {', '.join(missing)}")
+    for part, keys in (("flight", _CLIP_KEYS + ("launch", "laws", "air", "bb")), ("drop", _CLIP_KEYS)):
+        if data[part] is None:
+            continue
+        gone = [k for k in keys if k not in data[part]]
+        if gone:
+            raise ValueError(f"{p}: {part} lacks field(s) {', '.join(gone)}")
+        bad = [k for k in ("t_s", "x_m", "y_m", "z_m", "speed_mps") if k not in data[part]["path"]]
+        if bad:
+            raise ValueError(f"{p}: {part}.path lacks column(s) {', '.join(bad)}")
     return data

@@ -375,3 +375,14 @@ def test_drop_clip_truth_lands_on_the_rendered_bb_and_falls_under_gravity():
     y = np.array([f["y_m"] for f in frames])
     g = scene.plan.model.gravity_mps2
     assert np.allclose(0.05 - y, 0.5 * g * t**2, rtol=1e-3)
+
+
+def test_load_truth_names_a_missing_flight_field(tmp_path):
+    scene = render_scene(small_scene(lens=dataclasses.replace(small_scene().lens, n_views=0)), tmp_path / "s",
+                         rng=0, parts=("flight",))
+    data = json.loads(scene.truth_path.read_text())
+    del data["flight"]["launch"]
+    p = tmp_path / "broken.json"
+    p.write_text(json.dumps(data))
+    with pytest.raises(ValueError, match=r"broken\.json: flight lacks field\(s\) launch"):
+        load_truth(p)
