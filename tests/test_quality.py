@@ -34,11 +34,13 @@ def test_import_contracts_hold():
 
 
 def test_fitting_never_imports_opencv_at_runtime():
+    # matplotlib is not checked here: lmfit itself imports it at import time. Our own modules never do
+    # (the import-linter contract above checks the direct imports).
     code = (
         "import sys, importlib, pkgutil, fitting\n"
         "for m in pkgutil.iter_modules(fitting.__path__):\n"
         "    importlib.import_module('fitting.' + m.name)\n"
-        "bad = [n for n in ('cv2', 'matplotlib', 'av', 'calibration', 'tracker', 'hopscope') if n in sys.modules]\n"
+        "bad = [n for n in ('cv2', 'av', 'calibration', 'tracker', 'hopscope') if n in sys.modules]\n"
         "print(','.join(bad))\n"
     )
     res = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
