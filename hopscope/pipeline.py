@@ -1,0 +1,328 @@
+"""The stages glued end to end: calibrate, track, fit and report, each step writing its files atomically.
+
+Plain functions returning frozen results; ``hopscope run`` and ``hopscope demo`` call them, and hold no
+physics or image maths of their own (that lives in ``calibration/``, ``tracker/`` and ``fitting/``).
+
+Outputs of one step are written through :func:`hopscope.fileio.atomic_path` (temporary file, then rename),
+so a step that fails leaves none of its own files behind. Files of earlier steps that completed stay
+(a track is still useful when the fit fails, and a rerun overwrites it).
+
+World frame: x downrange, y up, metres (the rig's); times are the tracks' (rolling shutter included).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+from calibration.grid import GridSpec
+from calibration.images import VIDEO_SUFFIXES
+from calibration.pipeline import CalibrationRun, calibrate_files
+from calibration.rig import Rig, rig_to_json
+from fitting.air import Air
+from fitting.bb import BB
+from fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
+from fitting.fitfile import fit_to_json
+from fitting.observe import ShotData
+from fitting.units import m_to_mm, mm_to_m
+from tracker.overlay import check_overlay_path, write_overlay
+from tracker.pipeline import TrackOptions, TrackResult, track_video
+from tracker.trackfile import track_to_csv
+
+from . import __version__
+
+# glue that still lives in the fit command (to move here once its owner is done)
+from .commands.fit import shots_from_track
+from .fileio import atomic_path, write_text_atomic
+from .report import load_report_inputs, write_report
+from .report.build import DEFAULT_RANGE_M
+
+#: Output names of a run in its folder (one clip; several clips get ``track_<stem>.csv`` and so on).
+TRACK_NAME = "track.csv"
+OVERLAY_NAME = "overlay.png"
+FIT_NAME = "fit.json"
+REPORT_NAME = "report.html"
+RIG_NAME = "rig.json"
+
+FrameProgress = Callable[[Iterable, int | None], Iterable]
+
+
+# ============================================================================================ results
+
+
+@dataclass(frozen=True, eq=False)
+class TrackedClip:
+    """One clip tracked and written.
+
+    Attributes
+    ----------
+    video : the clip.
+    track_path : the track file written (schema ``hopscope.track/1``).
+    overlay_path : the overlay written, or None.
+    result : the tracker's result (track, summary, warnings).
+    """
+
+    video: Path
+    track_path: Path
+    overlay_path: Path | None
+    result: TrackResult
+
+
+@dataclass(frozen=True, eq=False)
+class FittedTracks:
+    """A joint fit of track files, written to ``fit_path``.
+
+    Attributes
+    ----------
+    fit_path : the fit.json written.
+    result : the fit (``converged`` False means the file says so too).
+    track_paths : the track files fitted, in order.
+    """
+
+    fit_path: Path
+    result: FlightFit
+    track_paths: tuple[Path, ...]
+
+
+@dataclass(frozen=True)
+class RunPlan:
+    """Where each output of a run goes.
+
+    Attributes
+    ----------
+    videos : the clips, in order.
+    track_paths, overlay_paths : per clip.
+    fit_path, report_path : the joint fit and the combined report.
+    """
+
+    videos: tuple[Path, ...]
+    track_paths: tuple[Path, ...]
+    overlay_paths: tuple[Path, ...]
+    fit_path: Path
+    report_path: Path
+
+
+# ============================================================================================ inputs
+
+
+def expand_videos(items: Sequence[str | os.PathLike[str]], *, option: str = "VIDEO") -> tuple[Path, ...]:
+    """Expand clip arguments: files as given, folders to their video files (sorted by name).
+
+    Raises
+    ------
+    FileNotFoundError
+        An item that does not exist.
+    ValueError
+        A folder without video files, an empty file, or the same clip twice.
+    """
+    out: list[Path] = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir():
+            found = sorted(f for f in p.iterdir() if f.is_file() and f.suffix.lower() in VIDEO_SUFFIXES)
+            if not found:
+                raise ValueError(f"{p}: the folder holds no video files ({', '.join(VIDEO_SUFFIXES)})")
+            out += found
+        elif p.is_file():
+            out.append(p)
+        else:
+            raise FileNotFoundError(f"{p}: no such video file or folder ({option})")
+    for p in out:
+        if p.stat().st_size == 0:
+            raise ValueError(f"{p}: the video file is empty")
+    seen: dict[Path, Path] = {}
+    for p in out:
+        key = p.resolve()
+        if key in seen:
+            raise ValueError(f"{p}: the same clip is given twice ({option})")
+        seen[key] = p
+    if not out:
+        raise ValueError(f"{option}: no clips given")
+    return tuple(out)
+
+
+def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan:
+    """Output paths of a run: ``track.csv``/``overlay.png`` for one clip, ``track_<stem>.csv``/
+    ``overlay_<stem>.png`` for several, plus ``fit.json`` and ``report.html``.
+
+    Raises
+    ------
+    ValueError
+        Two clips with the same file stem (their outputs would collide).
+    """
+    out = Path(out_dir)
+    videos = tuple(Path(v) for v in videos)
+    if len(videos) == 1:
+        tracks, overlays = (out / TRACK_NAME,), (out / OVERLAY_NAME,)
+    else:
+        stems: dict[str, Path] = {}
+        for v in videos:
+            if v.stem in stems:
+                raise ValueError(f"{v}: same file name stem as {stems[v.stem]} (their outputs would collide)")
+            stems[v.stem] = v
+        tracks = tuple(out / f"track_{v.stem}.csv" for v in videos)
+        overlays = tuple(out / f"overlay_{v.stem}.png" for v in videos)
+    return RunPlan(videos, tracks, overlays, out / FIT_NAME, out / REPORT_NAME)
+
+
+# ============================================================================================ steps
+
+
+def calibrate_scene(
+    rendered,
+    rig_path: str | os.PathLike[str],
+    *,
+    seed: int = 0,
+    parallax_mm: float = 0.0,
+    parallax_sigma_mm: float = 0.0,
+    progress: Callable[[Iterable], Iterable] | None = None,
+) -> CalibrationRun:
+    """Calibrate from a rendered scene's files as a user would (``hopscope calibrate``), write the rig.
+
+    The grid is given as the user would type it (inner corners, square side in mm, converted back to m as
+    the command does); the lens views are the rendered lens images, each plane view is ``IMAGE:OFFSET_M``,
+    and the drop clip (when the scene has one) gives the g / level check.
+
+    Parameters
+    ----------
+    rendered : :class:`hopscope.scenes.RenderedScene`.
+    rig_path : where to write ``rig.json``.
+    seed : seed of the calibration's ensemble resampling.
+    parallax_mm, parallax_sigma_mm : how far the boards stood behind the flight line and its standard
+        uncertainty, mm, as for ``hopscope calibrate --parallax-mm/--parallax-sigma-mm``.
+    progress : wraps the lens views' iterable (a progress bar).
+
+    Returns
+    -------
+    CalibrationRun (rig, lens, figures).
+    """
+    board = rendered.truth["board"]
+    square_mm = m_to_mm(float(board["square_m"]))
+    spec = GridSpec(int(board["cols"]), int(board["rows"]), mm_to_m(square_mm))
+    planes = [f"{path}:{offset!r}" for path, offset in rendered.plane_views]
+    kwargs = {} if progress is None else {"progress": progress}
+    run = calibrate_files(
+        [str(p) for p in rendered.lens_view_paths],
+        planes,
+        spec,
+        drop=None if rendered.drop_clip_path is None else str(rendered.drop_clip_path),
+        plane_z_m=mm_to_m(parallax_mm),
+        plane_z_sigma_m=mm_to_m(parallax_sigma_mm),
+        rng=seed,
+        provenance={"tool": f"hopscope {__version__}", "seed": seed, "scene": rendered.truth.get("scene")},
+        **kwargs,
+    )
+    write_text_atomic(rig_path, rig_to_json(run.rig))
+    return run
+
+
+def track_to_files(
+    video: str | os.PathLike[str],
+    rig: Rig,
+    options: TrackOptions,
+    *,
+    track_path: str | os.PathLike[str],
+    overlay_path: str | os.PathLike[str] | None = None,
+    rig_name: str = "rig",
+    progress: FrameProgress | None = None,
+) -> TrackedClip:
+    """Track a clip through the rig and write its track file (and overlay), both or neither.
+
+    Raises
+    ------
+    OSError, ValueError
+        Unreadable, empty or corrupt video, a rig for another image size, bad options (from the tracker),
+        or no BB found in the clip (the message names the clip and the tracker's reason).
+    """
+    if overlay_path is not None:
+        check_overlay_path(overlay_path)
+    result = track_video(str(video), rig, options, progress=progress, rig_name=rig_name)
+    if result.track is None:
+        raise ValueError(f"{video}: {result.reason}; no track written")
+    with contextlib.ExitStack() as stack:
+        tmp_track = stack.enter_context(atomic_path(track_path))
+        if overlay_path is not None:
+            tmp_overlay = stack.enter_context(atomic_path(overlay_path))
+            write_overlay(tmp_overlay, result, str(video))
+        tmp_track.write_text(track_to_csv(result.track), encoding="utf-8")
+    return TrackedClip(
+        Path(video), Path(track_path), None if overlay_path is None else Path(overlay_path), result
+    )
+
+
+def fit_track_files(
+    track_paths: Sequence[str | os.PathLike[str]],
+    fit_path: str | os.PathLike[str],
+    *,
+    bb: BB,
+    air: Air,
+    drag: str = "constant",
+    lift: str = "linear",
+    decay: str = "exponential",
+    chrono: ChronoPrior | None = None,
+    loss: str = DEFAULT_LOSS,
+    notes: Sequence[str] = (),
+) -> FittedTracks:
+    """Fit all shots of the track files jointly (one BB type) and write ``fit.json``.
+
+    ``notes`` are warnings made before the fit (for example defaulted air conditions); they go first in
+    the fit's warnings, followed by the tracks' own warnings and the fitter's.
+
+    Raises
+    ------
+    OSError, ValueError
+        A missing or malformed track file (named), fewer points than parameters, bad options.
+    """
+    shots: list[ShotData] = []
+    records = []
+    pre = list(notes)
+    for path in track_paths:
+        s, rec, w = shots_from_track(str(path))
+        shots += s
+        records.append(rec)
+        pre += w
+    result = fit_shots(shots, bb=bb, air=air, drag=drag, lift=lift, decay=decay, chrono=chrono, loss=loss)
+    if pre:
+        result = replace(result, warnings=tuple(pre) + result.warnings)
+    write_text_atomic(fit_path, fit_to_json(result, inputs=records))
+    return FittedTracks(Path(fit_path), result, tuple(Path(p) for p in track_paths))
+
+
+def report_to_file(
+    report_path: str | os.PathLike[str],
+    fit_path: str | os.PathLike[str],
+    *,
+    track_paths: Sequence[str | os.PathLike[str]] = (),
+    rig_path: str | os.PathLike[str] | None = None,
+    range_m: float = DEFAULT_RANGE_M,
+    links: Sequence[tuple[str, str]] = (),
+    title: str | None = None,
+) -> Path:
+    """Write the HTML report of a fit (with its tracks and rig) atomically; returns its path."""
+    inputs = load_report_inputs(
+        fit_path,
+        track_paths=[str(p) for p in track_paths],
+        rig_path=rig_path,
+        range_m=range_m,
+        links=links,
+        title=title,
+    )
+    return write_report(report_path, inputs)
+
+
+def sibling_links(report_path: Path, paths: Iterable[Path | None]) -> tuple[tuple[str, str], ...]:
+    """(label, href) links from the report to files beside it (hrefs relative to the report's folder)."""
+    base = report_path.parent.resolve()
+    out = []
+    for p in paths:
+        if p is None:
+            continue
+        try:
+            href = os.path.relpath(Path(p).resolve(), base)
+        except ValueError:  # another drive (Windows)
+            href = Path(p).resolve().as_uri()
+        out.append((Path(p).name, Path(href).as_posix()))
+    return tuple(out)
