@@ -271,7 +271,7 @@ def detect_plane_views(
                 f"{image_size[0]}x{image_size[1]}"
             )
         det = detect_grid(img, spec, source=str(path), detector=detector, reading_order=True)
-        if not det.found:
+        if det.corners is None:
             raise ValueError(f"{path}: plane view without the board ({det.reason})")
         out.append((str(path), det.corners, off))
     return out
