@@ -95,7 +95,7 @@ DECAY_DETERMINED_REL = 0.5
 
 #: Before fitting, the decay is fixed at its default when its standard error at the start exceeds this many
 #: times the default decay parameter (a 2 m close-up sees nothing of it; saves a wasted free fit).
-PRECHECK_FACTOR = 10.0
+PRECHECK_FACTOR = 1.0
 
 #: A parameter within this fraction of its bound range from a bound "ran to its bound".
 BOUND_HIT_FRACTION = 1e-6
@@ -581,11 +581,18 @@ class _Stats:
 
 
 def _inverse(a: np.ndarray) -> tuple[np.ndarray, bool]:
+    """Inverse of a symmetric positive (semi-)definite matrix via its scaled eigendecomposition.
+
+    Returns the (pseudo-)inverse and whether the matrix is numerically singular (condition > 1e13 after
+    scaling to unit diagonal).
+    """
     d = np.sqrt(np.clip(np.diag(a), 1e-300, None))
     scaled = a / np.outer(d, d)
-    cond = np.linalg.cond(scaled)
-    singular = not math.isfinite(cond) or cond > 1e13
-    inv = np.linalg.pinv(scaled, rcond=1e-13, hermitian=True) if singular else np.linalg.inv(scaled)
+    w, v = np.linalg.eigh(0.5 * (scaled + scaled.T))
+    top = float(w[-1]) if w.size else 1.0
+    singular = not (w.size and w[0] > top * 1e-13)
+    keep = w > top * 1e-13
+    inv = (v[:, keep] / w[keep]) @ v[:, keep].T
     return inv / np.outer(d, d), singular
 
 
@@ -826,8 +833,9 @@ def fit_shots(
     fixed_value = decay_fixed
     problem = FitProblem(shots, spec, theta, free, lower, upper, chrono)
     if decay_fixed is None:
-        # Cheap look first: if at the starting point the data cannot tell the decay from ten times the
-        # default, fit with it fixed at the default straight away (the check is redone at the solution).
+        # Cheap look first: if at the starting point the data cannot tell the decay from no decay at 1σ,
+        # fit with it fixed at the default straight away; the check is redone at the solution, where a
+        # decay the data do determine (or that contradicts the default) is then fitted freely.
         err0 = _decay_stderr(problem, problem.x0)
         if not err0 <= PRECHECK_FACTOR * ref:
             fixed_value = ref
@@ -835,18 +843,35 @@ def fit_shots(
     x, success, message, nfev, loss_used = _solve(problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev)
     st = _statistics(problem, x, loss, f_scale)
     if decay_fixed is None:
-        if fixed_value is None:
-            theta_hat = problem.full(x)
-            decay_est = _direct(theta_hat, problem.free, st.cov_noise, st.cov_cal, theta.size - 1)
-            val, err = decay_est.value, decay_est.stderr
-        else:
-            # the decay as the data see it at the solution: free-decay covariance there
+        val = err = None
+        if fixed_value is not None:
+            # the decay as the data see it at the solution: one Gauss-Newton step with it free
             free_all = np.ones(theta.size, dtype=bool)
             probe = FitProblem(shots, spec, problem.full(x), free_all, lower, upper, chrono)
             st_probe = _statistics(probe, probe.x0, loss, f_scale)
+            ji = st_probe.jac[st_probe.inlier_entry]
+            step = -_inverse(ji.T @ ji)[0] @ (ji.T @ st_probe.r[st_probe.inlier_entry])
+            val = float(np.clip(ref + step[-1], lower[-1], upper[-1]))
             decay_est = _direct(
                 probe.full(probe.x0), free_all, st_probe.cov_noise, st_probe.cov_cal, theta.size - 1
             )
+            err = decay_est.stderr
+            decay_est = Estimate(val, err, decay_est.stderr_noise, decay_est.stderr_calibration)
+            determined = err is not None and math.isfinite(err) and err <= DECAY_DETERMINED_REL * val
+            contradicts = err is not None and math.isfinite(err) and abs(val - ref) > 2 * err
+            if determined or contradicts:
+                theta_free = problem.full(x)
+                theta_free[-1] = val
+                problem = FitProblem(shots, spec, theta_free, free_all, lower, upper, chrono)
+                x, success, message, nfev2, loss_used = _solve(
+                    problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev
+                )
+                nfev += nfev2
+                st = _statistics(problem, x, loss, f_scale)
+                fixed_value = None
+        if fixed_value is None:
+            theta_hat = problem.full(x)
+            decay_est = _direct(theta_hat, problem.free, st.cov_noise, st.cov_cal, theta.size - 1)
             val, err = decay_est.value, decay_est.stderr
         at_upper = val is not None and val >= upper[-1] - BOUND_HIT_FRACTION * (upper[-1] - lower[-1])
         undetermined = (
