@@ -1,1 +1,16 @@
-"""Camera model, grid detection, flight-plane pose, world frame, drop check and rig files."""
+"""Camera model, grid detection, flight-plane pose, world frame, drop check and rig files.
+
+Flow: lens views → :func:`calibration.grid.detect_grid` → :func:`calibration.lens.calibrate_lens`
+(Zhang 2000); plane images → corners in reading order → :func:`calibration.plane.solve_plane` (joint PnP of
+all placements); :func:`calibration.build.make_rig` (with the bootstrap ensemble that carries the
+calibration's uncertainty); optional :func:`calibration.drop.check_drop` / :func:`calibration.drop.apply_level`.
+:func:`calibration.pipeline.calibrate_files` does all of it from file arguments.
+
+The product is a :class:`calibration.rig.Rig` (``rig.json``, schema ``hopscope.rig/1``): ``pixel_to_world``,
+``world_to_pixel``, ``pixel_to_world_jacobian``, ``ensemble_pixel_to_world``, ``digest``; I/O
+``rig_to_json``, ``rig_from_json``, ``read_rig``.
+
+World frame: x downrange (along the board's rows toward image right), y up, z toward the camera, metres;
+origin at the first plane placement's first inner corner (top left in the image). Pixels (u, v) in
+OpenCV order, the centre of the top-left pixel at (0, 0).
+"""

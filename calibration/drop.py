@@ -104,6 +104,7 @@ class DropClip:
     n_frames : frames in the clip.
     timing : "container timestamps" or "--fps override".
     fps : frame rate implied by the timing, 1/s.
+    frame_size : (w, h) of the frames, px.
     """
 
     source: str
@@ -113,6 +114,7 @@ class DropClip:
     n_frames: int
     timing: str
     fps: float
+    frame_size: tuple[int, int] = (0, 0)
 
 
 @dataclass(frozen=True)
@@ -352,7 +354,9 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
         span = all_t[-1] - all_t[0]
         rate = (len(all_t) - 1) / span if span > 0 else float("nan")
         timing = "container timestamps"
-    return DropClip(str(p), t_s, np.asarray(uvs, float).reshape(-1, 2), frame_idx, len(frames), timing, rate)
+    size = (int(background.shape[1]), int(background.shape[0]))
+    uv_arr = np.asarray(uvs, float).reshape(-1, 2)
+    return DropClip(str(p), t_s, uv_arr, frame_idx, len(frames), timing, rate, size)
 
 
 def _consistent_path(frames: np.ndarray, uv: np.ndarray) -> list[int]:
@@ -440,6 +444,11 @@ def check_drop(
     if not (math.isfinite(g_expected_mps2) and g_expected_mps2 > 0):
         raise ValueError(f"--g-expected: expected a positive acceleration, got {g_expected_mps2!r}")
     clip = find_ball(path, fps=fps)
+    if clip.frame_size != tuple(rig.image_size):
+        raise ValueError(
+            f"{clip.source}: drop clip frames are {clip.frame_size[0]}x{clip.frame_size[1]}, the rig's images "
+            f"{rig.image_size[0]}x{rig.image_size[1]} (the drop must be filmed with the calibrated setting)"
+        )
     mask = _moving(clip)
     xy = rig.pixel_to_world(clip.uv_px[mask]) if mask.any() else np.zeros((0, 2))
     fit = fit_free_fall(clip.t_s[mask], xy, drag=drag)

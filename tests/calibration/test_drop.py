@@ -124,3 +124,9 @@ def test_unreadable_clip_is_an_os_error(tmp_path):
     bad.write_bytes(b"not a video at all")
     with pytest.raises(OSError, match=r"drop\.mp4: cannot read the drop clip"):
         find_ball(bad)
+
+
+def test_drop_clip_of_other_size_is_an_error(rendered_drop):
+    _, path, _ = rendered_drop
+    with pytest.raises(ValueError, match=r"drop\.mkv: drop clip frames are 640x360, the rig's images 1280x720"):
+        check_drop(make_close_rig(), path)
