@@ -404,7 +404,8 @@ class FitProblem:
     # ------------------------------------------------------------------ model
     def _prior(self, rows: RowParams) -> np.ndarray:
         c = self.chrono
-        assert c is not None  # internal: only called with a prior
+        if c is None:
+            raise ValueError("internal: chronograph residual requested without a prior")
         speed = np.asarray(rows.speed_mps, dtype=float)
         if c.muzzle_x_m is None:
             v_mz = speed
@@ -511,11 +512,11 @@ def _bounds(spec: ModelSpec, shots: Sequence[ShotData]) -> tuple[np.ndarray, np.
 
 def _start(spec: ModelSpec, shots: Sequence[ShotData], lower, upper) -> np.ndarray:
     guesses = [guess_shot(s, spec) for s in shots]
-    theta = []
+    values: list[float] = []
     for g in guesses:
-        theta += [g.x0_m, g.y0_m, g.speed_mps, g.elevation_rad, g.lift_coefficient]
-    theta += [guess_drag_param(guesses, spec), guess_decay_param(spec)]
-    theta = np.array(theta)
+        values += [g.x0_m, g.y0_m, g.speed_mps, g.elevation_rad, g.lift_coefficient]
+    values += [guess_drag_param(guesses, spec), guess_decay_param(spec)]
+    theta = np.array(values)
     span = upper - lower
     return np.clip(theta, lower + 1e-3 * span, upper - 1e-3 * span)
 
@@ -916,7 +917,11 @@ def fit_shots(
                     f"the other parameters and predictions assume {tau_txt}"
                 )
             else:
-                bound = (1.0 / (val + 2 * err)) if (spec.decay == "exponential" and val is not None) else None
+                bound = (
+                    1.0 / (val + 2 * err)
+                    if (spec.decay == "exponential" and val is not None and err is not None)
+                    else None
+                )
                 extra = f"; τ > {bound:.3g} s at 2σ" if bound else ""
                 warnings.append(
                     f"spin decay not determined by the data ({what}): spin_decay_time_s is null{extra}"

@@ -237,6 +237,13 @@ class _Reader:
             raise self.fail(path, f"expected a finite number, got {v!r}")
         return float(v)
 
+    def real(self, obj, key, where) -> float:
+        """A required finite number."""
+        v = self.number(obj, key, where)
+        if v is None:  # number() without allow_null never returns None; keeps the type checker informed
+            raise self.fail(f"{where}.{key}", "expected a finite number, got null")
+        return v
+
     def string(self, obj, key, where) -> str:
         v = self.get(obj, key, where)
         if not isinstance(v, str):
@@ -390,16 +397,16 @@ def fit_from_json(text: str, source: str = "<fit>") -> FitFile:
     if not isinstance(warns, list) or not all(isinstance(w, str) for w in warns):
         raise rd.fail("warnings", "expected a list of strings")
     bbd = rd.get(data, "bb", "")
-    mass = rd.number(bbd, "mass_kg", "bb")
-    diam = rd.number(bbd, "diameter_m", "bb")
+    mass = rd.real(bbd, "mass_kg", "bb")
+    diam = rd.real(bbd, "diameter_m", "bb")
     try:
         bb = BB(mass, diam)
     except ValueError as exc:
         raise rd.fail("bb", str(exc)) from None
     aird = rd.get(data, "air", "")
-    airvals = [rd.number(aird, k, "air") for k in ("temperature_k", "pressure_pa", "relative_humidity")]
-    rho = rd.number(aird, "density_kgm3", "air")
-    mu = rd.number(aird, "viscosity_pas", "air")
+    airvals = [rd.real(aird, k, "air") for k in ("temperature_k", "pressure_pa", "relative_humidity")]
+    rho = rd.real(aird, "density_kgm3", "air")
+    mu = rd.real(aird, "viscosity_pas", "air")
     if not (rho > 0 and mu > 0):
         raise rd.fail("air", "density_kgm3 and viscosity_pas must be positive")
     air = Air(airvals[0], airvals[1], airvals[2], rho, mu)
@@ -412,9 +419,9 @@ def fit_from_json(text: str, source: str = "<fit>") -> FitFile:
             rd.string(md, "drag", "model"),
             rd.string(md, "lift", "model"),
             rd.string(md, "decay", "model"),
-            rd.number(md, "lift_k", "model"),
+            rd.real(md, "lift_k", "model"),
             rd.string(md, "sphere_correlation", "model"),
-            rd.number(md, "gravity_mps2", "model"),
+            rd.real(md, "gravity_mps2", "model"),
             (float(wind[0]), float(wind[1]), float(wind[2])),
         )
     except ValueError as exc:

@@ -34,7 +34,10 @@ from .laws import (
     SPHERE_CORRELATIONS,
     AerodynamicDecay,
     ConstantDrag,
+    DecayLaw,
+    DragLaw,
     ExponentialDecay,
+    LiftLaw,
     LinearLift,
     SaturatingLift,
     SphereDrag,
@@ -111,11 +114,8 @@ class ShotData:
                 raise ValueError(f"{where}: cal_offsets_m must have shape (K, {n}, 2), got {c.shape}")
             if not np.all(np.isfinite(c)):
                 raise ValueError(f"{where}: cal_offsets_m has a non-finite value")
-            if c.shape[0] == 0:
-                c = None
-            else:
-                c.setflags(write=False)
-            object.__setattr__(self, "cal_offsets_m", c)
+            c.setflags(write=False)
+            object.__setattr__(self, "cal_offsets_m", None if c.shape[0] == 0 else c)
 
     @property
     def n_points(self) -> int:
@@ -173,7 +173,7 @@ class ModelSpec:
     @property
     def cl_limit(self) -> float:
         """Largest |C_L| the lift law can produce (inf for the linear law)."""
-        return SaturatingLift().cl_max if self.lift == "saturating" else math.inf
+        return float(SaturatingLift().cl_max) if self.lift == "saturating" else math.inf
 
 
 @dataclass(frozen=True)
@@ -235,6 +235,9 @@ def decay_time_from_rate(rate_per_s) -> np.ndarray:
 
 def flight_for(spec: ModelSpec, rows: RowParams) -> tuple[FlightModel, LaunchState]:
     """The flight model and launch states of n rows (each row its own law parameters)."""
+    drag: DragLaw
+    lift: LiftLaw
+    decay: DecayLaw
     if spec.drag == "constant":
         drag = ConstantDrag(np.asarray(rows.drag_param, dtype=float))
     else:

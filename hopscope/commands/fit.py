@@ -259,8 +259,8 @@ def run(args: argparse.Namespace) -> int:
         result = replace(result, warnings=tuple(pre_warnings) + result.warnings)
     write_text_atomic(out, fit_to_json(result, inputs=records))
     print(parameter_table(result))
-    for w in result.warnings:
-        warn(w)
+    for line in result.warnings:
+        warn(line)
     if chrono is not None:
         print(f"chronograph prior: {_mps_fps(chrono.speed_mps)} ± {chrono.sigma_mps:.2g} m/s")
     print(f"wrote {out}")
