@@ -256,8 +256,11 @@ def report_outcome(outcome: RunOutcome, title: str = "hopscope run") -> int:
     fit = outcome.fitted.result
     print(parameter_table(fit))
     print(summary(title, summary_rows(outcome)))
+    # the tracker's warnings were shown while tracking; the fit carries them prefixed with the track's name
+    shown = {f"{c.track_path.name}: {w}" for c in outcome.clips for w in c.result.warnings}
     for w in fit.warnings:
-        warn(w)
+        if w not in shown:
+            warn(w)
     if not fit.converged:
         warn(f"the fit did not converge: {fit.reason} ({outcome.plan.fit_path} says converged: false)")
         return EXIT_UNEXPECTED
