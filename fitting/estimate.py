@@ -11,7 +11,9 @@ exponential law, ``spin_torque_slope`` for the aerodynamic law).
 Residual and loss
 -----------------
 r = (model − data)/σ per coordinate, plus an optional chronograph prior per shot; minimised by lmfit's
-``least_squares`` method with a robust loss (soft-L1, f_scale 2.5 σ by default) against leftover outliers.
+``least_squares`` method (trust-region reflective, physical bounds), first with the plain squared loss and,
+when a residual is larger than clean Gaussian data would give, again with a robust loss (soft-L1, f_scale
+2.5 σ by default) against the leftover outliers.
 
 Uncertainty
 -----------
@@ -266,6 +268,8 @@ class FlightFit:
     statistics : χ², AIC/BIC, RMS.
     converged : False when the optimiser failed or a parameter ran to its bound; ``reason`` says why.
     warnings : one line each.
+    loss : the loss of the final fit ("linear" when no residual called for the robust one);
+        loss_requested : the robust loss asked for (used only when outliers appear, see :func:`fit_shots`).
     """
 
     spec: ModelSpec
@@ -291,6 +295,7 @@ class FlightFit:
     method: str = "lmfit least_squares (trf)"
     loss: str = DEFAULT_LOSS
     f_scale_sigma: float = DEFAULT_F_SCALE
+    loss_requested: str = DEFAULT_LOSS
 
     @property
     def free_names(self) -> tuple[str, ...]:
@@ -1083,6 +1088,7 @@ def fit_shots(
         n_calibrations=k_cal,
         loss=loss_used,
         f_scale_sigma=f_scale,
+        loss_requested=loss,
     )
 
 

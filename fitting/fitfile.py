@@ -12,7 +12,7 @@ determine the quantity)::
     bb            {"mass_kg", "diameter_m"}
     air           {"temperature_k", "pressure_pa", "relative_humidity", "density_kgm3", "viscosity_pas"}
     model         {"drag", "lift", "decay", "lift_k", "sphere_correlation", "gravity_mps2", "wind_mps",
-                   "loss", "f_scale_sigma", "method", "decay_fixed_value", "spin_note", "residuals"}
+                   "loss" (of the final fit), "loss_requested", "f_scale_sigma", "method", "decay_fixed_value", "spin_note", "residuals"}
     aero          {"drag_coefficient", "drag_scale" (sphere law, else null), "spin_decay_time_s",
                    "spin_decay_parameter" (1/τ in 1/s or torque slope; null when fixed),
                    "spin_decay_parameter_name"}
@@ -50,6 +50,7 @@ from .air import Air
 from .bb import BB
 from .estimate import ChronoPrior, Estimate, FittedModel, FlightFit, decay_param_name
 from .observe import ModelSpec
+from .units import rad_to_deg
 
 SCHEMA = "hopscope.fit/1"
 
@@ -119,7 +120,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
                     "x_m": estimate_to_dict(s.x0_m),
                     "y_m": estimate_to_dict(s.y0_m),
                     "speed_mps": estimate_to_dict(s.speed_mps),
-                    "elevation_deg": estimate_to_dict(s.elevation_rad, 180.0 / math.pi),
+                    "elevation_deg": estimate_to_dict(s.elevation_rad, rad_to_deg(1.0)),
                 },
                 "lift_coefficient": estimate_to_dict(s.lift_coefficient),
                 "drag_coefficient": estimate_to_dict(s.drag_coefficient),
@@ -162,6 +163,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
             "gravity_mps2": spec.gravity_mps2,
             "wind_mps": list(spec.wind_mps),
             "loss": result.loss,
+            "loss_requested": result.loss_requested,
             "f_scale_sigma": result.f_scale_sigma,
             "method": result.method,
             "decay_fixed_value": _num(result.decay_fixed_value),

@@ -38,6 +38,7 @@ from fitting.units import (
     mm_to_m,
     mps_to_fps,
     percent_to_fraction,
+    rad_to_deg,
     radps_to_rpm,
 )
 from hopscope.console import summary, warn
@@ -201,10 +202,10 @@ def parameter_table(result: FlightFit) -> str:
         rows.append(
             (
                 "  speed",
-                f"{_pm(s.speed_mps, fmt='.5g')} m/s = {_pm(s.speed_mps, 1 / 0.3048, '.5g')} fps{_cal(s.speed_mps)}",
+                f"{_pm(s.speed_mps, fmt='.5g')} m/s = {_pm(s.speed_mps, mps_to_fps(1.0), '.5g')} fps{_cal(s.speed_mps)}",
             )
         )
-        rows.append(("  elevation", f"{_pm(s.elevation_rad, 180 / math.pi)}°"))
+        rows.append(("  elevation", f"{_pm(s.elevation_rad, rad_to_deg(1.0))}°"))
         rows.append(("  lift coefficient C_L0", _pm(s.lift_coefficient)))
         spin = s.spin_radps_model
         if spin.value is not None:
