@@ -128,5 +128,7 @@ def test_unreadable_clip_is_an_os_error(tmp_path):
 
 def test_drop_clip_of_other_size_is_an_error(rendered_drop):
     _, path, _ = rendered_drop
-    with pytest.raises(ValueError, match=r"drop\.mkv: drop clip frames are 640x360, the rig's images 1280x720"):
+    with pytest.raises(
+        ValueError, match=r"drop\.mkv: drop clip frames are 640x360, the rig's images 1280x720"
+    ):
         check_drop(make_close_rig(), path)

@@ -110,37 +110,31 @@ def test_rig_file_round_trip_of_rendered_calibration(close_scene, tmp_path):
 
 
 @pytest.fixture(scope="module")
-def drop_scene(tmp_path_factory):
-    # a longer fall than the built-in drop (which is in view for only ~25 ms): the camera runs at 500 fps
-    # and the ball is released just inside the frame, 0.3 s of fall
-    from hopscope.scenes import CameraSpec
-
+def drop_clip(tmp_path_factory):
+    # a longer fall than the built-in drop (in view for only ~25 ms): the same camera at 500 fps, the ball
+    # released just inside the frame, 0.3 s of fall; only the clip is rendered (the rig comes from the
+    # lane-close views, the geometry is the same)
     spec = builtin_scene("lane-close")
-    cam = dataclasses.replace(spec.camera, fps=500.0)
-    assert isinstance(cam, CameraSpec)
     spec = dataclasses.replace(
-        spec, camera=cam, drop=DropSpec(release_m=(0.3, 0.42, 0.0), lead_frames=10, n_frames=150)
+        spec,
+        camera=dataclasses.replace(spec.camera, fps=500.0),
+        drop=DropSpec(release_m=(0.3, 0.42, 0.0), lead_frames=10, n_frames=150),
     )
-    scene = render_scene(spec, tmp_path_factory.mktemp("drop"), rng=1, parts=("lens", "plane", "drop"))
-    return spec, scene
+    return render_scene(spec, tmp_path_factory.mktemp("drop"), rng=1, parts=("drop",))
 
 
-def test_rendered_drop_recovers_g_and_wrong_rate_is_flagged(drop_scene):
-    _, scene = drop_scene
-    b = scene.truth["board"]
-    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
-    views = [str(p) for p in scene.lens_view_paths]
-    planes = [f"{p}:{off}" for p, off in scene.plane_views]
-    run = calibrate_files(views, planes, grid, drop=str(scene.drop_clip_path), ensemble_size=0)
-    d = run.rig.drop_check
-    g_true = scene.truth["drop"]["g_mps2"]
-    assert d["verdict"] == "consistent", d
-    assert abs(d["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
-    wrong = calibrate_files(
-        views, planes, grid, drop=str(scene.drop_clip_path), drop_fps=600.0, ensemble_size=0
-    )
-    assert wrong.rig.drop_check["verdict"] == "inconsistent"
-    assert any("frame rate" in w for w in wrong.rig.warnings)
+def test_rendered_drop_recovers_g_and_wrong_rate_is_flagged(close_scene, drop_clip):
+    from calibration.drop import apply_level, check_drop
+
+    _, _, run = close_scene
+    g_true = drop_clip.truth["drop"]["g_mps2"]
+    check, warns = check_drop(run.rig, drop_clip.drop_clip_path)
+    assert check["verdict"] == "consistent", check
+    assert abs(check["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
+    assert apply_level(run.rig, check, warns).drop_check["levelled"] is False  # the board was level
+    wrong, warns = check_drop(run.rig, drop_clip.drop_clip_path, fps=600.0)
+    assert wrong["verdict"] == "inconsistent"
+    assert any("frame rate" in w for w in warns)
 
 
 #: The issue's acceptance on the long lane: ≤ 5 mm over 35 m with all placements.

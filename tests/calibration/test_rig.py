@@ -34,6 +34,18 @@ def test_pixel_world_pixel_round_trip(close_rig, u, v):
     np.testing.assert_allclose(rig.world_to_pixel(xy), [[u, v]], atol=ROUND_TRIP_TOL_PX)
 
 
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(x=st.floats(0.1, 2.3), y=st.floats(-0.1, 0.7), z0=st.sampled_from([0.0, 0.03]))
+def test_world_pixel_world_round_trip(close_rig, x, y, z0):
+    # Invariant: project a plane point, unproject the pixel onto the same plane, get the point back.
+    import dataclasses
+
+    rig = dataclasses.replace(close_rig, plane_z_m=z0)
+    np.testing.assert_allclose(
+        rig.pixel_to_world(rig.world_to_pixel([[x, y]])), [[x, y]], atol=ROUND_TRIP_TOL_M
+    )
+
+
 def test_mapping_matches_pinhole_ray_plane_without_distortion():
     # Pinhole model: x_cam ~ K^-1 (u, v, 1); the plane z = z0 meets C + s R^T x_cam (Hartley & Zisserman 2003,
     # "Multiple View Geometry", 2nd ed., sec. 8.1 back-projection of points to rays).
