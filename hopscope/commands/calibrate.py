@@ -176,6 +176,7 @@ def summary_rows(result: CalibrationRun) -> list[tuple[str, str]]:
         rows.append(("  rejected", f"... and {len(lens.views_rejected) - 6} more (see rig.json provenance)"))
     rows += [
         ("reprojection RMS", f"{lens.rms_px:.3f} px (frame coverage {lens.frame_coverage:.0%})"),
+        ("worst view", _worst_view(lens)),
         ("focal length", f"{fig.focal_px:.2f} ± {fig.focal_std_px:.2f} px"),
         ("principal point", f"({rig.camera_matrix[0, 2]:.1f}, {rig.camera_matrix[1, 2]:.1f}) px"),
         ("plane distance", f"{fig.plane_distance_m:.3f} m"),
@@ -221,3 +222,10 @@ def summary_rows(result: CalibrationRun) -> list[tuple[str, str]]:
             )
     rows.append(("rig digest", rig.digest[:16]))
     return rows
+
+
+def _worst_view(lens) -> str:
+    if not lens.per_view_rms_px:
+        return "-"
+    i = max(range(len(lens.per_view_rms_px)), key=lambda j: lens.per_view_rms_px[j])
+    return f"{lens.views_used[i]}: {lens.per_view_rms_px[i]:.3f} px"

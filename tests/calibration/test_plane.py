@@ -151,3 +151,24 @@ def test_parallax_moves_the_plane_toward_the_camera():
     np.testing.assert_allclose(rig.pixel_to_world(uv), pts[:, :2], atol=CLOSE_PATH_TOL_M)
     with pytest.raises(ValueError, match="parallax"):
         make_rig(views, lens, placements, BOARD, plane_z_m=5.0, ensemble_size=0, rng=rng)
+
+
+#: Over repeated calibrations the actual error divided by the ensemble's spread must have an RMS near 1
+#: (honest error bars): within these bounds for 16 repeats.
+Z_RMS_BOUNDS = (0.6, 1.6)
+
+
+@pytest.mark.slow
+def test_ensemble_spread_is_honest_over_repeats():
+    # Bootstrap standard errors (Efron & Tibshirani 1993, ch. 6): the spread of the ensemble should match
+    # the scatter of the actual error over independent repeats of the whole calibration.
+    probe = np.array([[20.0, 360.0], [1260.0, 360.0], [640.0, 100.0], [100.0, 650.0]])
+    z = []
+    for seed in range(16):
+        truth, views, lens, placements, rng = _close_setup(seed=100 + seed)
+        rig = make_rig(views, lens, placements, BOARD, ensemble_size=16, rng=rng)
+        nominal = rig.pixel_to_world(probe)
+        sd = (rig.ensemble_pixel_to_world(probe) - nominal[None]).std(axis=0)  # per axis
+        z.append((nominal - truth.pixel_to_world(probe)) / sd)
+    z_rms = float(np.sqrt(np.mean(np.square(z))))
+    assert Z_RMS_BOUNDS[0] < z_rms < Z_RMS_BOUNDS[1], z_rms
