@@ -169,3 +169,37 @@ def test_long_lane_with_three_placements_and_drop(tmp_path_factory):
     assert abs(d["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
     assert d["levelled"] is False
     np.testing.assert_allclose(rig.rotation, run.rig.rotation)
+
+
+#: Agreement of the rig's plane mapping with scikit-image's homography inside the board region, m
+#: (both from the same rendered corners; the homography has 8 free parameters, the rig 6 + the lens).
+SKIMAGE_AGREE_RENDERED_M = 0.1e-3
+
+
+def test_plane_mapping_agrees_with_scikit_image_on_rendered_board(close_scene):
+    # Reference library: scikit-image ProjectiveTransform (van der Walt et al. 2014, PeerJ 2:e453),
+    # estimated from the undistorted detected plane corners and their board positions.
+    from skimage.transform import ProjectiveTransform
+
+    from calibration.grid import detect_grid
+    from calibration.images import read_image
+    from calibration.rig import UNDISTORT_CRITERIA
+
+    _, scene, run = close_scene
+    rig = run.rig
+    b = scene.truth["board"]
+    grid = GridSpec(b["cols"], b["rows"], b["square_m"])
+    det = detect_grid(read_image(scene.plane_views[0][0]), grid, reading_order=True)
+    k, d = rig.camera_matrix, rig.dist_coeffs
+
+    def undistort(uv):
+        return cv2.undistortPoints(uv.reshape(-1, 1, 2), k, d, P=k, criteria=UNDISTORT_CRITERIA).reshape(
+            -1, 2
+        )
+
+    tform = ProjectiveTransform.from_estimate(undistort(det.corners), grid.board_points()[:, :2])
+    assert tform
+    px, py = np.meshgrid(np.linspace(0.05, 0.95, 9), np.linspace(-0.45, -0.05, 5))
+    probe = np.column_stack([px.ravel(), py.ravel()])
+    uv = _truth_rig(scene.truth).world_to_pixel(probe)
+    np.testing.assert_allclose(rig.pixel_to_world(uv), tform(undistort(uv)), atol=SKIMAGE_AGREE_RENDERED_M)
