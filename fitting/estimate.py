@@ -557,18 +557,27 @@ def _lmfit_run(problem: FitProblem, x0: np.ndarray, *, loss: str, f_scale: float
 
 
 def _solve(problem: FitProblem, *, loss: str, f_scale: float, max_nfev: int, x0: np.ndarray | None = None):
-    """Least squares first; with a robust ``loss``, refit with it when a residual exceeds
-    :data:`ROBUST_TRIGGER_SIGMA` (for clean Gaussian data the two agree, and plain least squares converges
-    in far fewer steps). Returns (x, success, message, nfev, loss_used)."""
+    """Least squares first; with a robust ``loss``, refit with it when a residual exceeds the trigger.
+
+    The trigger is :data:`ROBUST_TRIGGER_SIGMA` (or the level a clean Gaussian residual vector of this
+    length exceeds with probability 1 %, if higher) times the robust scatter of the residuals
+    (1.4826·median |r|, at least 1), so that σ stated too small by the tracker do not pass for outliers;
+    the robust loss's scale is ``f_scale`` times the same scatter. For clean Gaussian data the plain fit
+    stands: it is the efficient one, and it converges in far fewer steps.
+
+    Returns (x, success, message, nfev, loss_used, f_scale_used).
+    """
     start = problem.x0 if x0 is None else x0
     x, ok, msg, nfev = _lmfit_run(problem, start, loss="linear", f_scale=1.0, max_nfev=max_nfev)
     r = problem.residual(x)
-    # a clean Gaussian residual vector of this length exceeds the trigger with probability ~1 %
-    trigger = max(ROBUST_TRIGGER_SIGMA, float(scipy.stats.norm.isf(0.005 / r.size)))
+    pts = r[: problem.n_point_entries]
+    scatter = max(1.0, 1.4826 * float(np.median(np.abs(pts)))) if pts.size else 1.0
+    trigger = scatter * max(ROBUST_TRIGGER_SIGMA, float(scipy.stats.norm.isf(0.005 / r.size)))
     if loss == "linear" or np.max(np.abs(r)) <= trigger:
-        return x, ok, msg, nfev, "linear"
-    x, ok, msg, nfev2 = _lmfit_run(problem, x, loss=loss, f_scale=f_scale, max_nfev=max_nfev)
-    return x, ok, msg, nfev + nfev2, loss
+        return x, ok, msg, nfev, "linear", f_scale
+    scale = f_scale * scatter
+    x, ok, msg, nfev2 = _lmfit_run(problem, x, loss=loss, f_scale=scale, max_nfev=max_nfev)
+    return x, ok, msg, nfev + nfev2, loss, scale
 
 
 # ---------------------------------------------------------------------------------------------- covariance
@@ -846,7 +855,9 @@ def fit_shots(
         if not err0 <= PRECHECK_FACTOR * ref:
             fixed_value = ref
             problem = _with_decay_fixed(problem, problem.x0, ref)
-    x, success, message, nfev, loss_used = _solve(problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev)
+    x, success, message, nfev, loss_used, f_used = _solve(
+        problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev
+    )
     st = _statistics(problem, x, loss, f_scale)
     if decay_fixed is None:
         val = err = None
@@ -869,7 +880,7 @@ def fit_shots(
                 theta_free = problem.full(x)
                 theta_free[-1] = val
                 problem = FitProblem(shots, spec, theta_free, free_all, lower, upper, chrono)
-                x, success, message, nfev2, loss_used = _solve(
+                x, success, message, nfev2, loss_used, f_used = _solve(
                     problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev
                 )
                 nfev += nfev2
@@ -900,7 +911,7 @@ def fit_shots(
                 # a parameter the data cannot see
                 fixed_value = ref
                 problem = _with_decay_fixed(problem, x, ref)
-                x, success, message, nfev2, loss_used = _solve(
+                x, success, message, nfev2, loss_used, f_used = _solve(
                     problem, loss=loss, f_scale=f_scale, max_nfev=max_nfev
                 )
                 nfev += nfev2
@@ -1087,7 +1098,7 @@ def fit_shots(
         chrono=chrono,
         n_calibrations=k_cal,
         loss=loss_used,
-        f_scale_sigma=f_scale,
+        f_scale_sigma=f_used,
         loss_requested=loss,
     )
 

@@ -18,6 +18,8 @@ import math
 from dataclasses import replace
 from pathlib import Path
 
+import numpy as np
+
 from fitting.air import Air
 from fitting.bb import BB
 from fitting.constants import (
@@ -220,6 +222,14 @@ def parameter_table(result: FlightFit) -> str:
     rows.append(("residual rms", f"{1e3 * st.residual_rms_m:.3g} mm = {st.residual_rms_sigma:.3g} σ"))
     rows.append(("χ² / dof", f"{st.chi2:.4g} / {st.dof} (error bars ×{st.stderr_scale:.3g})"))
     rows.append(("AIC / BIC", f"{st.aic:.5g} / {st.bic:.5g}"))
+    corr = result.correlation
+    if corr.shape[0] > 1:
+        off = np.abs(corr - np.diag(np.diag(corr)))
+        i, j = np.unravel_index(int(np.argmax(off)), off.shape)
+        names = result.free_names
+        rows.append(
+            ("strongest correlation", f"{names[i]} – {names[j]}: {corr[i, j]:+.2f} (all in fit.json)")
+        )
     rows.append(("outliers", f"{st.n_outliers} of {st.n_points} points"))
     m = result.spec
     rows.append(("laws", f"drag {m.drag}, lift {m.lift}, decay {m.decay}; loss {result.loss}"))
