@@ -26,6 +26,7 @@ added term).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 from collections.abc import Mapping
@@ -510,11 +511,19 @@ def check_drop(
     return base, tuple(warns)
 
 
-def apply_level(rig: Rig, drop_check: Mapping[str, Any], warnings: tuple[str, ...] = ()) -> Rig:
+def apply_level(
+    rig: Rig,
+    drop_check: Mapping[str, Any],
+    warnings: tuple[str, ...] = (),
+    *,
+    rng: int | np.random.Generator | None = 0,
+) -> Rig:
     """Attach ``drop_check`` to the rig and, when its tilt is significant, level the world frame.
 
     The world frame is turned about z by −tilt, so gravity points along −y: the origin and the plane stay;
-    every mapped x, y is then in the levelled frame. Levelled or not is recorded in ``drop_check``.
+    every mapped x, y is then in the levelled frame. Each ensemble member is turned by its own draw
+    −(tilt + δ), δ ~ N(0, σ_tilt²), so the tilt's uncertainty reaches the error bars. Levelled or not is
+    recorded in ``drop_check``.
     """
     check = dict(drop_check)
     tilt = check.get("tilt_deg")
@@ -522,6 +531,19 @@ def apply_level(rig: Rig, drop_check: Mapping[str, Any], warnings: tuple[str, ..
     if isinstance(tilt, Mapping) and check.get("verdict") in ("consistent", "inconsistent"):
         value, err = float(tilt["value"]), float(tilt["stderr"])
         if math.isfinite(err) and abs(value) > TILT_SIGNIFICANCE * err:
-            out = rig.rotated_about_z(-math.radians(value))
+            gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+            angle = -math.radians(value)
+            out = rig.rotated_about_z(angle)
+            draws = gen.normal(0.0, math.radians(err), len(rig.ensemble))
+            members = tuple(
+                dataclasses.replace(m, rotation=m.rotation @ _rz(angle - float(dd)).T)
+                for m, dd in zip(rig.ensemble, draws, strict=True)
+            )
+            out = dataclasses.replace(out, ensemble=members)
             check["levelled"] = True
     return out.with_drop_check(check, warnings=warnings)
+
+
+def _rz(angle_rad: float) -> np.ndarray:
+    c, s = math.cos(angle_rad), math.sin(angle_rad)
+    return np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])

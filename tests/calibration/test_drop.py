@@ -102,8 +102,20 @@ def test_tilted_board_is_levelled(tmp_path):
     rig, path, _ = _drop_clip(tmp_path, np.random.default_rng(1), tilt_rad=tilt)
     check, warns = check_drop(rig, path)
     assert check["tilt_deg"]["value"] == pytest.approx(2.0, abs=0.1)
-    levelled = apply_level(rig, check, warns)
+    import dataclasses
+
+    from calibration.rig import CameraState
+
+    member = CameraState(rig.camera_matrix, rig.dist_coeffs, rig.rotation, rig.translation, rig.plane_z_m)
+    with_members = dataclasses.replace(rig, ensemble=(member,) * 64)
+    levelled = apply_level(with_members, check, warns, rng=3)
     assert levelled.drop_check["levelled"] is True
+    # each member carries its own draw of the tilt: a turn δ about the origin moves a point at x by δ·x in
+    # y, so the members' spread in y there is σ_tilt·x
+    x_far = 3.0
+    uv = levelled.world_to_pixel(np.array([[x_far, 0.3]]))
+    dy = levelled.ensemble_pixel_to_world(uv)[:, 0, 1] - levelled.pixel_to_world(uv)[0, 1]
+    assert np.std(dy) == pytest.approx(math.radians(check["tilt_deg"]["stderr"]) * x_far, rel=0.35)
     again, _ = check_drop(levelled, path)
     assert abs(again["tilt_deg"]["value"]) < 3 * again["tilt_deg"]["stderr"] + 0.02
     # a level board stays as it is
