@@ -41,6 +41,7 @@ SCHEMA = "hopscope.profile/1"
 DEFAULT_BINS = 4
 CSV_COLUMNS = (
     "kind", "label", "re_lo", "re_hi", "re", "speed_mps", "spin_ratio", "coefficient", "stderr", "n_shots",
+    "spin_source",
 )  # fmt: skip
 
 
@@ -60,7 +61,12 @@ class DragBin:
 
 @dataclass(frozen=True)
 class LiftPoint:
-    """C_L at one shot's first tracked point; ``spin_ratio`` None unless the spin was measured."""
+    """C_L at one shot's first tracked point.
+
+    ``spin_ratio`` is None unless the spin is known: ``spin_source`` says how — ``"measured"`` (a measured
+    spin was given), ``"assumed k=…"`` (S = C_L/k under the linear law for an assumed k: model-based) or
+    ``""`` (unknown).
+    """
 
     label: str
     re: float
@@ -68,6 +74,7 @@ class LiftPoint:
     spin_ratio: float | None
     cl: float | None
     cl_stderr: float | None
+    spin_source: str = ""
 
 
 @dataclass(frozen=True)
@@ -112,6 +119,7 @@ def build_profile(
     re_edges: Sequence[float] | None = None,
     n_bins: int = DEFAULT_BINS,
     spin_radps: Sequence[float | None] | None = None,
+    assumed_lift_k: float | None = None,
     lift: str = "linear",
 ) -> BBProfile:
     """Build a BB profile from shots of one BB type (see the module docstring).
@@ -124,11 +132,18 @@ def build_profile(
     re_edges : Reynolds-number bin edges (ascending); default ``n_bins`` bins with equal shot counts.
     n_bins : number of bins when ``re_edges`` is not given.
     spin_radps : measured spin at each shot's first tracked point, rad/s (None entries: not measured).
+    assumed_lift_k : for shots without a measured spin, give S = C_L/k under the linear law for this
+        assumed k (model-based, marked so in ``spin_source``); None: leave S unknown.
     lift : lift law for the fits.
     """
     shots = tuple(shots)
     if len(shots) < 2:
         raise ValueError("shots: a profile needs at least two shots")
+    if assumed_lift_k is not None:
+        if lift != "linear":
+            raise ValueError("assumed_lift_k: only meaningful with the linear lift law")
+        if not (math.isfinite(assumed_lift_k) and assumed_lift_k > 0):
+            raise ValueError(f"assumed_lift_k must be positive, got {assumed_lift_k!r}")
     if spin_radps is not None and len(spin_radps) != len(shots):
         raise ValueError(f"spin_radps: expected {len(shots)} entries (one per shot), got {len(spin_radps)}")
     allfit = fit_shots(shots, bb=bb, air=air, lift=lift)
@@ -169,26 +184,30 @@ def build_profile(
     for i, s in enumerate(allfit.shots):
         w = None if spin_radps is None else spin_radps[i]
         ratio = None
+        source = ""
         if w is not None:
             if not math.isfinite(w):
                 raise ValueError(f"spin_radps[{i}]: expected a finite spin, got {w!r}")
             ratio = bb.radius_m * float(w) / speeds[i]
+            source = "measured"
             measured += 1
+        elif assumed_lift_k is not None and s.lift_coefficient.value is not None:
+            ratio = s.lift_coefficient.value / assumed_lift_k
+            source = f"assumed k={assumed_lift_k:g}"
+        cl = s.lift_coefficient
         lift_pts.append(
-            LiftPoint(
-                s.label,
-                float(re[i]),
-                float(speeds[i]),
-                ratio,
-                s.lift_coefficient.value,
-                s.lift_coefficient.stderr,
-            )
+            LiftPoint(s.label, float(re[i]), float(speeds[i]), ratio, cl.value, cl.stderr, source)
         )
     notes = [
         "drag: C_D per Reynolds-number bin (Re at the first tracked point), each bin fitted jointly",
         "lift: C_L at each shot's first tracked point from the all-shot joint fit",
     ]
-    if measured < len(shots):
+    if measured < len(shots) and assumed_lift_k is not None:
+        notes.append(
+            f"spin not measured for {len(shots) - measured} shots: their S = C_L/k for an assumed "
+            f"k = {assumed_lift_k:g} (model-based, not a measurement of spin)"
+        )
+    elif measured < len(shots):
         notes.append(
             "spin not measured for "
             + (f"{len(shots) - measured} shots" if measured else "any shot")
@@ -242,6 +261,7 @@ def profile_to_dict(p: BBProfile) -> dict[str, Any]:
                 "re": lp.re,
                 "speed_mps": lp.speed_mps,
                 "spin_ratio": _num(lp.spin_ratio),
+                "spin_source": lp.spin_source,
                 "lift_coefficient": {"value": _num(lp.cl), "stderr": _num(lp.cl_stderr)},
             }
             for lp in p.lift
@@ -294,11 +314,12 @@ def profile_to_csv(p: BBProfile) -> str:
             _num(b.cd),
             _num(b.cd_stderr),
             b.n_shots,
+            "",
         ]
         out.write(",".join(_cell(v) for v in row) + "\n")
     for lp in p.lift:
         row = ["lift", lp.label, None, None, lp.re, lp.speed_mps, _num(lp.spin_ratio), _num(lp.cl),
-               _num(lp.cl_stderr), 1]  # fmt: skip
+               _num(lp.cl_stderr), 1, lp.spin_source]  # fmt: skip
         out.write(",".join(_cell(v) for v in row) + "\n")
     return out.getvalue()
 
@@ -343,7 +364,7 @@ def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
         w = f"lift[{i}]"
         cl, cls = est(lp, "lift_coefficient", w)
         pts.append(LiftPoint(str(lp.get("label", "")), num(lp, "re", w), num(lp, "speed_mps", w),
-                             num(lp, "spin_ratio", w, True), cl, cls))  # fmt: skip
+                             num(lp, "spin_ratio", w, True), cl, cls, str(lp.get("spin_source", ""))))  # fmt: skip
     tau, taus = est(d, "spin_decay_time_s", "(top)")
     return BBProfile(
         label=str(d.get("label", "")),

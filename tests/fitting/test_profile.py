@@ -67,6 +67,14 @@ def test_lift_points_say_where_spin_is_known(profile):
         assert abs(lp.cl - 0.02) < 4 * lp.cl_stderr
 
 
+def test_assumed_k_gives_model_based_spin_ratios(shots):
+    p = build_profile(shots[:4], bb=BB_025, air=AIR, n_bins=2, spin_radps=[None, None, None, 2500.0],
+                      assumed_lift_k=0.5)  # fmt: skip
+    assert [lp.spin_source for lp in p.lift] == ["assumed k=0.5"] * 3 + ["measured"]
+    assert p.lift[0].spin_ratio == pytest.approx(p.lift[0].cl / 0.5)
+    assert any("assumed k = 0.5" in n for n in p.notes)
+
+
 def test_files_round_trip_and_carry_the_schema(profile, tmp_path):
     text = profile_to_json(profile)
     assert json.loads(text)["schema"] == SCHEMA
@@ -103,5 +111,7 @@ def test_bad_inputs(shots):
         build_profile(shots[:1], bb=BB_025, air=AIR)
     with pytest.raises(ValueError, match="spin_radps: expected 8 entries"):
         build_profile(shots, bb=BB_025, air=AIR, spin_radps=[1.0])
+    with pytest.raises(ValueError, match="assumed_lift_k"):
+        build_profile(shots, bb=BB_025, air=AIR, assumed_lift_k=-1.0)
     with pytest.raises(ValueError, match="re_edges"):
         build_profile(shots, bb=BB_025, air=AIR, re_edges=[3e4, 2e4])
