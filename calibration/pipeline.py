@@ -86,6 +86,7 @@ def calibrate_files(
     """
     plane_items = [parse_plane_arg(p) for p in planes]
     check_plane_items(plane_items)  # cheap checks before the slow detection
+    gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
     sources = expand_views(views)
     detections, size = detect_views(sources, spec, detector=detector, progress=progress)
     found = [d for d in detections if d.found]
@@ -116,10 +117,10 @@ def calibrate_files(
         plane_z_sigma_m=plane_z_sigma_m,
         ensemble_size=ensemble_size,
         offset_sigma_m=offset_sigma_m,
-        rng=rng,
+        rng=gen,
         provenance=prov,
     )
     if drop is not None:
         check, warns = check_drop(rig, drop, fps=drop_fps, g_expected_mps2=g_expected_mps2)
-        rig = apply_level(rig, check, warns)
+        rig = apply_level(rig, check, warns, rng=gen)
     return CalibrationRun(rig, lens, rig_figures(rig), len(detections))
