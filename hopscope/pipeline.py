@@ -198,25 +198,49 @@ def calibrate_scene(
     Returns
     -------
     CalibrationRun (rig, lens, figures).
+
+    Notes
+    -----
+    OpenCV runs single-threaded for the calibration (restored afterwards): with its worker threads the
+    lens solution differs between runs in the last digits, and the demo promises identical files for the
+    same seed.
     """
     board = rendered.truth["board"]
     square_mm = m_to_mm(float(board["square_m"]))
     spec = GridSpec(int(board["cols"]), int(board["rows"]), mm_to_m(square_mm))
     planes = [f"{path}:{offset!r}" for path, offset in rendered.plane_views]
     kwargs = {} if progress is None else {"progress": progress}
-    run = calibrate_files(
-        [str(p) for p in rendered.lens_view_paths],
-        planes,
-        spec,
-        drop=None if rendered.drop_clip_path is None else str(rendered.drop_clip_path),
-        plane_z_m=mm_to_m(parallax_mm),
-        plane_z_sigma_m=mm_to_m(parallax_sigma_mm),
-        rng=seed,
-        provenance={"tool": f"hopscope {__version__}", "seed": seed, "scene": rendered.truth.get("scene")},
-        **kwargs,
-    )
+    with _opencv_threads(1):
+        run = calibrate_files(
+            [str(p) for p in rendered.lens_view_paths],
+            planes,
+            spec,
+            drop=None if rendered.drop_clip_path is None else str(rendered.drop_clip_path),
+            plane_z_m=mm_to_m(parallax_mm),
+            plane_z_sigma_m=mm_to_m(parallax_sigma_mm),
+            rng=seed,
+            provenance={
+                "tool": f"hopscope {__version__}",
+                "seed": seed,
+                "scene": rendered.truth.get("scene"),
+            },
+            **kwargs,
+        )
     write_text_atomic(rig_path, rig_to_json(run.rig))
     return run
+
+
+@contextlib.contextmanager
+def _opencv_threads(n: int):
+    """Run the block with OpenCV limited to ``n`` threads, then restore the previous setting."""
+    import cv2
+
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(n)
+    try:
+        yield
+    finally:
+        cv2.setNumThreads(before)
 
 
 def track_to_files(

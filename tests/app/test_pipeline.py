@@ -211,3 +211,10 @@ def test_report_to_file_links_and_tables(scene, tracked, tmp_path):
     html = path.read_text(encoding="utf-8")
     assert 'href="overlay.png"' in html and "pipeline test" in html
     assert _partials(tmp_path) == []
+
+
+def test_calibrate_scene_is_repeatable_to_the_last_digit(scene, tmp_path):
+    calibrate_scene(
+        scene["rendered"], tmp_path / "again.json", seed=0, parallax_mm=PARALLAX_MM, parallax_sigma_mm=0.5
+    )
+    assert (tmp_path / "again.json").read_text() == scene["rig_path"].read_text()
