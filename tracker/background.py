@@ -42,6 +42,11 @@ NOISE_TILE = 32
 #: How often the noise map is re-estimated, frames.
 NOISE_EVERY = 8
 
+#: Least noise σ the detection assumes, grey levels: 8-bit video is quantised (a difference of rounded
+#: values spreads by ~0.4) and compression leaves sparse, heavy-tailed residues of a grey level or two
+#: even where the sensor noise was smoothed away.  # common practice, no published source
+NOISE_FLOOR_DN = 1.0
+
 #: MAD → standard deviation for Gaussian noise (Hampel 1974): σ = 1.4826 · MAD.
 MAD_TO_SIGMA = 1.4826
 
@@ -122,8 +127,7 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
     For integer images the median is interpolated within its bin (the grouped-data median, e.g.
     Spiegel & Stephens, Schaum's Outline of Statistics, ch. 3).
 
-    Tiles with no spread (a flat, noise-free synthetic image) get a floor of 0.5 grey level, the
-    quantisation of 8-bit video.
+    σ never goes below :data:`NOISE_FLOOR_DN` (half that for float images, which are averages of several).
     """
     h, w = diff_low.shape
     ty, tx = max(1, h // tile), max(1, w // tile)
@@ -141,7 +145,7 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
         lo = np.where(mad > 0, mad - 0.5, 0.0)
         width = np.where(mad > 0, 1.0, 0.5)
         mad = lo + width * (0.5 * a.shape[2] - below) / at
-    floor = 0.5 if np.issubdtype(diff_low.dtype, np.integer) else 0.125
+    floor = NOISE_FLOOR_DN if np.issubdtype(diff_low.dtype, np.integer) else 0.5 * NOISE_FLOOR_DN
     sig = np.maximum(MAD_TO_SIGMA * mad, floor).astype(np.float32)
     full = np.repeat(np.repeat(sig, bh, axis=0), bw, axis=1)
     out = np.empty((h, w), np.float32)

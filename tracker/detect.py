@@ -26,7 +26,7 @@ THRESHOLD_SIGMA = 5.5
 GROW_SIGMA = 2.5
 
 #: Most candidates kept per frame and polarity (the strongest).
-MAX_CANDIDATES = 8
+MAX_CANDIDATES = 4
 
 #: Margin added around a blob's box for the fit window, full-resolution px (at least this, or 2 blocks).
 PAD_PX = 5

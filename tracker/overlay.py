@@ -98,8 +98,47 @@ def _marks(
             )
 
 
-def contact_sheet(result: TrackResult) -> np.ndarray:
-    """The contact sheet as a BGR uint8 image."""
+#: Most crops on a contact sheet, and their half size, px.
+MAX_CROPS = 240
+CROP_HALF_PX = 16
+
+
+def _crop(luma: np.ndarray, u: float, v: float) -> tuple[int, int, np.ndarray]:
+    """A (2·CROP_HALF_PX)² window of ``luma`` around (u, v), zero-padded at the border: (col0, row0, image)."""
+    h, w = luma.shape
+    cu, cv = int(round(u)), int(round(v))
+    out = np.zeros((2 * CROP_HALF_PX, 2 * CROP_HALF_PX), np.uint8)
+    r0, c0 = cv - CROP_HALF_PX, cu - CROP_HALF_PX
+    rr0, cc0 = max(r0, 0), max(c0, 0)
+    rr1, cc1 = min(r0 + 2 * CROP_HALF_PX, h), min(c0 + 2 * CROP_HALF_PX, w)
+    if rr1 > rr0 and cc1 > cc0:
+        out[rr0 - r0 : rr1 - r0, cc0 - c0 : cc1 - c0] = luma[rr0:rr1, cc0:cc1]
+    return c0, r0, out
+
+
+def shot_crops(result: TrackResult, video: str) -> list[tuple[int, int, int, np.ndarray]]:
+    """(frame, col0, row0, image) crops around a sample of the shot points (one decoding pass)."""
+    tr = result.track
+    if tr is None or tr.n_points == 0:
+        return []
+    step = max(1, math.ceil(tr.n_points / MAX_CROPS))
+    picks = list(range(0, tr.n_points, step))[:MAX_CROPS]
+    want: dict[int, list[int]] = {}
+    for j in picks:
+        want.setdefault(int(tr.frame[j]), []).append(j)
+    last = max(want)
+    out = []
+    for fr in iter_frames(video):
+        for j in want.get(fr.index, []):
+            c0, r0, img = _crop(fr.luma, float(tr.u_px[j]), float(tr.v_px[j]))
+            out.append((fr.index, c0, r0, img))
+        if fr.index >= last:
+            break
+    return out
+
+
+def contact_sheet(result: TrackResult, video: str | None = None) -> np.ndarray:
+    """The contact sheet as a BGR uint8 image (crops read from ``video`` when given)."""
     still = (
         result.still
         if result.still is not None
@@ -113,7 +152,7 @@ def contact_sheet(result: TrackResult) -> np.ndarray:
         f"{s.rejected_candidates} rejected candidates, polarity {s.polarity}"
     )
     cv2.putText(top, text, (8, 18), cv2.FONT_HERSHEY_SIMPLEX, 0.5, (0, 255, 255), 1, cv2.LINE_AA)
-    crops = result.crops
+    crops = shot_crops(result, video) if video is not None else []
     if not crops:
         return top
     tile = crops[0][3].shape[0] * CROP_ZOOM
@@ -169,7 +208,7 @@ def write_overlay(path: str | os.PathLike[str], result: TrackResult, video: str)
     check_overlay_path(path)
     p = Path(path)
     if p.suffix.lower() in IMAGE_SUFFIXES:
-        if not cv2.imwrite(str(p), contact_sheet(result)):
+        if not cv2.imwrite(str(p), contact_sheet(result, video)):
             raise OSError(f"{p}: could not write the overlay image")
         return
     _annotated_video(p, result, video)

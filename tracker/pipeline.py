@@ -21,7 +21,7 @@ from calibration.rig import Rig
 
 from .associate import LinkOptions, LinkResult, link
 from .background import default_scale, windowed
-from .detect import THRESHOLD_SIGMA, Candidate, find_candidates
+from .detect import THRESHOLD_SIGMA, find_candidates
 from .localise import Detection, localise
 from .trackfile import Track, TrackMeta
 from .video import (
@@ -40,12 +40,6 @@ SPEED_RANGE_MPS = (5.0, 250.0)
 
 #: Polarity options and their detection signs.
 POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
-
-#: Most crops kept for the overlay's contact sheet.
-MAX_CROPS = 240
-
-#: Half size of a contact-sheet crop, px.
-CROP_HALF_PX = 16
 
 #: Points used for the finite-difference speed estimate at the start of a shot.
 SPEED_POINTS = 8
@@ -134,10 +128,10 @@ class TrackResult:
     summary : figures for the user.
     warnings : one line each (also in the track's header).
     info : the container information.
-    detections : every localised blob (ok or not), with its polarity sign, for the overlay.
+    detections : every successfully localised blob, with its polarity sign, for the overlay (blobs whose
+        fit failed are only counted, so memory stays bounded).
     in_shot : per detection, the shot it belongs to (−1: none).
     still : the first frame's luma (for the contact sheet).
-    crops : (frame, u0, v0, image) crops around shot points (a sample), for the contact sheet.
     """
 
     track: Track | None
@@ -148,7 +142,6 @@ class TrackResult:
     detections: tuple[tuple[Detection, int], ...] = ()
     in_shot: tuple[int, ...] = ()
     still: np.ndarray | None = None
-    crops: tuple[tuple[int, int, int, np.ndarray], ...] = ()
 
     @property
     def ok(self) -> bool:
@@ -211,7 +204,6 @@ def track_video(
     dets: list[tuple[Detection, int, float, bool]] = []
     n_cand = 0
     still: np.ndarray | None = None
-    crops_src: dict[int, list[tuple[Candidate, np.ndarray]]] = {}
     for wf in windowed(timed(frames), gap_frames=opt.gap_frames, scale=scale):
         if still is None:
             still = np.array(wf.frame.luma, copy=True)
@@ -222,9 +214,8 @@ def track_video(
             diff = wf.diff_roi(r0, r1, c0, c1)
             raw = wf.frame.luma[r0:r1, c0:c1]
             d = localise(diff, (r0, c0), frame=c.frame, sign=c.sign, raw=raw, guess_uv=(c.u_px, c.v_px))
-            dets.append((d, c.sign, wf.frame.t_s, c.touches_edge))
-            if d.ok:
-                crops_src.setdefault(c.frame, []).append((c, _crop(wf.frame.luma, d.u_px, d.v_px)))
+            if d.ok:  # failed fits are only counted: memory stays bounded by the blobs that look like a BB
+                dets.append((d, c.sign, wf.frame.t_s, c.touches_edge))
     n_frames = len(times)
     if n_frames == 0:
         raise ValueError(f"{video}: video has no frames")
@@ -258,7 +249,7 @@ def track_video(
                 f"exposure {opt.exposure_s * 1e3:g} ms is longer than the frame period {period * 1e3:.4g} ms"
             )
 
-    ok = [i for i, (d, _, _, _) in enumerate(dets) if d.ok]
+    ok = list(range(len(dets)))
     chosen, res, pol_name = _choose_polarity(dets, ok, want, opt, info, rig)
     in_shot = [-1] * len(dets)
     points: list[int] = []
@@ -295,21 +286,12 @@ def track_video(
             shot_speeds_mps=(),
             **base_summary,
         )
-        return TrackResult(None, why, summary, tuple(warns), info, det_pairs, tuple(in_shot), still, ())
+        return TrackResult(None, why, summary, tuple(warns), info, det_pairs, tuple(in_shot), still)
 
     track, speeds, map_warns = _build_track(
         [dets[i] for i in points], np.array(shot_of), rig, opt, info, video, source, rate, pol_name, warns
     )
     warns = list(track.meta.warnings)
-    crops = []
-    for gi in points[:: max(1, len(points) // MAX_CROPS + (len(points) % MAX_CROPS > 0))][:MAX_CROPS]:
-        d = dets[gi][0]
-        for c, img in crops_src.get(d.frame, []):
-            if abs(c.u_px - d.u_px) < 3 * CROP_HALF_PX and abs(c.v_px - d.v_px) < 3 * CROP_HALF_PX:
-                crops.append(
-                    (d.frame, int(round(d.u_px)) - CROP_HALF_PX, int(round(d.v_px)) - CROP_HALF_PX, img)
-                )
-                break
     summary = TrackSummary(
         frames_with_points=int(np.unique(track.frame).size),
         points=track.n_points,
@@ -317,19 +299,7 @@ def track_video(
         shot_speeds_mps=speeds,
         **base_summary,
     )
-    return TrackResult(track, "", summary, tuple(warns), info, det_pairs, tuple(in_shot), still, tuple(crops))
-
-
-def _crop(luma: np.ndarray, u: float, v: float) -> np.ndarray:
-    h, w = luma.shape
-    cu, cv = int(round(u)), int(round(v))
-    out = np.zeros((2 * CROP_HALF_PX, 2 * CROP_HALF_PX), np.uint8)
-    r0, c0 = cv - CROP_HALF_PX, cu - CROP_HALF_PX
-    rr0, cc0 = max(r0, 0), max(c0, 0)
-    rr1, cc1 = min(r0 + 2 * CROP_HALF_PX, h), min(c0 + 2 * CROP_HALF_PX, w)
-    if rr1 > rr0 and cc1 > cc0:
-        out[rr0 - r0 : rr1 - r0, cc0 - c0 : cc1 - c0] = luma[rr0:rr1, cc0:cc1]
-    return out
+    return TrackResult(track, "", summary, tuple(warns), info, det_pairs, tuple(in_shot), still)
 
 
 def _choose_polarity(

@@ -358,6 +358,8 @@ def regularise_times(times_s: np.ndarray, time_base_s: float | None) -> tuple[np
             break
     else:
         return t, None
+    if np.max(np.abs(t - slope * k)) <= 1e-3 * dt:
+        return t, None  # on the grid already: the rounding does not matter
     return slope * k, (
         f"container timestamps are rounded to {time_base_s * 1e3:.3g} ms; the frames are evenly spaced at "
         f"{1 / slope:.6g} fps within that rounding, so evenly spaced times are used"
