@@ -364,7 +364,7 @@ def render_report(inputs: ReportInputs) -> str:
             "speed-lift",
             figures.speed_lift_figure(prof.x_m, prof.speed_mps, prof.ratio),
             "Speed and lift-to-weight ratio against distance",
-            f"First shot: speed (solid) and Magnus lift over weight (dashed) out to {inputs.range_m:g} m.",
+            f"First shot: speed (top) and Magnus lift over weight (bottom) out to {inputs.range_m:g} m.",
         ),
         (
             "range",

@@ -100,16 +100,23 @@ def residual_figure(shots: Sequence[ShotCurves]) -> bytes:
 
 
 def speed_lift_figure(distance_m: np.ndarray, speed_mps: np.ndarray, lift_to_weight: np.ndarray) -> bytes:
-    """Speed (m/s) and lift-to-weight ratio against distance flown (m), for the first shot."""
-    fig, ax = _figure(height_in=3.4)
-    ax.plot(distance_m, speed_mps, color=ACCENT, linewidth=1.6)
-    ax.set_xlabel("downrange x (m)")
-    ax.set_ylabel("speed (m/s)", color=ACCENT)
-    ax2 = ax.twinx()
-    ax2.plot(distance_m, lift_to_weight, color=POINTS, linewidth=1.6, linestyle="--")
+    """Speed (m/s, top) and lift-to-weight ratio (bottom) against distance flown (m), for the first shot."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9.6, 4.4), dpi=110, sharex=True)
+    for ax in (ax1, ax2):
+        ax.grid(True, color="#e3e8eb", linewidth=0.8)
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+    ax1.plot(distance_m, speed_mps, color=ACCENT, linewidth=1.6)
+    ax1.set_ylabel("speed (m/s)")
+    ax2.plot(distance_m, lift_to_weight, color=POINTS, linewidth=1.6)
     ax2.axhline(1.0, color=MUTED, linewidth=0.8, linestyle=":")
-    ax2.set_ylabel("lift / weight", color=POINTS)
-    ax2.spines["top"].set_visible(False)
+    ax2.set_ylabel("lift / weight")
+    ax2.set_xlabel("downrange x (m)")
     return _png(fig)
 
 
