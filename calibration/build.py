@@ -185,7 +185,11 @@ def make_rig(
             "offset_sigma_m": offset_sigma_m,
             "plane_z_sigma_m": plane_z_sigma_m,
         },
-        "ensemble": {"size": ensemble_size, "method": "bootstrap over lens views + plane corner noise"},
+        "ensemble": {
+            "size": ensemble_size,
+            "method": "bootstrap over lens views (k3 rule repeated) + plane-corner noise + taped-offset error"
+            + (" + parallax error" if plane_z_sigma_m > 0 else ""),
+        },
     }
     if provenance:
         prov.update(provenance)
