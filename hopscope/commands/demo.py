@@ -109,7 +109,8 @@ class _StageBars:
         if stage != self._stage:
             self.close()
             self._stage = stage
-            self._bar = iter(progress(range(total), total=total, desc=f"rendering {stage}", unit="frame"))
+            unit = "frame" if "clip" in stage else "image"
+            self._bar = iter(progress(range(total), total=total, desc=f"rendering {stage}", unit=unit))
         if self._bar is not None:
             next(self._bar, None)
             if done >= total:

@@ -116,6 +116,13 @@ def register(parser: argparse.ArgumentParser) -> None:
         metavar="V[:SIGMA]",
         help="chronograph speed (and its standard uncertainty, default 1 %%), m/s, a prior on every shot",
     )
+    parser.add_argument(
+        "--muzzle-x-m",
+        type=_finite_float,
+        metavar="X",
+        help="downrange position of the muzzle/chronograph, m (the prior then applies there, not at the "
+        "first tracked point)",
+    )
     parser.add_argument("--drag", choices=DRAG_LAWS, default="constant", help="drag law (default constant)")
     parser.add_argument("--lift", choices=LIFT_LAWS, default="linear", help="lift law (default linear)")
     parser.add_argument(
@@ -161,7 +168,11 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
     except ValueError as exc:
         raise ValueError(f"--mass-g/--diameter-mm: {exc}") from None
     air, air_notes = _air(args)
-    chrono = None if args.chrono_mps is None else ChronoPrior(args.chrono_mps[0], args.chrono_mps[1], None)
+    if args.muzzle_x_m is not None and args.chrono_mps is None:
+        raise ValueError("--muzzle-x-m: needs --chrono-mps (it says where the chronograph speed applies)")
+    chrono = None
+    if args.chrono_mps is not None:
+        chrono = ChronoPrior(args.chrono_mps[0], args.chrono_mps[1], args.muzzle_x_m)
     options = TrackOptions(
         fps_override=args.fps,
         readout_s=_ms_to_s(args.readout_ms),

@@ -236,3 +236,15 @@ def test_failed_step_in_an_existing_folder_leaves_it_as_it_was(inputs, tmp_path,
     err = capsys.readouterr().err
     assert rc == EXIT_BAD_INPUT and "corrupt.mp4" in err and len(err.strip().splitlines()) == 1
     assert sorted(p.name for p in out.iterdir()) == ["keep.txt"]
+
+
+def test_muzzle_position_without_chronograph(inputs, tmp_path, capsys):
+    out = tmp_path / "out"
+    _bad(capsys, [*_base(inputs, out), "--muzzle-x-m", "-1"], out, "--muzzle-x-m")
+
+
+def test_run_shows_a_progress_bar_when_asked(inputs, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("HOPSCOPE_PROGRESS", "1")
+    rc = _run(_base(inputs, tmp_path / "out"))
+    assert rc == EXIT_OK
+    assert "tracking" in capsys.readouterr().err
