@@ -80,13 +80,21 @@ def find_candidates(
     if wf.diff_coarse is not None and wf.noise_coarse is not None:
         levels.append((wf.diff_coarse, wf.noise_coarse, 2 * wf.scale))
     out: list[Candidate] = []
+    # one cheap pass per level decides whether anything stands out at all (most frames: nothing)
+    live = []
+    for diff, noise, scale in levels:
+        lim = _limit(noise, threshold_sigma)
+        if bool((np.abs(diff) > lim).any()):
+            live.append((diff, noise, scale, lim))
+    if not live:
+        return out
     for sign in (1, -1):
         if polarity and sign != polarity:
             continue
         found: list[Candidate] = []
-        for diff, noise, scale in levels:
+        for diff, noise, scale, lim in live:
             sd = diff if sign > 0 else np.negative(diff)  # int16: no overflow for 8-bit sources
-            seeds = sd > noise * np.float32(threshold_sigma)
+            seeds = sd > lim
             if not seeds.any():
                 continue
             for c in _blobs(wf, sd, noise, scale, seeds, sign, grow_sigma, max_candidates):
@@ -96,6 +104,22 @@ def find_candidates(
         found.sort(key=lambda c: -c.peak_snr)
         out.extend(found[:max_candidates])
     return out
+
+
+_LIMITS: dict[tuple[int, float], tuple[np.ndarray, np.ndarray]] = {}
+
+
+def _limit(noise: np.ndarray, threshold_sigma: float) -> np.ndarray:
+    """threshold_sigma · noise, cached while the same noise map is in use (it is refreshed every few frames)."""
+    key = (id(noise), float(threshold_sigma))
+    hit = _LIMITS.get(key)
+    if hit is not None and hit[0] is noise:
+        return hit[1]
+    lim = noise * np.float32(threshold_sigma)
+    if len(_LIMITS) > 8:
+        _LIMITS.clear()
+    _LIMITS[key] = (noise, lim)
+    return lim
 
 
 def _inside(c: Candidate, f: Candidate) -> bool:

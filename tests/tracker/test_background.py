@@ -92,6 +92,11 @@ def test_downsample_is_block_mean(rng):
     img = rng.integers(0, 256, (24, 36), dtype=np.uint8)
     low = downsample(img, 4)
     ref = img.reshape(6, 4, 9, 4).mean(axis=(1, 3))
-    assert np.max(np.abs(low - ref)) <= 0.5 + 1e-9
+    # two halvings, each rounding to an integer: at most one grey level from the exact block mean
+    assert low.shape == ref.shape
+    assert np.max(np.abs(low - ref)) <= 1.0 + 1e-9
+    assert np.mean(np.abs(low - ref)) < 0.5
+    low3 = downsample(img, 3)
+    assert np.max(np.abs(low3 - img.reshape(8, 3, 12, 3).mean(axis=(1, 3)))) <= 0.5 + 1e-9
     assert downsample(img, 1) is img
-    assert default_scale(1920, 1080) == 4 and default_scale(320, 240) == 1
+    assert default_scale(1920, 1080) == 4 and default_scale(320, 240) == 1 and default_scale(3840, 2160) == 8
