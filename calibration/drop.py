@@ -305,19 +305,32 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
     p = Path(path)
     if fps is not None and not (math.isfinite(fps) and fps > 0):
         raise ValueError(f"--drop-fps: expected a positive frame rate, got {fps!r}")
-    frames = list(_frames(p))  # a drop clip is short (a few hundred frames)
-    if len(frames) < MIN_DROP_POINTS:
-        raise ValueError(f"{p}: the drop clip has only {len(frames)} frame(s)")
-    pick = np.unique(np.linspace(0, len(frames) - 1, min(BACKGROUND_FRAMES, len(frames))).astype(int))
-    background = np.median(np.stack([frames[i][2] for i in pick]), axis=0).astype(np.uint8)
+    # pass 1: timestamps of all frames and an evenly spread sample of them for the median background
+    # (memory stays bounded: the sample is thinned by half whenever it grows past twice its size)
+    all_t_list: list[float] = []
+    sample: list[tuple[int, np.ndarray]] = []
+    step = 1
+    for t, i, img in _frames(p):
+        all_t_list.append(t)
+        if i % step == 0:
+            sample.append((i, img))
+            if len(sample) > 2 * BACKGROUND_FRAMES:
+                step *= 2
+                sample = [(j, f) for j, f in sample if j % step == 0]
+    n_frames = len(all_t_list)
+    if n_frames < MIN_DROP_POINTS:
+        raise ValueError(f"{p}: the drop clip has only {n_frames} frame(s)")
+    keep_idx = np.unique(np.linspace(0, len(sample) - 1, min(BACKGROUND_FRAMES, len(sample))).astype(int))
+    picked = [sample[j][1] for j in keep_idx]
+    background = np.median(np.stack(picked), axis=0).astype(np.uint8)
     # one robust noise level for the clip: the blurred difference of a background sample, every 4th pixel
-    probe = cv2.GaussianBlur(cv2.absdiff(frames[pick[len(pick) // 2]][2], background), (0, 0), 1.0)
+    probe = cv2.GaussianBlur(cv2.absdiff(picked[len(picked) // 2], background), (0, 0), 1.0)
     sub = probe[::4, ::4].astype(np.float32)
     sigma = 1.4826 * float(np.median(np.abs(sub - np.median(sub))))
     thr = max(DETECT_SIGMA * sigma, DETECT_FLOOR_DN)
     max_area = BLOB_MAX_AREA_FRACTION * background.size
     cand_t, cand_uv, cand_i = [], [], []
-    for t, i, img in frames:
+    for t, i, img in _frames(p):  # pass 2: the ball in every frame
         diff = cv2.absdiff(img, background)
         mask = (cv2.GaussianBlur(diff, (0, 0), 1.0) > thr).astype(np.uint8)
         n, _, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
@@ -348,7 +361,7 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
         t_s = frame_idx / float(fps)
         timing, rate = "--fps override", float(fps)
     else:
-        all_t = np.array([f[0] for f in frames])
+        all_t = np.array(all_t_list)
         if not np.all(np.isfinite(all_t)):
             raise ValueError(f"{p}: the drop clip has frames without timestamps; give its frame rate")
         t_s = np.asarray(times, float) - all_t[0]
@@ -357,7 +370,7 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
         timing = "container timestamps"
     size = (int(background.shape[1]), int(background.shape[0]))
     uv_arr = np.asarray(uvs, float).reshape(-1, 2)
-    return DropClip(str(p), t_s, uv_arr, frame_idx, len(frames), timing, rate, size)
+    return DropClip(str(p), t_s, uv_arr, frame_idx, n_frames, timing, rate, size)
 
 
 def _consistent_path(frames: np.ndarray, uv: np.ndarray) -> list[int]:
