@@ -19,7 +19,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 from calibration.grid import GridSpec
-from calibration.images import VIDEO_SUFFIXES
+from calibration.images import VIDEO_SUFFIXES, Progress, no_progress
 from calibration.pipeline import CalibrationRun, calibrate_files
 from calibration.rig import Rig, rig_to_json
 from fitting.air import Air
@@ -155,6 +155,8 @@ def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan
     """
     out = Path(out_dir)
     videos = tuple(Path(v) for v in videos)
+    tracks: tuple[Path, ...]
+    overlays: tuple[Path, ...]
     if len(videos) == 1:
         tracks, overlays = (out / TRACK_NAME,), (out / OVERLAY_NAME,)
     else:
@@ -178,7 +180,7 @@ def calibrate_scene(
     seed: int = 0,
     parallax_mm: float = 0.0,
     parallax_sigma_mm: float = 0.0,
-    progress: Callable[[Iterable], Iterable] | None = None,
+    progress: Progress = no_progress,
 ) -> CalibrationRun:
     """Calibrate from a rendered scene's files as a user would (``hopscope calibrate``), write the rig.
 
@@ -209,7 +211,6 @@ def calibrate_scene(
     square_mm = m_to_mm(float(board["square_m"]))
     spec = GridSpec(int(board["cols"]), int(board["rows"]), mm_to_m(square_mm))
     planes = [f"{path}:{offset!r}" for path, offset in rendered.plane_views]
-    kwargs = {} if progress is None else {"progress": progress}
     with _opencv_threads(1):
         run = calibrate_files(
             [str(p) for p in rendered.lens_view_paths],
@@ -224,7 +225,7 @@ def calibrate_scene(
                 "seed": seed,
                 "scene": rendered.truth.get("scene"),
             },
-            **kwargs,
+            progress=progress,
         )
     write_text_atomic(rig_path, rig_to_json(run.rig))
     return run
