@@ -13,7 +13,6 @@ t = 0 (for ``--fit``, the shot's first tracked point).
 from __future__ import annotations
 
 import argparse
-import json
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,6 +29,7 @@ from fitting.constants import (
     MAX_PLAUSIBLE_SPEED_MPS,
     MIN_PLAUSIBLE_SPEED_MPS,
 )
+from fitting.fitfile import read_fit
 from fitting.flight import FlightModel, LaunchState, fly
 from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
 from fitting.units import (
@@ -68,7 +68,6 @@ DEFAULT_SAMPLE_MS = 1.0
 MAX_FLIGHT_S = 30.0
 #: |C_L| above which the path carries a warning: the ceiling cl_max of the published saturating form.
 SATURATING_CL_CEILING = float(SaturatingLift().cl_max)
-FIT_SCHEMA = "hopscope.fit/1"
 PATH_SCHEMA = "hopscope.path/1"
 DEFAULT_LAWS = {"drag": "constant", "lift": "linear", "decay": "exponential"}
 
@@ -268,56 +267,14 @@ def _manual_inputs(args: argparse.Namespace) -> ShotInputs:
 
 
 # ---------------------------------------------------------------------------------------------- fit.json
-# TODO(fitfile): this small reader should move to fitting.fitfile.read_fit once that exists; it reads only
-# the keys of design.md that simulate needs.
 
 
 def _fit_error(path: str, key: str, problem: str) -> ValueError:
     return ValueError(f"{path}: {key}: {problem}")
 
 
-def _fit_get(doc, path: str, key: str):
-    node = doc
-    for part in key.split("."):
-        if isinstance(node, list):
-            if not part.isdigit() or int(part) >= len(node):
-                raise _fit_error(path, key, "missing")
-            node = node[int(part)]
-        elif isinstance(node, dict):
-            if part not in node:
-                raise _fit_error(path, key, "missing")
-            node = node[part]
-        else:
-            raise _fit_error(path, key, "missing")
-    return node
-
-
-def _fit_optional_number(doc, path: str, key: str) -> float | None:
-    """A finite number, or None for null, at ``key``; an estimate ``{"value", "stderr"}`` or a bare number."""
-    node = _fit_get(doc, path, key)
-    shown = key
-    if isinstance(node, dict):
-        if "value" not in node:
-            raise _fit_error(path, f"{key}.value", "missing")
-        node = node["value"]
-        shown = f"{key}.value"
-    if node is None:
-        return None
-    if isinstance(node, bool) or not isinstance(node, int | float):
-        raise _fit_error(path, shown, f"expected a number, got {type(node).__name__}")
-    if not math.isfinite(node):
-        raise _fit_error(path, shown, f"must be finite, got {node!r}")
-    return float(node)
-
-
-def _fit_number(doc, path: str, key: str) -> float:
-    value = _fit_optional_number(doc, path, key)
-    if value is None:
-        raise _fit_error(path, key, "is null")
-    return value
-
-
 def _fit_inputs(args: argparse.Namespace) -> ShotInputs:
+    """The first shot of a fit file (read and validated by :func:`fitting.fitfile.read_fit`)."""
     path = args.fit
     manual = [
         f"--{k.replace('_', '-')}"
@@ -326,76 +283,61 @@ def _fit_inputs(args: argparse.Namespace) -> ShotInputs:
     ]
     if manual:
         raise ValueError(f"--fit: cannot be combined with {', '.join(manual)} (the fit gives them)")
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except UnicodeDecodeError as exc:
-        raise ValueError(f"{path}: not a UTF-8 text file ({exc.reason})") from None
-    try:
-        doc = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise ValueError(f"{path}: not valid JSON (line {exc.lineno}: {exc.msg})") from None
-    if not isinstance(doc, dict):
-        raise _fit_error(path, "schema", "the file is not a JSON object")
-    schema = doc.get("schema")
-    if schema != FIT_SCHEMA:
-        raise _fit_error(path, "schema", f"expected {FIT_SCHEMA!r}, got {schema!r}")
+    fit = read_fit(path)
     warnings: list[str] = []
-    speed = _fit_number(doc, path, "shots.0.initial.speed_mps")
-    elevation_deg = _fit_number(doc, path, "shots.0.initial.elevation_deg")
-    cl = _fit_number(doc, path, "shots.0.lift_coefficient")
-    cd = _fit_number(doc, path, "aero.drag_coefficient")
-    tau = _fit_optional_number(doc, path, "aero.spin_decay_time_s")
-    rho = _fit_number(doc, path, "air.density_kgm3")
-    mass = _fit_number(doc, path, "bb.mass_kg")
-    diameter = _fit_number(doc, path, "bb.diameter_m")
-    for key, value in (("bb.mass_kg", mass), ("bb.diameter_m", diameter), ("air.density_kgm3", rho)):
-        if value <= 0:
-            raise _fit_error(path, key, f"must be positive, got {value:g}")
-    if not 0.01 <= kg_to_grams(mass) <= 10.0:
-        raise _fit_error(path, "bb.mass_kg", f"{mass:g} kg is outside 0.01..10 g")
-    if not 1.0 <= m_to_mm(diameter) <= 20.0:
-        raise _fit_error(path, "bb.diameter_m", f"{diameter:g} m is outside 1..20 mm")
+    speed = fit.value("shots", 0, "initial", "speed_mps")
+    elevation_deg = fit.value("shots", 0, "initial", "elevation_deg")
+    cl = fit.value("shots", 0, "lift_coefficient")
+    if speed is None or elevation_deg is None or cl is None:
+        raise _fit_error(path, "shots[0]", "the first shot's speed, elevation or lift coefficient is null")
+    cd = fit.drag_coefficient
     if not MIN_PLAUSIBLE_SPEED_MPS < speed < MAX_PLAUSIBLE_SPEED_MPS:
         raise _fit_error(
-            path, "shots.0.initial.speed_mps.value", f"{speed:g} m/s is not a plausible BB speed"
+            path, "shots[0].initial.speed_mps.value", f"{speed:g} m/s is not a plausible BB speed"
         )
     if not -90.0 < elevation_deg < 90.0:
         raise _fit_error(
-            path, "shots.0.initial.elevation_deg.value", f"{elevation_deg:g} degrees is outside (-90, 90)"
+            path, "shots[0].initial.elevation_deg.value", f"{elevation_deg:g} degrees is outside (-90, 90)"
         )
     if not 0.0 <= cd <= 5.0:
         raise _fit_error(path, "aero.drag_coefficient.value", f"{cd:g} is outside [0, 5]")
     if not -2.0 <= cl <= 2.0:
-        raise _fit_error(path, "shots.0.lift_coefficient.value", f"{cl:g} is outside [-2, 2]")
-    if not 0.3 <= rho <= 2.0:
-        raise _fit_error(path, "air.density_kgm3.value", f"{rho:g} kg/m³ is not a plausible air density")
+        raise _fit_error(path, "shots[0].lift_coefficient.value", f"{cl:g} is outside [-2, 2]")
+    tau = fit.spin_decay_time_s
+    model = fit.data["model"]
     if tau is None:
-        tau = math.inf
-        warnings.append(f"{path}: the fit could not determine the spin decay time; simulating without decay")
+        fixed = model.get("decay_fixed_value")
+        if model.get("decay") == "exponential" and isinstance(fixed, int | float) and fixed > 0:
+            tau = 1.0 / float(fixed)
+            warnings.append(
+                f"{path}: the fit could not determine the spin decay time; simulating with the fit's assumed "
+                f"{tau:.3g} s"
+            )
+        else:
+            tau = math.inf
+            warnings.append(
+                f"{path}: the fit could not determine the spin decay time; simulating without decay"
+            )
     elif tau <= 0:
         raise _fit_error(path, "aero.spin_decay_time_s.value", f"must be positive, got {tau:g}")
-    model = doc.get("model")
-    if isinstance(model, dict):
-        for key, default in DEFAULT_LAWS.items():
-            law = model.get(key)
-            if isinstance(law, str) and law != default:
-                warnings.append(
-                    f"{path}: the fit used {key} law {law!r}; simulate uses {default!r} with the fit's coefficients"
-                )
-    n_shots = len(doc["shots"]) if isinstance(doc.get("shots"), list) else 1
-    if n_shots > 1:
-        warnings.append(f"{path}: the fit holds {n_shots} shots; simulating the first")
+    for key, default in DEFAULT_LAWS.items():
+        law = model.get(key)
+        if isinstance(law, str) and law != default:
+            warnings.append(
+                f"{path}: the fit used {key} law {law!r}; simulate uses {default!r} with the fit's coefficients"
+            )
+    if fit.n_shots > 1:
+        warnings.append(f"{path}: the fit holds {fit.n_shots} shots; simulating the first")
     if any(getattr(args, k) is not None for k in _AIR_OPTIONS):
         air, note = _air_from_args(args)
-        note += f"; given on the command line instead of the fit's {rho:.5g} kg/m³"
+        note += f"; given on the command line instead of the fit's {fit.air.density_kgm3:.5g} kg/m³"
     else:
-        # The fit gives the density; viscosity only matters for Reynolds-number laws (not used here).
-        std = Air.standard()
-        air = Air(std.temperature_k, std.pressure_pa, std.relative_humidity, rho, std.viscosity_pas)
+        air = fit.air
         note = f"from the fit ({path})"
-    bb = BB(mass, diameter)
     source = f"{path} (shots[0]; path starts at its first tracked point)"
-    return ShotInputs(bb, air, note, speed, deg_to_rad(elevation_deg), cd, cl, tau, source, tuple(warnings))
+    return ShotInputs(
+        fit.bb, air, note, speed, deg_to_rad(elevation_deg), cd, cl, tau, source, tuple(warnings)
+    )
 
 
 # ---------------------------------------------------------------------------------------------- simulation
