@@ -276,7 +276,7 @@ def levenberg_marquardt(
     upper: np.ndarray,
     *,
     max_iter: int = 40,
-    ftol: float = 1e-7,
+    ftol: float = 1e-5,
 ) -> _Fit:
     """Minimise ½‖fun(p)‖² by Levenberg–Marquardt with Marquardt's diagonal scaling, p kept in bounds.
 
