@@ -297,8 +297,7 @@ def _extend(keep: np.ndarray, taken: np.ndarray, frame, t, u, v, sig, opt: LinkO
             found = None
             for gap in range(1, opt.max_gap_frames + 2):
                 f = int(frame[end]) + direction * gap
-                cand = np.flatnonzero((frame == f) & ~taken)
-                cand = [c for c in cand if c not in idx]
+                cand = [int(c) for c in np.flatnonzero((frame == f) & ~taken) if c not in idx]
                 if not cand:
                     continue
                 tf = float(t[cand[0]])

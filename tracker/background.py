@@ -150,8 +150,8 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
     ty, tx = max(1, h // tile), max(1, w // tile)
     hh, ww = ty * tile if h >= tile else h, tx * tile if w >= tile else w
     bh, bw = hh // ty, ww // tx
-    a = np.abs(diff_low[: ty * bh, : tx * bw].astype(np.float32)).reshape(ty, bh, tx, bw)
-    a = a.transpose(0, 2, 1, 3).reshape(ty, tx, -1)
+    blocks = np.abs(diff_low[: ty * bh, : tx * bw].astype(np.float32)).reshape(ty, bh, tx, bw)
+    a = blocks.transpose(0, 2, 1, 3).reshape(ty, tx, -1)
     mad = np.median(a, axis=2)
     if np.issubdtype(diff_low.dtype, np.integer):
         # integer data: interpolate the median within its unit bin (grouped-data median), so the

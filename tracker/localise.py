@@ -375,9 +375,9 @@ def localise(
     d = (sign * diff).ravel().astype(float)
     cx, cy, l1, l2, th0 = _moments(d.reshape(rows, cols), xx, yy)
     if guess_uv is not None:
-        gx, gy = guess_uv[0] - c0, guess_uv[1] - r0
-        if 0 <= gx < cols and 0 <= gy < rows:
-            cx, cy = 0.5 * (cx + gx), 0.5 * (cy + gy)
+        qx, qy = guess_uv[0] - c0, guess_uv[1] - r0
+        if 0 <= qx < cols and 0 <= qy < rows:
+            cx, cy = 0.5 * (cx + qx), 0.5 * (cy + qy)
     c_guess = float(np.median(d))
     a_guess = float(max(d.max() - c_guess, 1e-3))
     s_guess = float(np.clip(math.sqrt(l2), 0.6, max(rows, cols) / 3))

@@ -230,8 +230,8 @@ def _annotated_video(path: Path, result: TrackResult, video: str) -> None:
         for fr in iter_frames(video):
             img = cv2.cvtColor(np.ascontiguousarray(fr.luma), cv2.COLOR_GRAY2BGR)
             _marks(img, result, upto_frame=fr.index, only_frame=fr.index)
-            img = np.ascontiguousarray(img[: stream.height, : stream.width])
-            vf = av.VideoFrame.from_ndarray(img, format="bgr24")
+            img = np.ascontiguousarray(img[: stream.height, : stream.width], dtype=np.uint8)
+            vf = av.VideoFrame.from_ndarray(img, format="bgr24")  # type: ignore[arg-type]
             for pkt in stream.encode(vf):
                 out.mux(pkt)
         for pkt in stream.encode():

@@ -14,6 +14,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -262,7 +263,7 @@ def track_video(
             shot_of.append(s)
     rejected_reasons = tuple(r for _, r in res.rejected[:5])
     fitted = len(ok)
-    base_summary = dict(
+    base_summary: dict[str, Any] = dict(
         frames_read=n_frames,
         frame_rate_hz=rate,
         candidates=n_cand,

@@ -34,6 +34,7 @@ import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -499,6 +500,6 @@ def read_track(path: str | os.PathLike[str]) -> Track:
     return track_from_csv(text, str(p))
 
 
-def replace_meta(track: Track, **changes: object) -> Track:
+def replace_meta(track: Track, **changes: Any) -> Track:
     """A copy of ``track`` with some metadata fields changed (e.g. extra warnings)."""
     return dataclasses.replace(track, meta=dataclasses.replace(track.meta, **changes))

@@ -214,9 +214,12 @@ def check_frame_rate(fps: float, what: str = "--fps") -> float:
 
 
 def _luma(frame: av.VideoFrame) -> np.ndarray:
+    arr: np.ndarray
     if frame.format.name in _LUMA_PLANE_FORMATS:
         plane = frame.planes[0]
-        arr = np.frombuffer(plane, np.uint8).reshape(frame.height, plane.line_size)[:, : frame.width]
+        arr = np.frombuffer(memoryview(plane), np.uint8).reshape(frame.height, plane.line_size)[
+            :, : frame.width
+        ]
     else:
         arr = frame.to_ndarray(format="gray")
     arr.setflags(write=False)
