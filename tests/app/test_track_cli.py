@@ -120,11 +120,20 @@ def test_bad_inputs(clip, tmp_path, capsys):
     junk.write_bytes(b"this is not a video" * 100)
     cut = tmp_path / "cut.mp4"
     cut.write_bytes(Path(video).read_bytes()[:3000])
+    zero = tmp_path / "zero.mkv"
+    import av
+
+    c = av.open(str(zero), mode="w")
+    s = c.add_stream("libx264", rate=240)
+    s.width, s.height, s.pix_fmt = SHAPE[1], SHAPE[0], "yuv420p"
+    c.start_encoding()
+    c.close()
     cases = [
         ([str(tmp_path / "none.mp4"), "--rig", rig, "-o", out], "no such video file"),
         ([str(empty), "--rig", rig, "-o", out], "video file is empty"),
         ([str(junk), "--rig", rig, "-o", out], "not a readable video"),
         ([str(cut), "--rig", rig, "-o", out], "cut.mp4"),
+        ([str(zero), "--rig", rig, "-o", out], "has no frames"),
         ([video, "--rig", str(clip["rig640"]), "-o", out], "made for 640x480 px images"),
         ([video, "--rig", str(tmp_path / "norig.json"), "-o", out], "norig.json"),
         ([str(clip["noise"]), "--rig", rig, "-o", out], "no BB found"),
