@@ -80,7 +80,11 @@ def build_ensemble(
 
     Each member: bootstrap resample of the lens views (with replacement) → cv2.calibrateCamera from the
     nominal solution; plane corners + N(0, σ²) (σ from :func:`plane_corner_sigma_px`); each placement
-    after the first shifted by N(0, offset_sigma_m²); plane z + N(0, plane_z_sigma_m²); joint PnP again.
+    after the first shifted by N(0, offset_sigma_m²); joint PnP again; the flight plane's distance from
+    the board drawn independently at the left and right edges of the field, z ± N(0, plane_z_sigma_m²)
+    each, which gives the member both an offset and a slope (a flight line not quite parallel to the
+    board: its changing depth changes the apparent scale along the path, which a single camera cannot
+    see and which biases the drag coefficient, so it belongs in the error bars).
     """
     gen = _rng(rng)
     used = {s for s in lens.views_used}
@@ -90,6 +94,7 @@ def build_ensemble(
     image0 = np.concatenate([p.image_points for p in placements])
     sigma = plane_corner_sigma_px(plane, len(image0), lens)
     start = (cv2.Rodrigues(plane.rotation)[0], plane.translation)
+    x_left, x_right = _field_x_extent(lens, plane)
     members = []
     for _ in range(size):
         idx = gen.integers(0, n, n)
@@ -105,9 +110,24 @@ def build_ensemble(
         world[:, 0] += shifts
         image = image0 + gen.normal(0.0, sigma, image0.shape)
         rot, t = solve_pose(world, image, k, d, start=start)
-        z = plane_z_m + (gen.normal(0.0, plane_z_sigma_m) if plane_z_sigma_m > 0 else 0.0)
-        members.append(CameraState(k, d, rot, t, z))
+        z0, slope = plane_z_m, 0.0
+        if plane_z_sigma_m > 0:
+            z_left, z_right = plane_z_m + gen.normal(0.0, plane_z_sigma_m, 2)
+            slope = (z_right - z_left) / (x_right - x_left)
+            z0 = z_left - slope * x_left
+        members.append(CameraState(k, d, rot, t, z0, slope))
     return tuple(members)
+
+
+def _field_x_extent(lens: LensCalibration, plane: PlanePose) -> tuple[float, float]:
+    """World x (m) where the image's left and right edges, at mid-height, meet the board's plane."""
+    w, h = lens.image_size
+    state = CameraState(lens.camera_matrix, lens.dist_coeffs, plane.rotation, plane.translation, 0.0)
+    xy = state.pixel_to_world(np.array([[0.0, 0.5 * (h - 1)], [w - 1.0, 0.5 * (h - 1)]]))
+    x_left, x_right = float(np.min(xy[:, 0])), float(np.max(xy[:, 0]))
+    if not (np.isfinite(x_left) and np.isfinite(x_right) and x_right - x_left > 1e-6):
+        raise ValueError("plane: the image edges do not meet the board's plane (camera looks past it)")
+    return x_left, x_right
 
 
 def make_rig(

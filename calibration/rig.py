@@ -77,7 +77,11 @@ class CameraState:
     dist_coeffs : (k,) distortion coefficients, OpenCV order (k1, k2, p1, p2[, k3, ...]).
     rotation : (3, 3) world → camera rotation R.
     translation : (3,) world → camera translation t, m (``X_cam = R X_world + t``).
-    plane_z_m : world z of the flight plane, m.
+    plane_z_m : world z of the flight plane at x = 0, m.
+    plane_slope : dz/dx of the flight plane (dimensionless): the flight line's angle to the board's plane.
+        0 for the nominal rig (the user declares the flight line parallel to the board); ensemble members
+        draw it from the uncertainty of the flight line's distance from the board (see
+        :func:`calibration.build.build_ensemble`). The flight plane is z = plane_z_m + plane_slope·x.
     """
 
     camera_matrix: np.ndarray
@@ -85,6 +89,7 @@ class CameraState:
     rotation: np.ndarray
     translation: np.ndarray
     plane_z_m: float = 0.0
+    plane_slope: float = 0.0
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "camera_matrix", _frozen_array(self.camera_matrix, (3, 3), "camera_matrix"))
@@ -99,6 +104,9 @@ class CameraState:
         if not math.isfinite(float(self.plane_z_m)):
             raise ValueError("rig field plane_z_m: not a finite number")
         object.__setattr__(self, "plane_z_m", float(self.plane_z_m))
+        if not (math.isfinite(float(self.plane_slope)) and abs(float(self.plane_slope)) < 0.5):
+            raise ValueError("rig field plane_slope: expected a finite number with |slope| < 0.5")
+        object.__setattr__(self, "plane_slope", float(self.plane_slope))
         k = self.camera_matrix
         if not (k[0, 0] > 0 and k[1, 1] > 0 and abs(k[2, 2] - 1.0) < 1e-12):
             raise ValueError("rig field camera_matrix: expected fx > 0, fy > 0 and K[2,2] = 1")
@@ -123,8 +131,8 @@ class CameraState:
 
         Returns
         -------
-        (N, 2) world x, y in m on the plane z = ``plane_z_m``. Rays that do not meet the plane in front of
-        the camera give NaN.
+        (N, 2) world x, y in m on the plane z = ``plane_z_m`` + ``plane_slope``·x. Rays that do not meet the
+        plane in front of the camera give NaN.
 
         Notes
         -----
@@ -140,7 +148,10 @@ class CameraState:
         rays = np.column_stack([norm, np.ones(len(norm))]) @ self.rotation  # rows: Rᵀ x_n
         c = self.camera_center_m
         with np.errstate(divide="ignore", invalid="ignore"):
-            s = (self.plane_z_m - c[2]) / rays[:, 2]
+            # C + s·D meets z = z0 + m·x where s = (z0 + m·C_x − C_z) / (D_z − m·D_x)
+            s = (self.plane_z_m + self.plane_slope * c[0] - c[2]) / (
+                rays[:, 2] - self.plane_slope * rays[:, 0]
+            )
         s = np.where(s > 0, s, np.nan)
         return c[None, :2] + s[:, None] * rays[:, :2]
 
@@ -149,7 +160,8 @@ class CameraState:
 
         Parameters
         ----------
-        xy : (N, 2) world x, y on the flight plane (z = ``plane_z_m``), or (N, 3) world x, y, z; m.
+        xy : (N, 2) world x, y on the flight plane (z = ``plane_z_m`` + ``plane_slope``·x), or (N, 3) world
+            x, y, z; m.
 
         Returns
         -------
@@ -159,7 +171,7 @@ class CameraState:
         if arr.ndim != 2 or arr.shape[1] not in (2, 3):
             raise ValueError(f"xy: expected an (N, 2) or (N, 3) array of metres, got shape {arr.shape}")
         if arr.shape[1] == 2:
-            arr = np.column_stack([arr, np.full(len(arr), self.plane_z_m)])
+            arr = np.column_stack([arr, self.plane_z_m + self.plane_slope * arr[:, 0]])
         if arr.shape[0] == 0:
             return np.zeros((0, 2))
         rvec, _ = cv2.Rodrigues(self.rotation)
@@ -190,6 +202,7 @@ class CameraState:
             "rotation": self.rotation.tolist(),
             "translation": self.translation.tolist(),
             "plane_z_m": self.plane_z_m,
+            "plane_slope": self.plane_slope,
         }
 
 
@@ -475,13 +488,17 @@ def rig_from_json(text: str, source: str = "rig.json") -> Rig:
             ]
             if missing:
                 raise ValueError(f"rig field ensemble[{i}]: missing {missing[0]!r}")
+            slope = m.get("plane_slope", 0.0)
+            if not isinstance(slope, (int, float)) or isinstance(slope, bool):
+                raise ValueError(f"rig field ensemble[{i}].plane_slope: expected a number")
             try:
                 members.append(
                     CameraState(
                         **{
                             k: m[k]
                             for k in ("camera_matrix", "dist_coeffs", "rotation", "translation", "plane_z_m")
-                        }
+                        },
+                        plane_slope=slope,
                     )
                 )
             except (ValueError, TypeError) as exc:
