@@ -1,0 +1,115 @@
+"""``hopscope profile``: pool shots of one BB type into a local drag/lift profile for simulators.
+
+Shots at different speeds (track files, any number of shots each) → C_D per Reynolds-number bin and each
+shot's lift coefficient, with uncertainties (:func:`fitting.profile.build_profile`). Writes
+``PROFILE.json`` (schema ``hopscope.profile/1``) and a CSV with the same rows beside it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+from pathlib import Path
+
+from fitting.bb import BB
+from fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
+from fitting.units import grams_to_kg, mm_to_m
+
+from ..console import summary, warn
+from ..fileio import atomic_path
+from . import fit as fit_command
+
+NAME = "profile"
+HELP = "pool shots of one BB type into a drag/lift profile (C_D vs Reynolds number, C_L per shot)"
+DESCRIPTION = (
+    "Fit shots of one BB type at different speeds and write its local aerodynamic profile: C_D per "
+    "Reynolds-number bin and each shot's lift coefficient, with standard errors, as JSON and CSV that a "
+    "trajectory simulator can load. The spin ratio is given only where the spin is known (measured, or "
+    "model-based under --assumed-lift-k)."
+)
+
+
+def register(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("tracks", nargs="+", metavar="TRACK.csv", help="track files (hopscope.track/1)")
+    parser.add_argument(
+        "--mass-g", required=True, type=fit_command._finite_float, metavar="M", help="BB mass, g"
+    )
+    parser.add_argument(
+        "--diameter-mm",
+        type=fit_command._finite_float,
+        metavar="D",
+        default=fit_command.m_to_mm(fit_command.DEFAULT_BB_DIAMETER_M),
+        help="BB diameter, mm",
+    )
+    air = parser.add_argument_group("air (defaults as for hopscope fit)")
+    air.add_argument("--temp-c", type=fit_command._finite_float, metavar="T", help="air temperature, °C")
+    air.add_argument(
+        "--pressure-hpa", type=fit_command._positive_float, metavar="P", help="air pressure, hPa"
+    )
+    air.add_argument(
+        "--humidity-pct", type=fit_command._finite_float, metavar="H", help="relative humidity, %%"
+    )
+    parser.add_argument(
+        "--bins",
+        type=int,
+        default=DEFAULT_BINS,
+        help=f"Reynolds-number bins for C_D (equal shot counts; default {DEFAULT_BINS})",
+    )
+    parser.add_argument(
+        "--assumed-lift-k",
+        type=fit_command._positive_float,
+        metavar="K",
+        help="give spin ratios S = C_L/K under the linear law (model-based, marked as such)",
+    )
+    parser.add_argument("--label", default="", help="name of the BB type, written into the files")
+    parser.add_argument(
+        "-o",
+        "--output",
+        required=True,
+        metavar="PROFILE_JSON",
+        help="the profile JSON to write (the CSV goes beside it, same name, .csv)",
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    out = Path(args.output)
+    if out.suffix.lower() != ".json":
+        raise ValueError(f"{out}: -o must name a .json file (the .csv is written beside it)")
+    if args.bins < 1:
+        raise ValueError(f"--bins: expected a positive number of bins, got {args.bins}")
+    try:
+        bb = BB(grams_to_kg(args.mass_g), mm_to_m(args.diameter_mm))
+    except ValueError as exc:
+        raise ValueError(f"--mass-g/--diameter-mm: {exc}") from None
+    air, notes = fit_command._air(args)
+    shots = []
+    for path in args.tracks:
+        s, _record, _warns = fit_command.shots_from_track(path)
+        shots += s
+    if len(shots) < 2:
+        raise ValueError(f"{', '.join(args.tracks)}: a profile needs at least two shots, found {len(shots)}")
+    prof = build_profile(
+        shots,
+        bb=bb,
+        air=air,
+        label=args.label,
+        n_bins=min(args.bins, len(shots)),
+        assumed_lift_k=args.assumed_lift_k,
+    )
+    csv_path = out.with_suffix(".csv")
+    with atomic_path(out) as tmp_json, atomic_path(csv_path) as tmp_csv:
+        tmp_json.write_text(profile_to_json(prof), encoding="utf-8")
+        tmp_csv.write_text(profile_to_csv(prof), encoding="utf-8")
+    for w in (*notes, *prof.warnings):
+        warn(w)
+    rows = [("shots", f"{len(shots)} from {len(args.tracks)} track file(s)")]
+    for b in prof.drag:
+        cd = "not determined" if b.cd is None else f"{b.cd:.4f} ± {b.cd_stderr or 0.0:.2g}"
+        rows.append((f"C_D, Re {b.re_lo:.3g}..{b.re_hi:.3g}", f"{cd} ({b.n_shots} shots)"))
+    tau = prof.spin_decay_time_s
+    rows.append(
+        ("spin decay τ", "not determined" if tau is None or not math.isfinite(tau) else f"{tau:.3g} s")
+    )
+    rows.append(("wrote", f"{out}, {csv_path}"))
+    print(summary("hopscope profile", rows))
+    return 0
