@@ -320,6 +320,27 @@ def _extend(keep: np.ndarray, taken: np.ndarray, frame, t, u, v, sig, opt: LinkO
     return np.array(idx, dtype=np.int64)
 
 
+def scatter_ratio(t_s: np.ndarray, u_px: np.ndarray, v_px: np.ndarray, sigma_px: np.ndarray) -> float:
+    """How much a shot's points scatter about a smooth path, in units of their σ (robust Birge ratio).
+
+    Each point is compared with a quadratic in time through its neighbours (leave-one-out); with correct σ
+    the squared misfit over (σᵢ² + σ_pred²) follows χ² with 2 degrees of freedom, whose median is 2 ln 2.
+    Returns sqrt(median / (2 ln 2)) (1 when fewer than 6 points). A BB's path is smooth on the scale of a
+    few frames, so a ratio above 1 means σ was too small (compression, a shape the model does not follow).
+
+    References
+    ----------
+    Birge, R. T. (1932). The calculation of errors by the method of least squares. Phys. Rev. 40:207.
+    """
+    t = np.asarray(t_s, float)
+    if t.size < 6:
+        return 1.0
+    sig = np.asarray(sigma_px, float)
+    r, sp = _loo_residuals(t, np.asarray(u_px, float), np.asarray(v_px, float), sig)
+    z2 = r**2 / (sig**2 + sp**2)
+    return float(math.sqrt(float(np.median(z2)) / (2.0 * math.log(2.0))))
+
+
 def _loo_residuals(
     tt: np.ndarray, uu: np.ndarray, vv: np.ndarray, ss: np.ndarray, half: int = 3
 ) -> tuple[np.ndarray, np.ndarray]:

@@ -20,7 +20,7 @@ import numpy as np
 
 from calibration.rig import Rig
 
-from .associate import LinkOptions, LinkResult, link
+from .associate import LinkOptions, LinkResult, link, scatter_ratio
 from .background import default_scale, windowed
 from .detect import THRESHOLD_SIGMA, find_candidates
 from .localise import Detection, localise
@@ -42,8 +42,25 @@ SPEED_RANGE_MPS = (5.0, 250.0)
 #: Polarity options and their detection signs.
 POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
 
-#: Points used for the finite-difference speed estimate at the start of a shot.
-SPEED_POINTS = 8
+#: Points used for the speed estimate at the start of a shot.
+SPEED_POINTS = 10
+
+#: A shot whose σ had to be scaled up by more than this gets a warning.
+SIGMA_SCALE_WARN = 2.0
+
+
+def start_speed(t_s: np.ndarray, x_m: np.ndarray, y_m: np.ndarray) -> float:
+    """Speed at a shot's first point, m/s: derivative of a quadratic in time through its first points.
+
+    A local polynomial derivative (the finite-difference estimate of Savitzky & Golay 1964, Anal. Chem.
+    36:1627) through up to :data:`SPEED_POINTS` points, evaluated at the first one (a line for 2 points).
+    """
+    n = min(SPEED_POINTS, t_s.size)
+    tt = t_s[:n] - t_s[0]
+    deg = 2 if n >= 4 else 1
+    cx = np.polyfit(tt, x_m[:n], deg)
+    cy = np.polyfit(tt, y_m[:n], deg)
+    return float(math.hypot(cx[-2], cy[-2]))
 
 
 @dataclass(frozen=True)
@@ -358,12 +375,21 @@ def _build_track(
     t_frame = np.array([p[2] for p in pts])
     uv = np.array([[x.u_px, x.v_px] for x in d])
     sig = np.array([x.sigma_px for x in d])
+    warns = list(warns)
+    # σ checked against the shot's own scatter about a smooth path; scaled up where it was too small
+    scales: dict[int, float] = {}
+    for s_id in np.unique(shot):
+        m = shot == s_id
+        o = np.argsort(frame[m])
+        ratio = scatter_ratio(t_frame[m][o], uv[m][o, 0], uv[m][o, 1], sig[m][o])
+        scales[int(s_id)] = max(1.0, ratio)
+        if ratio > 1.0:
+            sig[m] *= ratio
     rows = info.height
     t = t_frame + (uv[:, 1] / rows) * opt.readout_s
     if opt.exposure_s is not None:
         t = t + 0.5 * opt.exposure_s
     xy = rig.pixel_to_world(uv)
-    warns = list(warns)
     good = np.all(np.isfinite(xy), axis=1)
     if not np.all(good):
         warns.append(f"{int((~good).sum())} point(s) map to no point of the flight plane and were dropped")
@@ -406,12 +432,17 @@ def _build_track(
     shot_new = np.array([remap[int(s)] for s in shots_kept], dtype=np.int64)
     speeds: list[float] = []
     xs, ys, ts = xy[g][order, 0], xy[g][order, 1], t[g][order]
+    inv = {r: s_old for s_old, r in remap.items()}
     for s in range(len(remap)):
         m = shot_new == s
+        k = scales.get(inv[s], 1.0)
+        if k > SIGMA_SCALE_WARN:
+            warns.append(
+                f"shot {s}: the points scatter {k:.1f}x more about a smooth path than their noise-based "
+                "sigma says (compression or an unusual BB image); sigma_px and sigma_m were scaled up by that"
+            )
         if m.sum() >= 2:
-            n = min(SPEED_POINTS, int(m.sum()))
-            dx, dy, dt = np.diff(xs[m][:n]), np.diff(ys[m][:n]), np.diff(ts[m][:n])
-            sp = float(np.median(np.hypot(dx, dy) / dt))
+            sp = start_speed(ts[m], xs[m], ys[m])
             speeds.append(sp)
             lo, hi = SPEED_RANGE_MPS
             if not lo <= sp <= hi:

@@ -101,3 +101,18 @@ def test_gap_in_detections_bridged(rng):
 def test_empty():
     res = link(np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0))
     assert res.tracks == () and res.n_points == 0
+
+
+def test_scatter_ratio_measures_understated_sigma(rng):
+    from tracker.associate import scatter_ratio
+
+    k = np.arange(200)
+    t = k / FPS
+    u = 30 + 20.0 * k - 0.01 * k**2
+    v = 200 - 2.0 * k + 0.03 * k**2
+    noisy_u = u + rng.normal(0, 0.1, k.size)
+    noisy_v = v + rng.normal(0, 0.1, k.size)
+    # the robust ratio from 200 points has ~10 % scatter (median of chi-square)
+    assert abs(scatter_ratio(t, noisy_u, noisy_v, np.full(k.size, 0.1)) - 1.0) < 0.15
+    assert abs(scatter_ratio(t, noisy_u, noisy_v, np.full(k.size, 0.025)) / 4.0 - 1.0) < 0.15
+    assert scatter_ratio(t[:4], u[:4], v[:4], np.full(4, 0.1)) == 1.0

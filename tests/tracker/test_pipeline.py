@@ -172,3 +172,15 @@ def test_rig_for_another_size_and_bad_options(tmp_path, rng):
         TrackOptions(exposure_s=-1e-3)
     with pytest.raises(ValueError, match="--fps"):
         TrackOptions(fps_override=-240.0)
+
+
+def test_start_speed_is_the_derivative_at_the_first_point():
+    from tracker.pipeline import start_speed
+
+    t = np.arange(12) / 240.0
+    x = 0.1 + 90.0 * t - 0.5 * 300.0 * t**2  # decelerating
+    y = -0.2 + 5.0 * t - 0.5 * 9.81 * t**2
+    assert start_speed(t, x, y) == pytest.approx(np.hypot(90.0, 5.0), rel=1e-9)
+    assert start_speed(t[:2], x[:2], y[:2]) == pytest.approx(
+        np.hypot(np.diff(x[:2]), np.diff(y[:2]))[0] * 240.0
+    )
