@@ -4,6 +4,10 @@ One streaming pass over the clip (memory bounded by the background window), then
 mapping through the rig. The result is a :class:`TrackResult`: the :class:`~tracker.trackfile.Track` (or
 the reason there is none), a summary for the user and what the overlay needs.
 
+Uncertainty of a point: the fit's σ from the local noise (:mod:`tracker.localise`), then checked against the
+shot's own scatter about a smooth path (:func:`tracker.associate.scatter_ratio`) and scaled up by that
+ratio when it is larger than 1 (a warning when it exceeds :data:`SIGMA_SCALE_WARN`).
+
 Time of a point: the frame's time (container timestamps, or index / fps with an override), plus the
 rolling-shutter offset of the point's row, (v / rows) · readout, plus half the exposure when it is known
 (the fitted centre of a streak is the mid-exposure position).
@@ -118,7 +122,7 @@ class TrackSummary:
     rejected_candidates : localised blobs not in any shot (distractors, noise, outliers).
     outliers : points dropped from shots as off the smooth path.
     polarity : ``"bright"`` or ``"dark"`` (chosen or given).
-    shot_speeds_mps : per shot, finite-difference speed at its start, m/s.
+    shot_speeds_mps : per shot, speed at its first point (:func:`start_speed`), m/s.
     rejected_tracks : reasons for the tracks that were not accepted (a few).
     """
 

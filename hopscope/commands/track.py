@@ -122,7 +122,10 @@ def run(args: argparse.Namespace) -> int:
     ]
     for i, sp in enumerate(s.shot_speeds_mps):
         rows.append(
-            (f"shot {i} speed", f"{sp:.1f} m/s ({mps_to_fps(sp):.0f} ft/s), finite differences at its start")
+            (
+                f"shot {i} speed",
+                f"{sp:.1f} m/s ({mps_to_fps(sp):.0f} ft/s), at its first point (local quadratic)",
+            )
         )
     rows.append(("written", str(out) + (f", overlay {args.overlay}" if args.overlay else "")))
     print(summary("hopscope track", rows))
