@@ -160,3 +160,23 @@ def test_distractor_crossing_keeps_only_bb(tmp_path_factory):
     assert np.max(np.hypot(rows[:, 0], rows[:, 1])) < BB_ONLY_TOL_PX
     assert res.track.n_points >= n_vis - 1
     assert any("wiggles" in r for r in res.summary.rejected_tracks)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["lane-close", "lane-long"])
+def test_builtin_scenes(tmp_path_factory, name):
+    # lane-close: white BB, 2000 fps, 50 µs exposure; lane-long: 1080p 240 fps phone-like camera, rolling
+    # shutter, 1 ms exposure, tracer at dusk, a glowing moth crossing (demo data, invented).
+    from hopscope.scenes import builtin_scene
+
+    res, truth = _track(builtin_scene(name), 1, tmp_path_factory)
+    rows, n_vis = _compare(res, truth)
+    assert res.track.shot_ids == (0,)
+    assert res.track.n_points >= n_vis - 1
+    assert np.max(np.hypot(rows[:, 0], rows[:, 1])) < BB_ONLY_TOL_PX
+    assert float(np.sqrt(np.mean(rows[:, :2] ** 2))) <= POSITION_RMS_TOL_PX
+    ratio = _sigma_ratio(rows)
+    assert 1 / SIGMA_FACTOR <= ratio <= SIGMA_FACTOR, f"sigma/scatter {ratio:.2f}"
+    np.testing.assert_allclose(rows[:, 4], 0.0, atol=TIME_TOL_S)
+    v_true = truth["flight"]["first_in_view"]["speed_mps"]
+    assert res.summary.shot_speeds_mps[0] == pytest.approx(v_true, rel=SPEED_REL_TOL)
