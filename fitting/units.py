@@ -73,3 +73,15 @@ def deg_to_rad(a_deg: float) -> float:
 
 def rad_to_deg(a_rad: float) -> float:
     return math.degrees(a_rad)
+
+
+def ms_to_s(t_ms: float) -> float:
+    return t_ms * 1e-3
+
+
+def s_to_ms(t_s: float) -> float:
+    return t_s * 1e3
+
+
+def fraction_to_percent(x: float) -> float:
+    return x * 100.0

@@ -30,12 +30,9 @@ from fitting.observe import ShotData
 from fitting.units import m_to_mm, mm_to_m
 from tracker.overlay import check_overlay_path, write_overlay
 from tracker.pipeline import TrackOptions, TrackResult, track_video
-from tracker.trackfile import track_to_csv
+from tracker.trackfile import read_track, track_to_csv
 
 from . import __version__
-
-# glue that still lives in the fit command (to move here once its owner is done)
-from .commands.fit import shots_from_track
 from .fileio import atomic_path, write_text_atomic
 from .report import load_report_inputs, write_report
 from .report.build import DEFAULT_RANGE_M
@@ -253,8 +250,12 @@ def track_to_files(
     overlay_path: str | os.PathLike[str] | None = None,
     rig_name: str = "rig",
     progress: FrameProgress | None = None,
+    on_warning: Callable[[str], None] | None = None,
 ) -> TrackedClip:
     """Track a clip through the rig and write its track file (and overlay), both or neither.
+
+    ``on_warning`` is called with each of the tracker's warnings before anything is written (so they are
+    shown even when no BB is found).
 
     Raises
     ------
@@ -265,6 +266,9 @@ def track_to_files(
     if overlay_path is not None:
         check_overlay_path(overlay_path)
     result = track_video(str(video), rig, options, progress=progress, rig_name=rig_name)
+    if on_warning is not None:
+        for w in result.warnings:
+            on_warning(w)
     if result.track is None:
         raise ValueError(f"{video}: {result.reason}; no track written")
     with contextlib.ExitStack() as stack:
@@ -276,6 +280,25 @@ def track_to_files(
     return TrackedClip(
         Path(video), Path(track_path), None if overlay_path is None else Path(overlay_path), result
     )
+
+
+def shots_from_track(path: str | os.PathLike[str]) -> tuple[list[ShotData], dict, list[str]]:
+    """ShotData for every shot of a track file (labelled ``name#shot``), its input record and its warnings."""
+    track = read_track(path)
+    name = Path(path).name
+    shots = []
+    for sid in track.shot_ids:
+        t = track.select_shot(sid)
+        offsets = t.cal_offsets_m() if t.n_ensemble else None
+        try:
+            shots.append(
+                ShotData(t.t_s, t.x_m, t.y_m, t.sigma_m, offsets, f"{name}#{sid}", t.meta.rig_digest)
+            )
+        except ValueError as exc:
+            raise ValueError(f"{path}: {exc}") from None
+    record = {"path": str(path), "rig_digest": track.meta.rig_digest, "shots": [s.label for s in shots]}
+    warns = [f"{name}: {w}" for w in track.meta.warnings]
+    return shots, record, warns
 
 
 def fit_track_files(

@@ -12,7 +12,6 @@ origin at the first placement's first inner corner (top left in the image).
 from __future__ import annotations
 
 import argparse
-import math
 
 from calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
 from calibration.drop import STANDARD_GRAVITY_MPS2
@@ -23,6 +22,7 @@ from fitting.units import m_to_mm, mm_to_m
 from hopscope import __version__
 from hopscope.console import progress, summary, warn
 from hopscope.fileio import write_text_atomic
+from hopscope.options import finite_float, positive_float
 
 NAME = "calibrate"
 HELP = "calibrate the camera and the flight plane from grid images and write rig.json"
@@ -32,26 +32,6 @@ DESCRIPTION = (
     "offset downrange from the first placement), optionally check g, frame rate and level from a drop clip "
     "(--drop), and write rig.json with the calibration's uncertainty ensemble."
 )
-
-
-def _positive_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not (math.isfinite(v) and v > 0):
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-    return v
-
-
-def _finite_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return v
 
 
 def _count(text: str) -> int:
@@ -69,7 +49,7 @@ def register(parser: argparse.ArgumentParser) -> None:
         "--grid", required=True, metavar="COLSxROWS", help="inner corners of the grid, e.g. 11x6"
     )
     parser.add_argument(
-        "--square-mm", required=True, type=_positive_float, metavar="S", help="square side, mm"
+        "--square-mm", required=True, type=positive_float, metavar="S", help="square side, mm"
     )
     parser.add_argument(
         "--views",
@@ -90,34 +70,34 @@ def register(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--drop-fps",
-        type=_positive_float,
+        type=positive_float,
         metavar="F",
         help="frame rate of the drop clip (overrides its timestamps)",
     )
     parser.add_argument(
         "--g-expected",
-        type=_positive_float,
+        type=positive_float,
         default=STANDARD_GRAVITY_MPS2,
         metavar="G",
         help=f"expected local gravity, m/s² (default {STANDARD_GRAVITY_MPS2})",
     )
     parser.add_argument(
         "--parallax-mm",
-        type=_finite_float,
+        type=finite_float,
         default=0.0,
         metavar="D",
         help="the boards stood D mm behind the flight plane (toward the backstop); default 0",
     )
     parser.add_argument(
         "--parallax-sigma-mm",
-        type=_finite_float,
+        type=finite_float,
         default=0.0,
         metavar="S",
         help="uncertainty of --parallax-mm, mm",
     )
     parser.add_argument(
         "--offset-sigma-mm",
-        type=_finite_float,
+        type=finite_float,
         default=m_to_mm(DEFAULT_OFFSET_SIGMA_M),
         metavar="S",
         help=f"uncertainty of each taped plane offset, mm (default {m_to_mm(DEFAULT_OFFSET_SIGMA_M):g})",

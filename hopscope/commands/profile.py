@@ -11,13 +11,12 @@ import argparse
 import math
 from pathlib import Path
 
-from fitting.bb import BB
 from fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
-from fitting.units import grams_to_kg, mm_to_m
 
+from .. import options
 from ..console import summary, warn
 from ..fileio import atomic_path
-from . import fit as fit_command
+from ..pipeline import shots_from_track
 
 NAME = "profile"
 HELP = "pool shots of one BB type into a drag/lift profile (C_D vs Reynolds number, C_L per shot)"
@@ -31,24 +30,8 @@ DESCRIPTION = (
 
 def register(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("tracks", nargs="+", metavar="TRACK.csv", help="track files (hopscope.track/1)")
-    parser.add_argument(
-        "--mass-g", required=True, type=fit_command._finite_float, metavar="M", help="BB mass, g"
-    )
-    parser.add_argument(
-        "--diameter-mm",
-        type=fit_command._finite_float,
-        metavar="D",
-        default=fit_command.m_to_mm(fit_command.DEFAULT_BB_DIAMETER_M),
-        help="BB diameter, mm",
-    )
-    air = parser.add_argument_group("air (defaults as for hopscope fit)")
-    air.add_argument("--temp-c", type=fit_command._finite_float, metavar="T", help="air temperature, °C")
-    air.add_argument(
-        "--pressure-hpa", type=fit_command._positive_float, metavar="P", help="air pressure, hPa"
-    )
-    air.add_argument(
-        "--humidity-pct", type=fit_command._finite_float, metavar="H", help="relative humidity, %%"
-    )
+    options.add_bb_options(parser)
+    options.add_air_options(parser)
     parser.add_argument(
         "--bins",
         type=int,
@@ -57,7 +40,7 @@ def register(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--assumed-lift-k",
-        type=fit_command._positive_float,
+        type=options.positive_float,
         metavar="K",
         help="give spin ratios S = C_L/K under the linear law (model-based, marked as such)",
     )
@@ -77,14 +60,11 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"{out}: -o must name a .json file (the .csv is written beside it)")
     if args.bins < 1:
         raise ValueError(f"--bins: expected a positive number of bins, got {args.bins}")
-    try:
-        bb = BB(grams_to_kg(args.mass_g), mm_to_m(args.diameter_mm))
-    except ValueError as exc:
-        raise ValueError(f"--mass-g/--diameter-mm: {exc}") from None
-    air, notes = fit_command._air(args)
+    bb = options.bb_from_args(args)
+    air, notes = options.air_from_args(args)
     shots = []
     for path in args.tracks:
-        s, _record, _warns = fit_command.shots_from_track(path)
+        s, _record, _warns = shots_from_track(path)
         shots += s
     if len(shots) < 2:
         raise ValueError(f"{', '.join(args.tracks)}: a profile needs at least two shots, found {len(shots)}")

@@ -24,18 +24,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from calibration.rig import read_rig
-from fitting.bb import BB
-from fitting.constants import (
-    DEFAULT_BB_DIAMETER_M,
-    DEFAULT_HUMIDITY_PCT,
-    DEFAULT_PRESSURE_HPA,
-    DEFAULT_TEMPERATURE_C,
-)
-from fitting.estimate import DEFAULT_LOSS, LOSSES, ChronoPrior
-from fitting.laws import DECAY_LAWS, DRAG_LAWS, LIFT_LAWS
-from fitting.units import grams_to_kg, m_to_mm, mm_to_m
-from hopscope.commands.fit import _air, _finite_float, _positive_float, parameter_table, parse_chrono
-from hopscope.commands.track import _ms_to_s
+from hopscope import options
+from hopscope.commands.fit import parameter_table
 from hopscope.console import progress, summary, warn
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.pipeline import (
@@ -77,66 +67,14 @@ def register(parser: argparse.ArgumentParser) -> None:
         "videos", nargs="+", metavar="VIDEO", help="clips, or folders of clips (tracked in name order)"
     )
     parser.add_argument("--rig", required=True, help="rig.json from 'hopscope calibrate'")
-    parser.add_argument("--mass-g", required=True, type=_finite_float, metavar="M", help="BB mass, g")
-    parser.add_argument(
-        "--diameter-mm",
-        type=_finite_float,
-        default=m_to_mm(DEFAULT_BB_DIAMETER_M),
-        metavar="D",
-        help=f"BB diameter, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g})",
-    )
-    air = parser.add_argument_group(
-        f"air (default {DEFAULT_TEMPERATURE_C:g} °C, {DEFAULT_PRESSURE_HPA:g} hPa, {DEFAULT_HUMIDITY_PCT:g} %%)"
-    )
-    air.add_argument("--temp-c", type=_finite_float, metavar="T", help="air temperature, °C")
-    air.add_argument("--pressure-hpa", type=_positive_float, metavar="P", help="absolute air pressure, hPa")
-    air.add_argument("--humidity-pct", type=_finite_float, metavar="H", help="relative humidity, %%")
-    timing = parser.add_argument_group("timing (as for 'hopscope track')")
-    timing.add_argument(
-        "--fps", type=float, default=None, help="capture frame rate, Hz: replaces the container's timestamps"
-    )
-    timing.add_argument(
-        "--readout-ms",
-        type=float,
-        default=0.0,
-        help="rolling-shutter readout time, top to bottom row (default 0)",
-    )
-    timing.add_argument(
-        "--exposure-ms", type=float, default=None, help="exposure time: times become mid-exposure"
-    )
-    parser.add_argument(
-        "--polarity",
-        choices=tuple(POLARITIES),
-        default="auto",
-        help="BB brighter (bright) or darker (dark) than the background; auto decides from the clip",
-    )
-    parser.add_argument(
-        "--chrono-mps",
-        type=parse_chrono,
-        metavar="V[:SIGMA]",
-        help="chronograph speed (and its standard uncertainty, default 1 %%), m/s, a prior on every shot",
-    )
-    parser.add_argument(
-        "--muzzle-x-m",
-        type=_finite_float,
-        metavar="X",
-        help="downrange position of the muzzle/chronograph, m (the prior then applies there, not at the "
-        "first tracked point)",
-    )
-    parser.add_argument("--drag", choices=DRAG_LAWS, default="constant", help="drag law (default constant)")
-    parser.add_argument("--lift", choices=LIFT_LAWS, default="linear", help="lift law (default linear)")
-    parser.add_argument(
-        "--decay", choices=DECAY_LAWS, default="exponential", help="spin-decay law (default exponential)"
-    )
-    parser.add_argument(
-        "--loss",
-        choices=LOSSES,
-        default=DEFAULT_LOSS,
-        help=f"robust loss against outliers (default {DEFAULT_LOSS})",
-    )
+    options.add_bb_options(parser)
+    options.add_air_options(parser)
+    options.add_timing_options(parser, polarities=POLARITIES)
+    options.add_chrono_options(parser)
+    options.add_law_options(parser)
     parser.add_argument(
         "--range-m",
-        type=_positive_float,
+        type=options.positive_float,
         default=DEFAULT_RANGE_M,
         metavar="R",
         help=f"distance of the report's predicted path, m (default {DEFAULT_RANGE_M:g})",
@@ -163,21 +101,12 @@ def _output_folder(out: Path) -> Iterator[None]:
 def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome:
     """Check the inputs, then track every clip, fit them jointly and write the report (no printing
     except progress bars and the tracker's warnings)."""
-    try:
-        bb = BB(grams_to_kg(args.mass_g), mm_to_m(args.diameter_mm))
-    except ValueError as exc:
-        raise ValueError(f"--mass-g/--diameter-mm: {exc}") from None
-    air, air_notes = _air(args)
-    if args.muzzle_x_m is not None and args.chrono_mps is None:
-        raise ValueError("--muzzle-x-m: needs --chrono-mps (it says where the chronograph speed applies)")
-    chrono = None
-    if args.chrono_mps is not None:
-        chrono = ChronoPrior(args.chrono_mps[0], args.chrono_mps[1], args.muzzle_x_m)
-    options = TrackOptions(
-        fps_override=args.fps,
-        readout_s=_ms_to_s(args.readout_ms),
-        exposure_s=None if args.exposure_ms is None else _ms_to_s(args.exposure_ms),
-        polarity=args.polarity,
+    bb = options.bb_from_args(args)
+    air, air_notes = options.air_from_args(args)
+    chrono = options.chrono_from_args(args)
+    fps, readout_s, exposure_s = options.timing_seconds(args)
+    track_options = TrackOptions(
+        fps_override=fps, readout_s=readout_s, exposure_s=exposure_s, polarity=args.polarity
     )
     videos = expand_videos(args.videos)
     rig_path = Path(args.rig)
@@ -197,7 +126,7 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
             clip = track_to_files(
                 video,
                 rig,
-                options,
+                track_options,
                 track_path=track_path,
                 overlay_path=overlay_path,
                 rig_name=str(rig_path),

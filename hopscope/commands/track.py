@@ -10,16 +10,15 @@ overlay (contact sheet PNG/JPEG or annotated video).
 from __future__ import annotations
 
 import argparse
-import contextlib
 from pathlib import Path
 
 from calibration.rig import read_rig
 from fitting.units import mps_to_fps
+from hopscope import options
 from hopscope.console import progress, summary, warn
-from hopscope.fileio import atomic_path
-from tracker.overlay import check_overlay_path, write_overlay
-from tracker.pipeline import POLARITIES, TrackOptions, track_video
-from tracker.trackfile import track_to_csv
+from hopscope.pipeline import track_to_files
+from tracker.overlay import check_overlay_path
+from tracker.pipeline import POLARITIES, TrackOptions
 
 NAME = "track"
 HELP = "find the BB in every frame of a clip: positions, times and uncertainties (track.csv)"
@@ -30,32 +29,10 @@ DESCRIPTION = (
 )
 
 
-def _ms_to_s(x_ms: float) -> float:
-    """Milliseconds to seconds (the CLI speaks ms for readout and exposure)."""
-    return x_ms * 1e-3
-
-
 def register(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("video", help="the clip (any format FFmpeg reads)")
     parser.add_argument("--rig", required=True, help="rig.json from 'hopscope calibrate'")
-    parser.add_argument(
-        "--fps", type=float, default=None, help="capture frame rate, Hz: replaces the container's timestamps"
-    )
-    parser.add_argument(
-        "--readout-ms",
-        type=float,
-        default=0.0,
-        help="rolling-shutter readout time, top to bottom row (default 0)",
-    )
-    parser.add_argument(
-        "--exposure-ms", type=float, default=None, help="exposure time: times become mid-exposure"
-    )
-    parser.add_argument(
-        "--polarity",
-        choices=tuple(POLARITIES),
-        default="auto",
-        help="BB brighter (bright) or darker (dark) than the background; auto decides from the clip",
-    )
+    options.add_timing_options(parser, polarities=POLARITIES)
     parser.add_argument("-o", "--output", required=True, help="track file to write (CSV)")
     parser.add_argument(
         "--overlay",
@@ -77,28 +54,20 @@ def run(args: argparse.Namespace) -> int:
     if not Path(video).exists():
         raise FileNotFoundError(f"{video}: no such video file")
     rig = read_rig(args.rig)
-    options = TrackOptions(
-        fps_override=args.fps,
-        readout_s=_ms_to_s(args.readout_ms),
-        exposure_s=None if args.exposure_ms is None else _ms_to_s(args.exposure_ms),
-        polarity=args.polarity,
+    fps, readout_s, exposure_s = options.timing_seconds(args)
+    track_options = TrackOptions(
+        fps_override=fps, readout_s=readout_s, exposure_s=exposure_s, polarity=args.polarity
     )
 
     def bar(frames, total):
         return progress(frames, total=total, desc="tracking", unit="frame")
 
-    result = track_video(video, rig, options, progress=bar, rig_name=str(args.rig))
-    for w in result.warnings:
-        warn(w)
-    if result.track is None:
-        raise ValueError(f"{result.reason}; no track written")
+    clip = track_to_files(
+        video, rig, track_options, track_path=out, overlay_path=args.overlay or None, rig_name=str(args.rig),
+        progress=bar, on_warning=warn,
+    )  # fmt: skip
+    result = clip.result
     track = result.track
-    with contextlib.ExitStack() as stack:
-        tmp_out = stack.enter_context(atomic_path(out))
-        if args.overlay:
-            tmp_overlay = stack.enter_context(atomic_path(args.overlay))
-            write_overlay(tmp_overlay, result, video)
-        tmp_out.write_text(track_to_csv(track), encoding="utf-8")
     s = result.summary
     rows = [
         ("video", f"{video} ({result.info.width}x{result.info.height} px, {s.frames_read} frames)"),
