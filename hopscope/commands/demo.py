@@ -25,7 +25,15 @@ from pathlib import Path
 import numpy as np
 
 from fitting.estimate import Estimate
-from fitting.units import kelvin_to_celsius, kg_to_grams, m_to_mm, pa_to_hpa, rad_to_deg
+from fitting.units import (
+    fraction_to_percent,
+    kelvin_to_celsius,
+    kg_to_grams,
+    m_to_mm,
+    pa_to_hpa,
+    rad_to_deg,
+    s_to_ms,
+)
 from hopscope.commands import run as run_command
 from hopscope.commands.calibrate import summary_rows as calibration_rows
 from hopscope.console import progress, summary, warn
@@ -151,11 +159,11 @@ def run_argv(rendered, rig_path: Path, out: Path) -> list[str]:
         "--pressure-hpa",
         repr(pa_to_hpa(float(air["pressure_pa"]))),
         "--humidity-pct",
-        repr(100.0 * float(air["relative_humidity"])),
+        repr(fraction_to_percent(float(air["relative_humidity"]))),
         "--readout-ms",
-        repr(1e3 * float(cam["readout_s"])),
+        repr(s_to_ms(float(cam["readout_s"]))),
         "--exposure-ms",
-        repr(1e3 * float(cam["exposure_s"])),
+        repr(s_to_ms(float(cam["exposure_s"]))),
         "--out",
         str(out),
     ]
