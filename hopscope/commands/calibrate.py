@@ -55,6 +55,7 @@ def register(parser: argparse.ArgumentParser) -> None:
         "--views",
         required=True,
         nargs="+",
+        action="extend",
         metavar="PATH",
         help="lens views: image files, folders, globs or a video",
     )
@@ -62,8 +63,10 @@ def register(parser: argparse.ArgumentParser) -> None:
         "--plane",
         required=True,
         nargs="+",
+        action="extend",
         metavar="IMAGE[:OFFSET_M]",
-        help="frames with the board standing in the flight plane; OFFSET_M = shift downrange from the first (0)",
+        help="frames with the board standing in the flight plane; OFFSET_M = shift downrange from the first (0); "
+        "repeat the option or list several",
     )
     parser.add_argument(
         "--drop", metavar="VIDEO", help="clip of a ball dropped in the flight plane (g, level check)"

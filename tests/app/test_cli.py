@@ -101,3 +101,13 @@ def test_missing_file_error_names_the_file():
 def test_console_script_runs_in_a_subprocess():
     res = subprocess.run([sys.executable, "-m", "hopscope.cli", "--version"], capture_output=True, text=True)
     assert res.returncode == 0 and res.stdout.startswith("hopscope ")
+
+
+def test_calibrate_takes_repeated_and_listed_planes_and_views():
+    # the README writes "--plane a.png:0 --plane b.png:12"; the design lists "--plane IMAGE[:OFFSET_M]..."
+    args = cli.build_parser().parse_args(
+        ["calibrate", "--grid", "9x6", "--square-mm", "25", "--views", "a.png", "--views", "b.png", "c.png",
+         "--plane", "p0.png:0", "--plane", "p1.png:12", "p2.png:24", "-o", "rig.json"]
+    )  # fmt: skip
+    assert args.plane == ["p0.png:0", "p1.png:12", "p2.png:24"]
+    assert args.views == ["a.png", "b.png", "c.png"]
