@@ -110,12 +110,6 @@ def test_demo_close_speed_within_tolerance(close):
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(
-    strict=True,
-    reason="lane-close C_D comes out +2.2 % (2.4 σ) with seed 0: about +1.9 % from the calibration (true "
-    "pixels through the calibrated rig; one board placement covers x 0..1 m of a -0.9..2.7 m flight) and "
-    "+1 % from the tracker (tracked pixels through the true camera); the fitter alone recovers 0.4200",
-)
 def test_demo_close_drag_within_tolerance(close):
     c = _comparisons(close["dir"], "lane-close")["cd"]
     assert abs(c.relative_error) < CLOSE_CD_REL_TOL
