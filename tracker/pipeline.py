@@ -146,7 +146,7 @@ class TrackResult:
     Attributes
     ----------
     track : the Track, or None when no BB was found.
-    reason : empty, or why there is no track.
+    reason : empty, or why there is no track (without the clip's name; callers add it).
     summary : figures for the user.
     warnings : one line each (also in the track's header).
     info : the container information.
@@ -296,7 +296,7 @@ def track_video(
     det_pairs = tuple((d, sgn) for d, sgn, _, _ in dets)
     if not points:
         why = (
-            f"{video}: no BB found: {n_cand} candidate blob(s) in {n_frames} frames, "
+            f"no BB found: {n_cand} candidate blob(s) in {n_frames} frames, "
             f"{fitted} localised, none formed a fast, smooth track"
         )
         if rejected_reasons:
