@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from calibration.rig import Rig, read_rig
+from fitting.dispersion import effective_range
 from fitting.fitfile import FitFile, read_fit
 from fitting.predict import predict_path
 from fitting.units import kg_to_grams, mps_to_fps, radps_to_rpm
@@ -171,7 +172,7 @@ def _shot_curves(inputs: ReportInputs) -> list[figures.ShotCurves]:
     return curves
 
 
-def _cards(fit: FitFile, verdict_text) -> list[dict[str, str]]:
+def _cards(fit: FitFile, verdict_text, spread) -> list[dict[str, str]]:
     s0 = fit.shot(0)
     cards = []
     v, e = _est(s0["initial"]["speed_mps"])
@@ -180,7 +181,7 @@ def _cards(fit: FitFile, verdict_text) -> list[dict[str, str]]:
             {
                 "label": "speed at first point",
                 "value": f"{v:.1f} m/s",
-                "detail": f"± {e:.2g} m/s · {mps_to_fps(v):.0f} ± {mps_to_fps(e or 0):.1f} fps",
+                "detail": f"± {e:.2g} m/s · {mps_to_fps(v):.0f} ± {mps_to_fps(e or 0):.2g} fps",
             }
         )
         energy = fit.bb.kinetic_energy_j(v)
@@ -211,6 +212,26 @@ def _cards(fit: FitFile, verdict_text) -> list[dict[str, str]]:
             "detail": "" if tau is None else f"± {taue:.2g} s",
         }
     )
+    if spread is not None and spread.effective_range_m is not None:
+        err = spread.effective_range_stderr_m
+        cards.append(
+            {
+                "label": "effective range",
+                "value": f"{spread.effective_range_m:.1f} m",
+                "detail": (f"± {err:.1f} m · " if err is not None else "")
+                + f"{100 * spread.hit_fraction:.0f} % inside {100 * spread.target_diameter_m:.0f} cm",
+            }
+        )
+    elif spread is not None:
+        cards.append({"label": "effective range", "value": "not determined", "detail": spread.reason})
+    else:
+        cards.append(
+            {
+                "label": "effective range",
+                "value": "needs ≥ 2 shots",
+                "detail": "the spread between shots sets it",
+            }
+        )
     if verdict_text is not None:
         cards.append(
             {
@@ -241,7 +262,7 @@ def _parameter_rows(fit: FitFile) -> list[dict[str, str]]:
         init = s["initial"]
         for name, obj, unit, fmt, scale in (
             ("speed (along flight)", init["speed_mps"], "m/s", ".5g", 1.0),
-            ("speed (along flight)", init["speed_mps"], "fps", ".5g", 1 / 0.3048),
+            ("speed (along flight)", init["speed_mps"], "fps", ".5g", mps_to_fps(1.0)),
             ("elevation", init["elevation_deg"], "°", ".4g", 1.0),
             ("x at first point", init["x_m"], "m", ".5g", 1.0),
             ("y at first point", init["y_m"], "m", ".5g", 1.0),
@@ -347,6 +368,7 @@ def render_report(inputs: ReportInputs) -> str:
     verdict = _verdict(fit)
     prof = lift_profile(fit, shot=0, range_m=inputs.range_m)
     pred = predict_path(fit, shot=0, range_m=inputs.range_m, n_samples=BAND_SAMPLES, rng=BAND_SEED)
+    spread = effective_range(fit, rng=BAND_SEED) if fit.n_shots >= 2 else None
     figs = [
         (
             "plane",
@@ -379,9 +401,25 @@ def render_report(inputs: ReportInputs) -> str:
             f"First shot, predicted to {inputs.range_m:g} m ({pred.reached} reached) with its ±1σ band from the fit's covariance.",
         ),
     ]
-    warnings = list(
-        dict.fromkeys(list(fit.warnings) + [w for _, t in inputs.tracks for w in t.meta.warnings])
-    )
+    if spread is not None and spread.x_m.size:
+        figs.append(
+            (
+                "spread",
+                figures.spread_figure(
+                    spread.x_m,
+                    spread.fraction_inside,
+                    hit_fraction=spread.hit_fraction,
+                    target_diameter_m=spread.target_diameter_m,
+                    effective_range_m=spread.effective_range_m,
+                ),
+                "Shots inside the target against distance",
+                f"Monte Carlo over the shot-to-shot spread of the {fit.n_shots} fitted shots: the share of shots "
+                f"within a {100 * spread.target_diameter_m:.0f} cm circle about the group centre. "
+                + " ".join(n[0].upper() + n[1:] + "." for n in spread.notes),
+            )
+        )
+    # the fit already carries its tracks' warnings (prefixed with the track's name)
+    warnings = list(dict.fromkeys(fit.warnings))
     if not fit.converged:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
     env = jinja2.Environment(
@@ -399,7 +437,7 @@ def render_report(inputs: ReportInputs) -> str:
         n_shots=fit.n_shots,
         n_points=n_points,
         cautions=CAUTIONS,
-        cards=_cards(fit, verdict),
+        cards=_cards(fit, verdict, spread),
         verdict=verdict,
         warnings=warnings,
         parameters=_parameter_rows(fit),

@@ -141,3 +141,30 @@ def range_figure(
     ax.set_ylabel("height above first point (cm)")
     ax.legend(fontsize=8, frameon=False)
     return _png(fig)
+
+
+def spread_figure(
+    x_m: np.ndarray,
+    fraction_inside: np.ndarray,
+    *,
+    hit_fraction: float,
+    target_diameter_m: float,
+    effective_range_m: float | None,
+) -> bytes:
+    """Fraction of simulated shots inside the target circle against distance, with the effective range."""
+    fig, ax = _figure(height_in=3.2)
+    ax.plot(x_m, 100.0 * np.asarray(fraction_inside), color=ACCENT, linewidth=1.6)
+    ax.axhline(100.0 * hit_fraction, color=MUTED, linewidth=0.8, linestyle=":")
+    if effective_range_m is not None:
+        ax.axvline(
+            effective_range_m,
+            color=POINTS,
+            linewidth=1.2,
+            linestyle="--",
+            label=f"effective range {effective_range_m:.1f} m",
+        )
+        ax.legend(fontsize=8, frameon=False)
+    ax.set_ylim(0, 102)
+    ax.set_xlabel("downrange x (m)")
+    ax.set_ylabel(f"shots inside {100 * target_diameter_m:.0f} cm (%)")
+    return _png(fig)

@@ -22,7 +22,8 @@ from .browser import open_report
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "test-artifacts"
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
-N_FIGURES = 4
+#: plane, residuals, speed/lift, range, and (two shots or more) the spread behind the effective range
+N_FIGURES = 5
 
 
 @pytest.fixture(scope="module")
@@ -57,6 +58,22 @@ def test_report_has_cautions_table_and_figures(fit_json):
     assert 'id="parameters"' in html
     assert len(re.findall(r'<img src="data:image/png;base64,', html)) == N_FIGURES
     assert "drag coefficient C_D" in html
+
+
+def test_one_shot_report_has_no_spread_figure(tmp_path):
+    spec = ModelSpec(BB(2.8e-4), Air.standard())
+    shot = simulate_shot(spec, t_s=np.linspace(0.010, 0.040, 60), speed_mps=95.0, elevation_rad=0.004,
+                         lift_coefficient=0.02, drag_param=0.42, decay_param=0.5, sigma_m=3e-4, rng=7)  # fmt: skip
+    path = tmp_path / "one.json"
+    path.write_text(fit_to_json(fit_shots([shot], bb=spec.bb, air=spec.air)))
+    html = render_report(load_report_inputs(path))
+    assert len(re.findall(r'<img src="data:image/png;base64,', html)) == N_FIGURES - 1
+    assert "needs ≥ 2 shots" in html
+
+
+def test_effective_range_card_for_two_shots(fit_json):
+    html = render_report(load_report_inputs(fit_json))
+    assert re.search(r"effective range</div><div class=\"value\">\d+\.\d m", html)
 
 
 def test_labels_are_escaped(fit_json):
