@@ -46,3 +46,11 @@ def test_fitting_never_imports_opencv_at_runtime():
     res = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
     assert res.returncode == 0, res.stderr
     assert res.stdout.strip() == "", f"fitting pulled in: {res.stdout.strip()}"
+
+
+def test_mypy_is_clean_on_the_packages():
+    mypy = shutil.which("mypy")
+    if mypy is None:
+        pytest.fail("mypy is not installed (pip install -e '.[test]')")
+    res = _run([mypy])  # packages and settings from [tool.mypy] in pyproject.toml
+    assert res.returncode == 0, res.stdout[-4000:] + res.stderr[-2000:]

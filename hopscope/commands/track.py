@@ -68,6 +68,8 @@ def run(args: argparse.Namespace) -> int:
     )  # fmt: skip
     result = clip.result
     track = result.track
+    if track is None:  # track_to_files raises first; this keeps the types honest
+        raise RuntimeError(f"{video}: the tracker returned no track")
     s = result.summary
     rows = [
         ("video", f"{video} ({result.info.width}x{result.info.height} px, {s.frames_read} frames)"),
