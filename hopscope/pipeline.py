@@ -18,6 +18,8 @@ from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
 
+import numpy as np
+
 from calibration.grid import GridSpec
 from calibration.images import VIDEO_SUFFIXES, Progress, no_progress
 from calibration.pipeline import CalibrationRun, calibrate_files
@@ -27,6 +29,7 @@ from fitting.bb import BB
 from fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from fitting.fitfile import fit_to_json
 from fitting.observe import ShotData
+from fitting.predict import predict_path
 from fitting.units import m_to_mm, mm_to_m
 from tracker.overlay import check_overlay_path, write_overlay
 from tracker.pipeline import TrackOptions, TrackResult, track_video
@@ -337,6 +340,32 @@ def fit_track_files(
         result = replace(result, warnings=tuple(pre) + result.warnings)
     write_text_atomic(fit_path, fit_to_json(result, inputs=records))
     return FittedTracks(Path(fit_path), result, tuple(Path(p) for p in track_paths))
+
+
+def fitted_paths_px(fit: FlightFit, rig: Rig, *, points: int = 200) -> dict[str, np.ndarray]:
+    """Each fitted shot's path over its tracked span, projected back into the image through the rig.
+
+    Returns {shot label: (M, 2) pixel points (u, v), OpenCV order}. Prediction is the fitter's
+    (:func:`fitting.predict.predict_path`), projection the rig's (:meth:`calibration.rig.Rig.world_to_pixel`).
+    """
+    out = {}
+    for i, shot in enumerate(fit.shots):
+        span = float(shot.residual_t_s[-1] - shot.t0_s)
+        path = predict_path(fit, shot=i, range_m=1e3, n_samples=0, sample_s=max(span / points, 1e-6))
+        keep = path.t_s <= span + 1e-12
+        out[shot.label] = rig.world_to_pixel(np.column_stack([path.x_m[keep], path.y_m[keep]]))
+    return out
+
+
+def overlay_with_fit(clip: TrackedClip, fit: FlightFit, rig: Rig) -> None:
+    """Rewrite a clip's overlay with its shots' fitted paths drawn in (atomically; no-op without overlay)."""
+    if clip.overlay_path is None:
+        return
+    paths = fitted_paths_px(fit, rig)
+    prefix = f"{clip.track_path.name}#"
+    mine = [uv for label, uv in paths.items() if label.startswith(prefix)]
+    with atomic_path(clip.overlay_path) as tmp:
+        write_overlay(tmp, clip.result, str(clip.video), fitted_uv=mine)
 
 
 def report_to_file(

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Sequence
 from pathlib import Path
 
 import av
@@ -27,6 +28,8 @@ VIDEO_SUFFIXES = (".mp4", ".mkv", ".avi", ".mov")
 #: Colours (BGR) for shots 0, 1, 2, ... and for rejected candidates.
 SHOT_COLOURS = ((60, 220, 60), (40, 170, 255), (255, 120, 40), (220, 60, 220), (40, 220, 220))
 REJECT_COLOUR = (150, 150, 150)
+#: Colour of fitted paths projected back into the image (BGR).
+FIT_COLOUR = (255, 0, 255)
 
 #: Enlargement of the contact-sheet crops and crops per row.
 CROP_ZOOM = 4
@@ -51,10 +54,21 @@ def _pt(u: float, v: float) -> tuple[int, int]:
 
 
 def _marks(
-    img: np.ndarray, result: TrackResult, upto_frame: int | None = None, only_frame: int | None = None
+    img: np.ndarray,
+    result: TrackResult,
+    upto_frame: int | None = None,
+    only_frame: int | None = None,
+    fitted_uv: Sequence[np.ndarray] = (),
 ):
-    """Draw rejected candidates, shot paths (up to a frame) and the current points on a BGR image."""
+    """Draw rejected candidates, fitted paths, shot paths (up to a frame) and the current points (BGR)."""
     scale = max(1, img.shape[1] // 640)
+    for uv in fitted_uv:
+        uv = np.asarray(uv, dtype=float)
+        uv = uv[np.all(np.isfinite(uv), axis=1)]
+        if len(uv) > 1:
+            pts = np.array([_pt(u, v) for u, v in uv], np.int32)
+            # wider than the tracked path drawn over it, so it shows as a band around the points
+            cv2.polylines(img, [pts.reshape(-1, 1, 2)], False, FIT_COLOUR, 3 * scale, cv2.LINE_AA, _SHIFT)
     for (d, _sign), shot in zip(result.detections, result.in_shot, strict=True):
         if not d.ok or shot >= 0 or (only_frame is not None and d.frame != only_frame):
             continue
@@ -137,19 +151,25 @@ def shot_crops(result: TrackResult, video: str) -> list[tuple[int, int, int, np.
     return out
 
 
-def contact_sheet(result: TrackResult, video: str | None = None) -> np.ndarray:
-    """The contact sheet as a BGR uint8 image (crops read from ``video`` when given)."""
+def contact_sheet(
+    result: TrackResult, video: str | None = None, fitted_uv: Sequence[np.ndarray] = ()
+) -> np.ndarray:
+    """The contact sheet as a BGR uint8 image (crops read from ``video`` when given).
+
+    ``fitted_uv`` are fitted paths projected into the image, (M, 2) pixel arrays, drawn as lines.
+    """
     still = (
         result.still
         if result.still is not None
         else np.zeros((result.info.height, result.info.width), np.uint8)
     )
     top = cv2.cvtColor(np.ascontiguousarray(still), cv2.COLOR_GRAY2BGR)
-    _marks(top, result)
+    _marks(top, result, fitted_uv=fitted_uv)
     s = result.summary
     text = (
         f"{Path(result.info.path).name}: {s.points} points in {len(s.shot_speeds_mps)} shot(s), "
         f"{s.rejected_candidates} rejected candidates, polarity {s.polarity}"
+        + (", fitted path drawn" if len(fitted_uv) else "")
     )
     cv2.putText(top, text, (8, 18), cv2.FONT_HERSHEY_SIMPLEX, 0.5, (0, 255, 255), 1, cv2.LINE_AA)
     crops = shot_crops(result, video) if video is not None else []
@@ -189,7 +209,9 @@ def contact_sheet(result: TrackResult, video: str | None = None) -> np.ndarray:
     return np.vstack([top, sheet])
 
 
-def write_overlay(path: str | os.PathLike[str], result: TrackResult, video: str) -> None:
+def write_overlay(
+    path: str | os.PathLike[str], result: TrackResult, video: str, *, fitted_uv: Sequence[np.ndarray] = ()
+) -> None:
     """Write the overlay for ``result``: a contact sheet (.png/.jpg) or an annotated copy of ``video``.
 
     Parameters
@@ -197,6 +219,8 @@ def write_overlay(path: str | os.PathLike[str], result: TrackResult, video: str)
     path : output file; its suffix chooses the kind (the app passes a temporary name with the same suffix).
     result : the tracking result.
     video : the clip that was tracked (read again for an annotated video).
+    fitted_uv : fitted paths projected back into the image, (M, 2) pixel arrays (OpenCV order), drawn as
+        lines; empty before the fit.
 
     Raises
     ------
@@ -208,13 +232,15 @@ def write_overlay(path: str | os.PathLike[str], result: TrackResult, video: str)
     check_overlay_path(path)
     p = Path(path)
     if p.suffix.lower() in IMAGE_SUFFIXES:
-        if not cv2.imwrite(str(p), contact_sheet(result, video)):
+        if not cv2.imwrite(str(p), contact_sheet(result, video, fitted_uv)):
             raise OSError(f"{p}: could not write the overlay image")
         return
-    _annotated_video(p, result, video)
+    _annotated_video(p, result, video, fitted_uv)
 
 
-def _annotated_video(path: Path, result: TrackResult, video: str) -> None:
+def _annotated_video(
+    path: Path, result: TrackResult, video: str, fitted_uv: Sequence[np.ndarray] = ()
+) -> None:
     rate = result.summary.frame_rate_hz
     try:
         out = av.open(str(path), mode="w")
@@ -229,7 +255,7 @@ def _annotated_video(path: Path, result: TrackResult, video: str) -> None:
         stream.pix_fmt = "yuv420p"
         for fr in iter_frames(video):
             img = cv2.cvtColor(np.ascontiguousarray(fr.luma), cv2.COLOR_GRAY2BGR)
-            _marks(img, result, upto_frame=fr.index, only_frame=fr.index)
+            _marks(img, result, upto_frame=fr.index, only_frame=fr.index, fitted_uv=fitted_uv)
             img = np.ascontiguousarray(img[: stream.height, : stream.width], dtype=np.uint8)
             vf = av.VideoFrame.from_ndarray(img, format="bgr24")  # type: ignore[arg-type]
             for pkt in stream.encode(vf):

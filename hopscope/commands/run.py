@@ -34,6 +34,7 @@ from hopscope.pipeline import (
     TrackedClip,
     expand_videos,
     fit_track_files,
+    overlay_with_fit,
     plan_run,
     report_to_file,
     sibling_links,
@@ -147,6 +148,8 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
             loss=args.loss,
             notes=air_notes,
         )
+        for clip in clips:
+            overlay_with_fit(clip, fitted.result, rig)
         links = sibling_links(
             plan.report_path, [*plan.overlay_paths, *plan.track_paths, plan.fit_path, rig_path]
         )

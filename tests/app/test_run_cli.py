@@ -10,13 +10,18 @@ import json
 import shutil
 from pathlib import Path
 
+import cv2
+import numpy as np
 import pytest
 
+from calibration.rig import read_rig
+from fitting.estimate import fit_shots
 from fitting.fitfile import read_fit
 from hopscope import cli
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
-from hopscope.pipeline import calibrate_scene
+from hopscope.pipeline import calibrate_scene, fitted_paths_px, shots_from_track
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
+from tracker.overlay import FIT_COLOUR
 from tracker.trackfile import read_track
 
 #: Lens views of the small scene (the lens calibration needs at least 5 with the grid found).
@@ -92,6 +97,30 @@ def test_run_one_clip_writes_everything(one_run):
     fit = read_fit(out / "fit.json")
     assert fit.n_shots == 1 and fit.converged
     assert read_track(out / "track.csv").n_points > 5
+
+
+#: The fitted path, projected back into the image, passes the tracked points within this (px): the fit's
+#: residuals are a few tenths of a pixel on the small scene.
+FITTED_PATH_TOL_PX = 1.0
+
+
+def test_fitted_path_projects_onto_the_tracked_points_and_is_drawn(inputs, one_run):
+    _, out = one_run
+    fit = read_fit(out / "fit.json")
+    shots, _, _ = shots_from_track(out / "track.csv")
+    result = fit_shots(shots, bb=fit.bb, air=fit.air)
+    paths = fitted_paths_px(result, read_rig(inputs["rig"]))
+    track = read_track(out / "track.csv")
+    uv = paths["track.csv#0"]
+    dense = np.linspace(0.0, 1.0, 50 * len(uv))
+    # distance from each tracked point to the projected polyline (densely resampled)
+    line = np.column_stack([np.interp(dense, np.linspace(0, 1, len(uv)), uv[:, k]) for k in (0, 1)])
+    d = np.min(
+        np.hypot(track.u_px[:, None] - line[None, :, 0], track.v_px[:, None] - line[None, :, 1]), axis=1
+    )
+    assert np.max(d) < FITTED_PATH_TOL_PX
+    img = cv2.imread(str(out / "overlay.png"))
+    assert np.count_nonzero(np.all(img == np.array(FIT_COLOUR, np.uint8), axis=2)) > 20
 
 
 def test_run_report_holds_the_parameter_table_and_links(one_run):
