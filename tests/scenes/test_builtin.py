@@ -56,7 +56,7 @@ def test_lane_close_has_the_size_the_demo_budget_allows():
     n_vis = sum(f["visible"] for f in scene.true_flight_frames())
     assert 60 <= scene.plan.n_frames <= 100
     assert 40 <= n_vis <= 70
-    assert spec.lens.n_views == 12 and len(spec.plane.offsets_m) == 1
+    assert spec.lens.n_views == 12 and len(spec.plane.offsets_m) == 2
     # lift is a sizeable fraction of weight at launch: ½ρA C_L u² / (m g)
     air = scene.plan.model.air
     bb = scene.plan.model.bb
