@@ -94,9 +94,9 @@ def test_plane_mapping_along_true_path(close_scene):
     spread = rig.ensemble_pixel_to_world(uv) - rig.pixel_to_world(uv)[None]
     sd = np.sqrt(np.mean(np.sum(spread**2, axis=2), axis=0))
     assert np.all(err < PATH_Z_LIMIT * sd + PATH_Z_FLOOR_M)
-    # over the whole visible path (to the frame's edges, where the lens model extrapolates) the issue's
-    # 0.3 mm holds as an RMS; the largest errors sit at the frame's edge, within the ensemble's spread
-    assert np.sqrt(np.mean(err**2)) < PATH_TOL_COVERED_M
+    # the 0.3 mm over the whole visible path, to the frame's edges (lane-close stands its board at
+    # two places, so the references span most of the field)
+    assert err.max() < PATH_TOL_COVERED_M
 
 
 def test_rig_file_round_trip_of_rendered_calibration(close_scene, tmp_path):
