@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 
@@ -144,3 +145,25 @@ def test_report_in_headless_chromium(fit_json, tmp_path):
     assert page.parameter_rows >= 10
     assert "Eye protection" in page.text and "chronograph" in page.text
     assert (ARTIFACTS / "report.png").stat().st_size > 10_000
+
+
+def test_report_command_rejects_a_non_finite_value(fit_json, tmp_path, capsys):
+    doc = json.loads(fit_json.read_text())
+    doc["aero"]["drag_coefficient"]["value"] = float("nan")
+    bad = tmp_path / "nan.json"
+    bad.write_text(json.dumps(doc))  # json writes the NaN literal
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(bad), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "nan.json" in err[0] and "drag_coefficient" in err[0]
+    assert not out.exists()
+
+
+def test_report_command_rejects_a_track_of_another_schema(fit_json, tmp_path, capsys):
+    track = tmp_path / "track.csv"
+    track.write_text("# schema: hopscope.track/7\nframe,t_s\n")
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(fit_json), "--track", str(track), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "track.csv" in err[0] and "schema" in err[0]
+    assert not out.exists()
