@@ -16,6 +16,9 @@ import numpy as np
 from .air import Air
 from .bb import BB
 from .constants import STANDARD_GRAVITY_MPS2
+from .flight import fly
+from .observe import flight_for
+from .predict import check_shot, fitted_model_of, flight_time_to, shot_rows
 
 #: Lift-to-weight below this: too little hop (the BB drops early).  # common practice, no published source
 UNDER_HOP_BELOW = 0.80
@@ -115,10 +118,6 @@ def lift_profile(fit, *, shot: int = 0, range_m: float = 50.0, points: int = 200
     ``fit`` is a FlightFit, FitFile or FittedModel. The lift coefficient at each point is the lift law at
     the spin ratio S = r ω / u of the integrated state.
     """
-    from .flight import fly
-    from .observe import flight_for
-    from .predict import check_shot, fitted_model_of, flight_time_to, shot_rows
-
     fm = fitted_model_of(fit)
     check_shot(fm, shot)
     if not (math.isfinite(range_m) and range_m > 0):
