@@ -377,8 +377,12 @@ def report_to_file(
     range_m: float = DEFAULT_RANGE_M,
     links: Sequence[tuple[str, str]] = (),
     title: str | None = None,
+    write_figures: bool = True,
 ) -> Path:
-    """Write the HTML report of a fit (with its tracks and rig) atomically; returns its path."""
+    """Write the HTML report of a fit (with its tracks and rig) atomically; returns its path.
+
+    With ``write_figures`` the report's figures are also written beside it (``figure_<name>.png``).
+    """
     inputs = load_report_inputs(
         fit_path,
         track_paths=[str(p) for p in track_paths],
@@ -387,7 +391,7 @@ def report_to_file(
         links=links,
         title=title,
     )
-    return write_report(report_path, inputs)
+    return write_report(report_path, inputs, figures_dir=Path(report_path).parent if write_figures else None)
 
 
 def sibling_links(report_path: Path, paths: Iterable[Path | None]) -> tuple[tuple[str, str], ...]:

@@ -188,7 +188,8 @@ def summary_rows(outcome: RunOutcome) -> list[tuple[str, str]]:
     rows.append(
         (
             "written to",
-            f"{folder}/: {', '.join(names)}, {outcome.plan.fit_path.name}, {outcome.report_path.name}",
+            f"{folder}/: {', '.join(names)}, {outcome.plan.fit_path.name}, {outcome.report_path.name} "
+            "(its figures also as figure_*.png)",
         )
     )
     return rows

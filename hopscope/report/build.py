@@ -27,7 +27,7 @@ from fitting.verdict import judge_hop, lift_profile, lift_to_weight
 from tracker.trackfile import Track, read_track
 
 from .. import __version__
-from ..fileio import write_text_atomic
+from ..fileio import write_bytes_atomic, write_text_atomic
 from . import figures
 
 #: Safety cautions shown on every report (and in the README).
@@ -361,6 +361,11 @@ def _png64(data: bytes) -> str:
 
 def render_report(inputs: ReportInputs) -> str:
     """The report as one HTML string (autoescaped template, figures embedded)."""
+    return _render(inputs)[0]
+
+
+def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
+    """The report's HTML and its figures as (key, PNG bytes)."""
     import jinja2
 
     fit = inputs.fit
@@ -430,7 +435,7 @@ def render_report(inputs: ReportInputs) -> str:
     css = env.loader.get_source(env, "report.css")[0]  # type: ignore[union-attr]
     n_points = int(fit.data["statistics"]["n_points"])
     model_note = str(fit.data["model"].get("spin_note") or "")
-    return env.get_template("report.html").render(
+    html = env.get_template("report.html").render(
         title=inputs.title or Path(fit.source).stem,
         version=__version__,
         created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
@@ -451,10 +456,20 @@ def render_report(inputs: ReportInputs) -> str:
         inputs=", ".join([Path(fit.source).name] + [Path(p).name for p, _ in inputs.tracks]),
         css=css,
     )
+    return html, [(k, png) for k, png, _alt, _cap in figs]
 
 
-def write_report(out: str | os.PathLike[str], inputs: ReportInputs) -> Path:
-    """Render and write the report atomically; returns the path."""
-    html = render_report(inputs)
+def write_report(
+    out: str | os.PathLike[str], inputs: ReportInputs, *, figures_dir: str | os.PathLike[str] | None = None
+) -> Path:
+    """Render and write the report atomically; returns the path.
+
+    With ``figures_dir`` the figures are also written there as ``figure_<name>.png`` (each atomically), for
+    use outside the page; the page itself embeds them either way.
+    """
+    html, figs = _render(inputs)
+    if figures_dir is not None:
+        for key, png in figs:
+            write_bytes_atomic(Path(figures_dir) / f"figure_{key}.png", png)
     write_text_atomic(out, html)
     return Path(out)

@@ -93,11 +93,22 @@ def one_run(inputs, tmp_path_factory):
 def test_run_one_clip_writes_everything(one_run):
     rc, out = one_run
     assert rc == EXIT_OK
-    assert sorted(p.name for p in out.iterdir()) == ["fit.json", "overlay.png", "report.html", "track.csv"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        *ONE_SHOT_FIGURES,
+        "fit.json",
+        "overlay.png",
+        "report.html",
+        "track.csv",
+    ]
+    for name in ONE_SHOT_FIGURES:
+        assert (out / name).read_bytes().startswith(b"\x89PNG")
     fit = read_fit(out / "fit.json")
     assert fit.n_shots == 1 and fit.converged
     assert read_track(out / "track.csv").n_points > 5
 
+
+#: The report's figures, also written beside it (sorted by name; two shots or more add the spread figure).
+ONE_SHOT_FIGURES = ["figure_plane.png", "figure_range.png", "figure_residuals.png", "figure_speed-lift.png"]
 
 #: The fitted path, projected back into the image, passes the tracked points within this (px): the fit's
 #: residuals are a few tenths of a pixel on the small scene.
@@ -147,6 +158,8 @@ def test_run_folder_of_clips_fits_jointly(inputs, tmp_path):
     assert rc == EXIT_OK
     names = sorted(p.name for p in out.iterdir())
     assert names == [
+        *ONE_SHOT_FIGURES,
+        "figure_spread.png",
         "fit.json",
         "overlay_shot_a.png",
         "overlay_shot_b.png",
