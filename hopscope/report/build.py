@@ -21,6 +21,7 @@ import numpy as np
 from calibration.rig import Rig, read_rig
 from fitting.dispersion import effective_range
 from fitting.fitfile import FitFile, read_fit
+from fitting.predict import DEFAULT_RANGE_M as PREDICT_DEFAULT_RANGE_M
 from fitting.predict import predict_path
 from fitting.units import kg_to_grams, mps_to_fps, radps_to_rpm
 from fitting.verdict import judge_hop, lift_profile, lift_to_weight
@@ -38,8 +39,8 @@ CAUTIONS = (
     "the field's own chronograph is the reference, not this report.",
 )
 
-#: Default distance for the predicted path, m.
-DEFAULT_RANGE_M = 50.0
+#: Default distance for the predicted path, m (the predictor's own default).
+DEFAULT_RANGE_M = PREDICT_DEFAULT_RANGE_M
 
 #: Samples of the fit's covariance behind the ±1σ bands (fixed seed: the report is reproducible).
 BAND_SAMPLES = 200
