@@ -99,6 +99,7 @@ def predict_path(
     sample_s: float = DEFAULT_SAMPLE_S,
     n_samples: int = DEFAULT_SAMPLES,
     rng: int | np.random.Generator | None = None,
+    max_time_s: float | None = None,
 ) -> PredictedPath:
     """Predicted path of one fitted shot to ``range_m`` downrange (or the ground), with a ±1σ band.
 
@@ -111,6 +112,8 @@ def predict_path(
     sample_s : time between output points, s.
     n_samples : parameter samples for the band (0 for none).
     rng : seed or Generator for the samples.
+    max_time_s : stop after this long (s since the first tracked point) if range and ground come later;
+        e.g. the tracked span, for the fitted path over the measured points.
     """
     fm = fitted_model_of(fit)
     check_shot(fm, shot)
@@ -120,15 +123,21 @@ def predict_path(
         raise ValueError(f"sample_s must be positive, got {sample_s!r}")
     if n_samples < 0:
         raise ValueError(f"n_samples must be >= 0, got {n_samples!r}")
+    if max_time_s is not None and not (math.isfinite(max_time_s) and max_time_s > 0):
+        raise ValueError(f"max_time_s must be positive, got {max_time_s!r}")
     thetas = (
         np.vstack([fm.theta[None, :], fm.sample_theta(n_samples, rng)]) if n_samples else fm.theta[None, :]
     )
     rows = shot_rows(fm, thetas, shot)
     duration = flight_time_to(fm, rows, range_m)
+    if max_time_s is not None:
+        duration = min(duration, max_time_s)
     model, launch = flight_for(fm.spec, rows)
     traj = fly(model, launch, duration)
     nominal_traj = Trajectory(traj.t_s, traj.state[:1], traj.rate[:1])
     t = np.arange(0.0, traj.t_s[-1] + 1e-12, sample_s)
+    if max_time_s is not None and t[-1] < traj.t_s[-1] - 1e-12:
+        t = np.append(t, traj.t_s[-1])  # end exactly at the requested time
     nominal = nominal_traj.sample(t)[0]
     x, y = nominal[:, 0], nominal[:, 1]
     speed = np.linalg.norm(nominal[:, 3:6], axis=1)

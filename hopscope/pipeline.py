@@ -38,7 +38,7 @@ from tracker.trackfile import read_track, track_to_csv
 from . import __version__
 from .fileio import atomic_path, write_text_atomic
 from .report import load_report_inputs, write_report
-from .report.build import DEFAULT_RANGE_M
+from .report.build import DEFAULT_RANGE_M, SPAN_RANGE_M
 
 #: Output names of a run in its folder (one clip; several clips get ``track_<stem>.csv`` and so on).
 TRACK_NAME = "track.csv"
@@ -351,9 +351,11 @@ def fitted_paths_px(fit: FlightFit, rig: Rig, *, points: int = 200) -> dict[str,
     out = {}
     for i, shot in enumerate(fit.shots):
         span = float(shot.residual_t_s[-1] - shot.t0_s)
-        path = predict_path(fit, shot=i, range_m=1e3, n_samples=0, sample_s=max(span / points, 1e-6))
-        keep = path.t_s <= span + 1e-12
-        out[shot.label] = rig.world_to_pixel(np.column_stack([path.x_m[keep], path.y_m[keep]]))
+        span = max(span, 1e-6)
+        path = predict_path(
+            fit, shot=i, range_m=SPAN_RANGE_M, max_time_s=span, n_samples=0, sample_s=span / points
+        )
+        out[shot.label] = rig.world_to_pixel(np.column_stack([path.x_m, path.y_m]))
     return out
 
 

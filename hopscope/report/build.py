@@ -44,6 +44,8 @@ DEFAULT_RANGE_M = PREDICT_DEFAULT_RANGE_M
 
 #: Samples of the fit's covariance behind the ±1σ bands (fixed seed: the report is reproducible).
 BAND_SAMPLES = 200
+#: Range given to the predictor when only the tracked span is wanted (it stops at the span's time first).
+SPAN_RANGE_M = 1e3
 BAND_SEED = 20261201
 
 
@@ -136,17 +138,13 @@ def _shot_curves(inputs: ReportInputs) -> list[figures.ShotCurves]:
         dx = np.asarray(res["dx_m"], dtype=float)
         dy = np.asarray(res["dy_m"], dtype=float)
         t0 = float(shot["initial"]["t_s"])
-        x_end = None
-        path = predict_path(fit, shot=i, range_m=1e3, n_samples=0, sample_s=max((t[-1] - t0) / 400, 1e-5))
-        x_end = float(np.interp(t[-1] - t0, path.t_s, path.x_m)) if path.t_s.size > 1 else path.x_m[-1]
+        duration = max(float(t[-1] - t0), 1e-6)
+        # the fitted path over the tracked span (range and ground far beyond it), with its ±1σ band
         span = predict_path(
-            fit,
-            shot=i,
-            range_m=max(x_end, path.x_m[0] + 1e-3),
-            n_samples=BAND_SAMPLES,
-            rng=BAND_SEED,
-            sample_s=max((t[-1] - t0) / 300, 1e-5),
-        )
+            fit, shot=i, range_m=SPAN_RANGE_M, max_time_s=duration, n_samples=BAND_SAMPLES, rng=BAND_SEED,
+            sample_s=duration / 300,
+        )  # fmt: skip
+        path = span
         mx = np.interp(t - t0, path.t_s, path.x_m)
         my = np.interp(t - t0, path.t_s, path.y_m)
         label = shot["label"]

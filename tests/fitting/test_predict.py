@@ -86,3 +86,14 @@ def test_bad_arguments(fit):
         predict_path(fit, range_m=-1.0)
     with pytest.raises(ValueError, match="fit: expected"):
         predict_path("fit.json")  # type: ignore[arg-type]
+
+
+def test_max_time_ends_the_path_at_that_time_on_the_same_curve(fit):
+    full = predict_path(fit, range_m=40.0, n_samples=0, sample_s=1e-4)
+    cut = predict_path(fit, range_m=40.0, n_samples=0, sample_s=1e-4, max_time_s=0.0123)
+    assert cut.reached == "time" and cut.t_s[-1] == pytest.approx(0.0123, abs=1e-12)
+    n = cut.t_s.size - 1  # the common grid points (the last one is the exact end)
+    np.testing.assert_allclose(cut.x_m[:n], full.x_m[:n], atol=1e-9)
+    np.testing.assert_allclose(cut.y_m[:n], full.y_m[:n], atol=1e-9)
+    with pytest.raises(ValueError, match="max_time_s"):
+        predict_path(fit, max_time_s=0.0)
