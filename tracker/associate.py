@@ -62,6 +62,10 @@ MAX_TURN_RAD = math.radians(35.0)
 MAX_SPEED_CHANGE = 0.6
 
 
+#: Largest first step of a new track when the frame size is not known, px.
+FIRST_STEP_PX = 400.0
+
+
 @dataclass(frozen=True)
 class LinkOptions:
     """Tuning of the linker (defaults suit BB flights in the frame; see the module constants)."""
@@ -76,7 +80,9 @@ class LinkOptions:
     max_outlier_fraction: float = MAX_OUTLIER_FRACTION
     max_turn_rad: float = MAX_TURN_RAD
     max_speed_change: float = MAX_SPEED_CHANGE
-    max_first_step_px: float = 400.0
+    #: largest first step of a new track, px; None: half the frame diagonal in the tracker pipeline,
+    #: :data:`FIRST_STEP_PX` when :func:`link` is called directly
+    max_first_step_px: float | None = None
     arc_points: int = ARC_POINTS
     max_wiggle: float = MAX_WIGGLE
 
@@ -159,6 +165,7 @@ def link(
     LinkResult
     """
     opt = options or LinkOptions()
+    first_step_px = FIRST_STEP_PX if opt.max_first_step_px is None else opt.max_first_step_px
     frame = np.asarray(frame, dtype=np.int64)
     t = np.asarray(t_s, dtype=float)
     u = np.asarray(u_px, dtype=float)
@@ -168,8 +175,8 @@ def link(
     arc_xy = None
     if world_xy is not None:
         arc_xy = np.asarray(world_xy, dtype=float)
-        if arc_xy.shape != (n, 2) or not np.all(np.isfinite(arc_xy)):
-            arc_xy = None
+        if arc_xy.shape != (n, 2):
+            arc_xy = None  # (rows that map off the plane are NaN: those tracks fall back to the image test)
     if n == 0:
         return LinkResult(tracks=())
     order = np.argsort(frame, kind="stable")
@@ -200,7 +207,7 @@ def link(
                 if pred is None:
                     # a one-point track may only continue in the next frame
                     dist = math.hypot(u[di] - u[last], v[di] - v[last])
-                    if gap == 1 and opt.min_step_px <= dist <= opt.max_first_step_px:
+                    if gap == 1 and opt.min_step_px <= dist <= first_step_px:
                         pairs.append((1, dist, ti, di))
                 else:
                     pu, pv, step = pred
@@ -426,7 +433,7 @@ def _check(
     if keep.size < opt.min_points:
         return idx, np.array(out), f"only {keep.size} points on a smooth path (need {opt.min_points})"
     se = np.maximum(sig[keep], SIGMA_FLOOR_PX)
-    if arc_xy is not None and keep.size >= 2:
+    if arc_xy is not None and keep.size >= 2 and np.all(np.isfinite(arc_xy[keep])):
         # σ in metres from the local scale (metres per pixel from neighbouring points' spacing)
         step_m = np.hypot(*np.diff(arc_xy[keep], axis=0).T)
         step_px = np.hypot(np.diff(u[keep]), np.diff(v[keep]))

@@ -335,7 +335,7 @@ def _choose_polarity(
     """Link each polarity's detections; keep the polarity whose shots hold more points (auto)."""
     diag = math.hypot(info.width, info.height)
     lopt = opt.link
-    if lopt.max_first_step_px == LinkOptions().max_first_step_px:
+    if lopt.max_first_step_px is None:  # not set: half the frame diagonal
         lopt = LinkOptions(**{**lopt.__dict__, "max_first_step_px": 0.5 * diag})
     best: tuple[list[int], LinkResult, str] | None = None
     for sign, name in ((1, "bright"), (-1, "dark")):

@@ -116,3 +116,31 @@ def test_scatter_ratio_measures_understated_sigma(rng):
     assert abs(scatter_ratio(t, noisy_u, noisy_v, np.full(k.size, 0.1)) - 1.0) < 0.15
     assert abs(scatter_ratio(t, noisy_u, noisy_v, np.full(k.size, 0.025)) / 4.0 - 1.0) < 0.15
     assert scatter_ratio(t[:4], u[:4], v[:4], np.full(4, 0.1)) == 1.0
+
+
+def _bent_by_the_lens(rng):
+    """A shot smooth on the flight plane whose image path carries a small periodic bend (σ-sized many times)."""
+    n = 30
+    k = np.arange(n)
+    x = 0.05 * k - 1e-4 * k**2  # m
+    y = 0.6 - 1e-3 * k - 2e-5 * k**2
+    u = 100.0 + x / 0.002  # plus a frame-to-frame bend the world mapping removes: under the outlier
+    v = 300.0 - y / 0.002 + 0.3 * (-1.0) ** k  # floor (0.5 px) point by point, far above the noise as a whole
+    world = np.column_stack([x, y]) + rng.normal(0, SIGMA * 0.002, (n, 2))
+    return k + 5, u, v, world
+
+
+def test_world_wiggle_test_survives_one_point_off_the_plane(rng):
+    # A detection that maps off the flight plane (NaN metres) must not switch the wiggle test back to
+    # image space for the real shot, where the lens bends its path.
+    f, u, v, world = _bent_by_the_lens(rng)
+    sig = np.full(f.size, SIGMA)
+    clean = link(f, f / FPS, u, v, sig, world_xy=world)
+    assert len(clean.tracks) == 1
+    f2 = np.append(f, 12)
+    u2, v2 = np.append(u, 900.0), np.append(v, 20.0)
+    world2 = np.vstack([world, [np.nan, np.nan]])
+    res = link(f2, f2 / FPS, u2, v2, np.full(f2.size, SIGMA), world_xy=world2)
+    assert len(res.tracks) == 1 and sorted(res.tracks[0].tolist()) == list(range(f.size))
+    image_only = link(f, f / FPS, u, v, sig)  # the premise: in the image the bend reads as a wiggle
+    assert len(image_only.tracks) == 0
