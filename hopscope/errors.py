@@ -1,15 +1,10 @@
-"""Error types of the app and how the command line reports them.
+"""Exit codes of the command line, and how it reports errors.
 
 Stages raise ``ValueError`` (bad values, bad file contents) or ``OSError`` (missing/unreadable files) with a
 message that names the file or argument; the CLI turns those into one line on stderr and exit code 2.
 """
 
 from __future__ import annotations
-
-
-class InputError(ValueError):
-    """Bad input from the user: a file, an option value. Exit code 2."""
-
 
 EXIT_OK = 0
 EXIT_UNEXPECTED = 1

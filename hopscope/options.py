@@ -96,7 +96,7 @@ def bb_from_args(args: argparse.Namespace) -> BB:
 
 def add_air_options(parser: argparse.ArgumentParser) -> None:
     air = parser.add_argument_group(
-        f"air (default {DEFAULT_TEMPERATURE_C:g} °C, {DEFAULT_PRESSURE_HPA:g} hPa, {DEFAULT_HUMIDITY_PCT:g} %%)"
+        f"air (default {DEFAULT_TEMPERATURE_C:g} °C, {DEFAULT_PRESSURE_HPA:g} hPa, {DEFAULT_HUMIDITY_PCT:g} %)"
     )
     air.add_argument("--temp-c", type=finite_float, metavar="T", help="air temperature, °C")
     air.add_argument("--pressure-hpa", type=positive_float, metavar="P", help="absolute air pressure, hPa")

@@ -37,7 +37,6 @@ from fitting.units import (
 from hopscope.commands import run as run_command
 from hopscope.commands.calibrate import summary_rows as calibration_rows
 from hopscope.console import progress, summary, warn
-from hopscope.errors import EXIT_OK
 from hopscope.pipeline import RIG_NAME, calibrate_scene
 from hopscope.scenes import builtin_scene, render_scene
 
@@ -269,4 +268,4 @@ def run(args: argparse.Namespace) -> int:
         )
     )
     print(summary(f"recovered vs true ({args.scene}, demo data, invented)", rows))
-    return code if code != EXIT_OK else EXIT_OK
+    return code

@@ -64,8 +64,9 @@ def run(args: argparse.Namespace) -> int:
     air, notes = options.air_from_args(args)
     shots = []
     for path in args.tracks:
-        s, _record, _warns = shots_from_track(path)
+        s, _record, track_warnings = shots_from_track(path)
         shots += s
+        notes += track_warnings
     if len(shots) < 2:
         raise ValueError(f"{', '.join(args.tracks)}: a profile needs at least two shots, found {len(shots)}")
     prof = build_profile(

@@ -290,7 +290,9 @@ def _fit_inputs(args: argparse.Namespace) -> ShotInputs:
     cl = fit.value("shots", 0, "lift_coefficient")
     if speed is None or elevation_deg is None or cl is None:
         raise _fit_error(path, "shots[0]", "the first shot's speed, elevation or lift coefficient is null")
-    cd = fit.drag_coefficient
+    cd = fit.value("aero", "drag_coefficient")
+    if cd is None:
+        raise _fit_error(path, "aero.drag_coefficient", "is null (the fit did not determine it)")
     if not MIN_PLAUSIBLE_SPEED_MPS < speed < MAX_PLAUSIBLE_SPEED_MPS:
         raise _fit_error(
             path, "shots[0].initial.speed_mps.value", f"{speed:g} m/s is not a plausible BB speed"

@@ -171,6 +171,11 @@ def _shot_curves(inputs: ReportInputs) -> list[figures.ShotCurves]:
     return curves
 
 
+def _unc(stderr: float | None, scale: float = 1.0) -> str:
+    """'± σ' for a card, or '± ?' where the fit could not give the standard error."""
+    return "± ?" if stderr is None else f"± {stderr * scale:.2g}"
+
+
 def _cards(fit: FitFile, verdict_text, spread) -> list[dict[str, str]]:
     s0 = fit.shot(0)
     cards = []
@@ -180,7 +185,7 @@ def _cards(fit: FitFile, verdict_text, spread) -> list[dict[str, str]]:
             {
                 "label": "speed at first point",
                 "value": f"{v:.1f} m/s",
-                "detail": f"± {e:.2g} m/s · {mps_to_fps(v):.0f} ± {mps_to_fps(e or 0):.2g} fps",
+                "detail": f"{_unc(e)} m/s · {mps_to_fps(v):.0f} {_unc(e, mps_to_fps(1.0))} fps",
             }
         )
         energy = fit.bb.kinetic_energy_j(v)
@@ -188,19 +193,19 @@ def _cards(fit: FitFile, verdict_text, spread) -> list[dict[str, str]]:
             {
                 "label": "energy at first point",
                 "value": f"{energy:.2f} J",
-                "detail": f"± {2 * energy * (e or 0) / v:.2g} J · {kg_to_grams(fit.bb.mass_kg):.2f} g BB",
+                "detail": f"{_unc(e, 2 * energy / v)} J · {kg_to_grams(fit.bb.mass_kg):.2f} g BB",  # dE = 2E dv/v
             }
         )
     cd, cde = _est(fit.data["aero"]["drag_coefficient"])
     if cd is not None:
-        cards.append({"label": "drag coefficient C_D", "value": f"{cd:.3f}", "detail": f"± {cde:.2g}"})
+        cards.append({"label": "drag coefficient C_D", "value": f"{cd:.3f}", "detail": _unc(cde)})
     cl, cle = _est(s0["lift_coefficient"])
     if cl is not None:
         cards.append(
             {
                 "label": "lift coefficient C_L0",
                 "value": f"{cl:.4f}",
-                "detail": f"± {cle:.2g} at the first point",
+                "detail": f"{_unc(cle)} at the first point",
             }
         )
     tau, taue = _est(fit.data["aero"]["spin_decay_time_s"])
@@ -208,7 +213,7 @@ def _cards(fit: FitFile, verdict_text, spread) -> list[dict[str, str]]:
         {
             "label": "spin decay time τ",
             "value": "not determined" if tau is None else f"{tau:.2g} s",
-            "detail": "" if tau is None else f"± {taue:.2g} s",
+            "detail": "" if tau is None else f"{_unc(taue)} s",
         }
     )
     if spread is not None and spread.effective_range_m is not None:
@@ -249,8 +254,10 @@ def _verdict(fit: FitFile):
     if cl is None or v is None:
         return None
     ratio = lift_to_weight(cl, v, bb=fit.bb, air=fit.air, gravity_mps2=fit.spec.gravity_mps2)
+    if cle is None or ve is None or cl == 0:
+        return None  # no verdict without the uncertainty that decides it
     # first-order propagation: L/W ∝ C_L·v²
-    rel = math.hypot((cle or 0.0) / cl if cl else 0.0, 2 * (ve or 0.0) / v)
+    rel = math.hypot(cle / cl, 2 * ve / v)
     return judge_hop(ratio, abs(ratio) * rel)
 
 

@@ -102,8 +102,13 @@ class SceneCamera:
 
     def with_pose(self, rotation: np.ndarray, translation: np.ndarray) -> SceneCamera:
         """The same lens with another pose (e.g. a board's frame as the 'world')."""
-        return SceneCamera(self.image_size, self.camera_matrix, self.dist_coeffs,
-                           np.asarray(rotation, dtype=float), np.asarray(translation, dtype=float))
+        return SceneCamera(
+            self.image_size,
+            self.camera_matrix,
+            self.dist_coeffs,
+            np.asarray(rotation, dtype=float),
+            np.asarray(translation, dtype=float),
+        )
 
     def to_camera(self, points_m: np.ndarray) -> np.ndarray:
         """World points (N, 3) → camera-frame points (N, 3), m."""
@@ -159,9 +164,9 @@ class SceneCamera:
     def undistort_pixels(self, uv_px: np.ndarray) -> np.ndarray:
         """Distorted pixel points (N, 2) → normalised undistorted coordinates (N, 2), exactly (cv2)."""
         pts = np.asarray(uv_px, dtype=float).reshape(-1, 1, 2)
-        return cv2.undistortPoints(pts, self.camera_matrix, self.dist_coeffs, criteria=UNDISTORT_CRITERIA).reshape(
-            -1, 2
-        )
+        return cv2.undistortPoints(
+            pts, self.camera_matrix, self.dist_coeffs, criteria=UNDISTORT_CRITERIA
+        ).reshape(-1, 2)
 
     def to_json(self) -> dict:
         return {

@@ -200,8 +200,9 @@ class WallTexture:
     phases: np.ndarray  # (K,)
 
     @classmethod
-    def random(cls, rng: np.random.Generator, *, contrast: float, max_freq_cpm: float,
-               min_freq_cpm: float = 0.8) -> WallTexture:
+    def random(
+        cls, rng: np.random.Generator, *, contrast: float, max_freq_cpm: float, min_freq_cpm: float = 0.8
+    ) -> WallTexture:
         k = WALL_COMPONENTS
         max_freq_cpm = max(max_freq_cpm, 1.5 * min_freq_cpm)
         freq = np.exp(rng.uniform(np.log(min_freq_cpm), np.log(max_freq_cpm), k))
@@ -248,8 +249,9 @@ def wall_texture_for(camera: SceneCamera, lighting: LightingSpec, rng: np.random
     """A wall texture band-limited to periods ≥ :data:`WALL_MIN_PERIOD_PX` px as seen by ``camera``."""
     depth = float(np.abs(camera.translation[2])) + lighting.wall_distance_m
     pixel_m = depth / camera.focal_px
-    return WallTexture.random(rng, contrast=lighting.texture_contrast,
-                              max_freq_cpm=1.0 / (WALL_MIN_PERIOD_PX * pixel_m))
+    return WallTexture.random(
+        rng, contrast=lighting.texture_contrast, max_freq_cpm=1.0 / (WALL_MIN_PERIOD_PX * pixel_m)
+    )
 
 
 # ============================================================================================ board images
@@ -298,7 +300,9 @@ def _board_layer(camera: SceneCamera, board: BoardSpec, rotation, translation, s
     return alpha, refl
 
 
-def _finish(img: np.ndarray, psf_sigma_px: float, image: ImageModelSpec | None, rng: np.random.Generator | None):
+def _finish(
+    img: np.ndarray, psf_sigma_px: float, image: ImageModelSpec | None, rng: np.random.Generator | None
+):
     """Lens blur, then (optionally) shot + read noise, then 8-bit quantisation (round, saturate).
 
     Noise: σ² = DN / gain + read² (DN²), Gaussian approximation of Poisson shot noise plus read noise.
@@ -370,12 +374,26 @@ def project_board_corners(camera: SceneCamera, board: BoardSpec, rotation, trans
 
 #: Where the lens views put the board, cycling: the four corners, the four edges, the corners again, the
 #: centre (image half-sizes; the board is pushed that way until it touches the image border).
-_LENS_TARGETS = ((-1, -1), (1, -1), (1, 1), (-1, 1), (0, -1), (1, 0), (0, 1), (-1, 0),
-                 (-1, 1), (1, 1), (1, -1), (-1, -1), (0, 0))
+_LENS_TARGETS = (
+    (-1, -1),
+    (1, -1),
+    (1, 1),
+    (-1, 1),
+    (0, -1),
+    (1, 0),
+    (0, 1),
+    (-1, 0),
+    (-1, 1),
+    (1, 1),
+    (1, -1),
+    (-1, -1),
+    (0, 0),
+)
 
 
-def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_deg, fill,
-                    rng: np.random.Generator) -> list[tuple[np.ndarray, np.ndarray]]:
+def lens_view_poses(
+    camera: SceneCamera, board: BoardSpec, n_views: int, tilt_deg, fill, rng: np.random.Generator
+) -> list[tuple[np.ndarray, np.ndarray]]:
     """Board poses (R, t) (board→camera) as a careful user holds them: tilted 20-45°, filling the frame.
 
     Tilt directions go round the compass; the board visits the image's corners, edges and centre in turn
@@ -396,8 +414,12 @@ def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_de
         if np.any(pts[:, 2] <= 0.05 * tr[2]):
             return False
         uv = project_camera_points(camera, pts)
-        return bool(uv[:, 0].min() > margin and uv[:, 0].max() < w - 1 - margin and uv[:, 1].min() > margin
-                    and uv[:, 1].max() < h - 1 - margin)
+        return bool(
+            uv[:, 0].min() > margin
+            and uv[:, 0].max() < w - 1 - margin
+            and uv[:, 1].min() > margin
+            and uv[:, 1].max() < h - 1 - margin
+        )
 
     def pose(rot, f, off):
         z = camera.camera_matrix[0, 0] * board.width_m / (f * w)
@@ -437,8 +459,11 @@ def lens_view_poses(camera: SceneCamera, board: BoardSpec, n_views: int, tilt_de
         best = None
         for _attempt in range(40):  # a smaller board if even the centred one does not fit
             for psi, g in itertools.product(psis, (gamma, -gamma) if target != (0, 0) else (gamma,)):
-                rot = (rotation_about((math.cos(psi), math.sin(psi), 0.0), tilt) @ base
-                       @ rotation_about((0, 0, 1), g))
+                rot = (
+                    rotation_about((math.cos(psi), math.sin(psi), 0.0), tilt)
+                    @ base
+                    @ rotation_about((0, 0, 1), g)
+                )
                 tr = push(rot, f, goal)
                 if tr is None:
                     continue
@@ -518,7 +543,13 @@ def _visible_mask(camera: SceneCamera, pos: np.ndarray) -> tuple[np.ndarray, np.
     cam = camera.to_camera(pos)
     uv = project_camera_points(camera, cam)
     w, h = camera.image_size
-    vis = (cam[:, 2] > 0) & (uv[:, 0] >= -0.5) & (uv[:, 0] <= w - 0.5) & (uv[:, 1] >= -0.5) & (uv[:, 1] <= h - 0.5)
+    vis = (
+        (cam[:, 2] > 0)
+        & (uv[:, 0] >= -0.5)
+        & (uv[:, 0] <= w - 0.5)
+        & (uv[:, 1] >= -0.5)
+        & (uv[:, 1] <= h - 0.5)
+    )
     return vis, uv
 
 
@@ -560,7 +591,9 @@ def plan_flight(spec: SceneSpec, camera: SceneCamera, readout_s: float) -> Fligh
     tg = np.arange(0.0, traj.t_s[-1], 2e-5)
     vis, _ = _visible_mask(camera, traj.sample(tg)[0, :, 0:3])
     if not np.any(vis):
-        raise ValueError(f"scene {spec.name!r}: the BB never crosses the image (check muzzle_m and the camera)")
+        raise ValueError(
+            f"scene {spec.name!r}: the BB never crosses the image (check muzzle_m and the camera)"
+        )
     idx = np.nonzero(vis)[0]
     t_enter, t_exit = float(tg[idx[0]]), float(tg[idx[-1]])
     if idx[-1] == tg.size - 1:
@@ -621,7 +654,9 @@ def _draw_distractor(ctx: _ClipContext, img: np.ndarray, t_k: float, clutter: Cl
     h, w = img.shape
     t = t_k + _row_offsets(ctx, np.arange(h))
     speed = math.hypot(*clutter.velocity_pxps)
-    nx, ny = (-clutter.velocity_pxps[1] / speed, clutter.velocity_pxps[0] / speed) if speed > 0 else (0.0, 1.0)
+    nx, ny = (
+        (-clutter.velocity_pxps[1] / speed, clutter.velocity_pxps[0] / speed) if speed > 0 else (0.0, 1.0)
+    )
     wob = clutter.wobble_px * np.sin(2 * np.pi * clutter.wobble_hz * t)
     cu = clutter.start_px[0] + clutter.velocity_pxps[0] * t + nx * wob
     cv = clutter.start_px[1] + clutter.velocity_pxps[1] * t + ny * wob
@@ -641,8 +676,15 @@ def _draw_distractor(ctx: _ClipContext, img: np.ndarray, t_k: float, clutter: Cl
         img[rows[:, None], cols[None, :]] += clutter.glow_dn * cover
 
 
-def _draw_bb(ctx: _ClipContext, img: np.ndarray, gain_rows: np.ndarray, motion: _Motion, t_k: float,
-             bb: BBSpec, image: ImageModelSpec) -> None:
+def _draw_bb(
+    ctx: _ClipContext,
+    img: np.ndarray,
+    gain_rows: np.ndarray,
+    motion: _Motion,
+    t_k: float,
+    bb: BBSpec,
+    image: ImageModelSpec,
+) -> None:
     """Composite the BB into ``img`` (sharp, DN) for the frame starting at video time ``t_k``."""
     cam = ctx.camera
     w, h = cam.image_size
@@ -710,8 +752,10 @@ def _draw_bb(ctx: _ClipContext, img: np.ndarray, gain_rows: np.ndarray, motion: 
     else:  # tracer: self-luminous core and halo
         radiance = np.zeros_like(d)
         sig = bb.halo_sigma_px + rr
-        emit = (bb.brightness_dn * cover
-                + bb.halo_dn * np.exp(-0.5 * d2 / (sig * sig)) * present[:, :, None, None])
+        emit = (
+            bb.brightness_dn * cover
+            + bb.halo_dn * np.exp(-0.5 * d2 / (sig * sig)) * present[:, :, None, None]
+        )
     shape = (rows.size, n_sub, q, cols.size, q)
     alpha = np.broadcast_to(cover, d.shape).reshape(shape).mean(axis=(1, 2, 4))
     refl = np.broadcast_to(cover * radiance, d.shape).reshape(shape).mean(axis=(1, 2, 4))
@@ -723,8 +767,15 @@ def _draw_bb(ctx: _ClipContext, img: np.ndarray, gain_rows: np.ndarray, motion: 
     img[v_lo : v_hi + 1, u_lo : u_hi + 1] = new
 
 
-def clip_frame(ctx: _ClipContext, k: int, motion: _Motion | None, *, rng: np.random.Generator | None,
-               with_clutter: bool = True, quantise: bool = True) -> np.ndarray:
+def clip_frame(
+    ctx: _ClipContext,
+    k: int,
+    motion: _Motion | None,
+    *,
+    rng: np.random.Generator | None,
+    with_clutter: bool = True,
+    quantise: bool = True,
+) -> np.ndarray:
     """Frame ``k`` of a clip: background × flicker, distractor, BB, lens blur, noise, 8-bit (or float DN)."""
     spec = ctx.spec
     t_k = k / ctx.fps
@@ -771,21 +822,23 @@ def _true_frames(ctx: _ClipContext, motion: _Motion, n_frames: int) -> list[dict
         uv3 = project_camera_points(cam, pc)
         uv = uv3[1]
         vis = bool(present[1] and pc[1, 2] > 0 and -0.5 <= uv[0] <= w - 0.5 and -0.5 <= uv[1] <= h - 0.5)
-        out.append({
-            "frame": k,
-            "t_s": t_k,
-            "t_mid_s": float(t_mid),
-            "u_px": float(uv[0]),
-            "v_px": float(uv[1]),
-            "x_m": float(pos[1, 0]),
-            "y_m": float(pos[1, 1]),
-            "z_m": float(pos[1, 2]),
-            "visible": vis,
-            "radius_px": float(fx * r_m / pc[1, 2]),
-            "streak_len_px": float(np.linalg.norm(uv3[2] - uv3[0])) if present.all() else 0.0,
-            "spin_radps": spin,
-            "spin_angle_rad": float(ang[1]),
-        })
+        out.append(
+            {
+                "frame": k,
+                "t_s": t_k,
+                "t_mid_s": float(t_mid),
+                "u_px": float(uv[0]),
+                "v_px": float(uv[1]),
+                "x_m": float(pos[1, 0]),
+                "y_m": float(pos[1, 1]),
+                "z_m": float(pos[1, 2]),
+                "visible": vis,
+                "radius_px": float(fx * r_m / pc[1, 2]),
+                "streak_len_px": float(np.linalg.norm(uv3[2] - uv3[0])) if present.all() else 0.0,
+                "spin_radps": spin,
+                "spin_angle_rad": float(ang[1]),
+            }
+        )
     return out
 
 
@@ -844,11 +897,24 @@ class PreparedScene:
     def drop_context(self) -> _ClipContext:
         return _ClipContext(self.camera, self.spec, self.background, self.readout_s, drop_fps(self.spec))
 
-    def flight_frame(self, k: int, *, rng: np.random.Generator | None = None, bb: bool = True,
-                     quantise: bool = True, with_clutter: bool = True) -> np.ndarray:
+    def flight_frame(
+        self,
+        k: int,
+        *,
+        rng: np.random.Generator | None = None,
+        bb: bool = True,
+        quantise: bool = True,
+        with_clutter: bool = True,
+    ) -> np.ndarray:
         """Frame ``k`` of the flight clip (8-bit, or float DN before noise when ``quantise=False``)."""
-        return clip_frame(self.context, k, self.flight_motion if bb else None, rng=rng,
-                          quantise=quantise, with_clutter=with_clutter)
+        return clip_frame(
+            self.context,
+            k,
+            self.flight_motion if bb else None,
+            rng=rng,
+            quantise=quantise,
+            with_clutter=with_clutter,
+        )
 
     def true_flight_frames(self) -> list[dict[str, Any]]:
         """truth.json's per-frame records of the flight clip."""
@@ -864,8 +930,9 @@ class PreparedScene:
             object.__setattr__(self, "_drop", cached)
         return cached
 
-    def drop_frame(self, k: int, *, rng: np.random.Generator | None = None, bb: bool = True,
-                   quantise: bool = True) -> np.ndarray:
+    def drop_frame(
+        self, k: int, *, rng: np.random.Generator | None = None, bb: bool = True, quantise: bool = True
+    ) -> np.ndarray:
         """Frame ``k`` of the drop clip (8-bit, or float DN before noise when ``quantise=False``)."""
         motion = self.drop_plan()[0]
         return clip_frame(self.drop_context, k, motion if bb else None, rng=rng, quantise=quantise)
@@ -1011,8 +1078,9 @@ def render_scene(
     }
     if "lens" in parts:
         (out / "lens").mkdir(exist_ok=True)
-        poses = lens_view_poses(cam, spec.board, spec.lens.n_views, spec.lens.tilt_deg, spec.lens.fill,
-                                scene.streams["lens"])
+        poses = lens_view_poses(
+            cam, spec.board, spec.lens.n_views, spec.lens.tilt_deg, spec.lens.fill, scene.streams["lens"]
+        )
         noise_rng = scene.streams["lens"].spawn(1)[0]
         for i, (rot, tr) in enumerate(poses):
             img = _board_image_on(scene, rot, tr, spec.lens.supersample, noise_rng)
@@ -1039,7 +1107,9 @@ def render_scene(
         motion, n_drop, t0 = scene.drop_plan()
         rng_d = scene.streams["drop"]
         frames = (scene.drop_frame(k, rng=rng_d) for k in range(n_drop))
-        _write_clip(out / "drop.mp4", _counting(frames, n_drop, "drop clip", tick), cam.image_size, drop_fps(spec))
+        _write_clip(
+            out / "drop.mp4", _counting(frames, n_drop, "drop clip", tick), cam.image_size, drop_fps(spec)
+        )
         tf = scene.true_drop_frames()
         vis_t = [f["t_mid_s"] for f in tf if f["visible"]]
         truth["drop"] = {
@@ -1058,7 +1128,9 @@ def render_scene(
         rng_f = scene.streams["flight"]
         n = scene.plan.n_frames
         frames = (clip_frame(ctx, k, scene.flight_motion, rng=rng_f) for k in range(n))
-        _write_clip(out / "flight.mp4", _counting(frames, n, "flight clip", tick), cam.image_size, spec.camera.fps)
+        _write_clip(
+            out / "flight.mp4", _counting(frames, n, "flight clip", tick), cam.image_size, spec.camera.fps
+        )
         truth["flight"] = _flight_truth(scene)
     write_text_atomic(out / "truth.json", json.dumps(truth, indent=1))
     return _rendered_from_truth(out, truth)
@@ -1073,8 +1145,16 @@ def _counting(frames, total: int, stage: str, tick):
 def _board_image_on(scene: PreparedScene, rot, tr, supersample: int, rng: np.random.Generator) -> np.ndarray:
     spec = scene.spec
     return render_board_image(
-        scene.camera, spec.board, rot, tr, lighting=spec.lighting, background=scene.background,
-        supersample=supersample, psf_sigma_px=spec.camera.psf_sigma_px, image=spec.image, rng=rng,
+        scene.camera,
+        spec.board,
+        rot,
+        tr,
+        lighting=spec.lighting,
+        background=scene.background,
+        supersample=supersample,
+        psf_sigma_px=spec.camera.psf_sigma_px,
+        image=spec.image,
+        rng=rng,
     )
 
 
@@ -1096,8 +1176,12 @@ def _flight_truth(scene: PreparedScene) -> dict[str, Any]:
         "file": "flight.mp4",
         "n_frames": plan.n_frames,
         "fps": spec.camera.fps,
-        "bb": {"kind": spec.bb.kind, "mass_kg": bb.mass_kg, "diameter_m": bb.diameter_m,
-               "mark_phase_rad": math.radians(spec.bb.mark_phase_deg)},
+        "bb": {
+            "kind": spec.bb.kind,
+            "mass_kg": bb.mass_kg,
+            "diameter_m": bb.diameter_m,
+            "mark_phase_rad": math.radians(spec.bb.mark_phase_deg),
+        },
         "air": {
             "temperature_k": air.temperature_k,
             "pressure_pa": air.pressure_pa,

@@ -139,8 +139,10 @@ class BoardSpec:
         _finite("board margin_m", self.margin_m)
         if self.margin_m < 0:
             raise ValueError(f"board margin_m must be >= 0, got {self.margin_m!r}")
-        for name, refl in (("board black_reflectance", self.black_reflectance),
-                           ("board white_reflectance", self.white_reflectance)):
+        for name, refl in (
+            ("board black_reflectance", self.black_reflectance),
+            ("board white_reflectance", self.white_reflectance),
+        ):
             _finite(name, refl)
             if not 0 <= refl <= 1:
                 raise ValueError(f"{name} must lie in 0..1, got {refl!r}")
@@ -240,8 +242,11 @@ class LightingSpec:
         _positive("lighting wall_level_dn", self.wall_level_dn)
         _positive("lighting board_illumination_dn", self.board_illumination_dn)
         _positive("lighting flicker_hz", self.flicker_hz)
-        for name, v in (("texture_contrast", self.texture_contrast), ("gradient", self.gradient),
-                        ("flicker_amplitude", self.flicker_amplitude)):
+        for name, v in (
+            ("texture_contrast", self.texture_contrast),
+            ("gradient", self.gradient),
+            ("flicker_amplitude", self.flicker_amplitude),
+        ):
             _finite(f"lighting {name}", v)
             if not 0 <= v < 1:
                 raise ValueError(f"lighting {name} must lie in 0..1, got {v!r}")
@@ -453,8 +458,12 @@ class SceneSpec:
                     f"drop fps {self.drop.fps:g}: the camera's exposure_s and readout_s must each be at most "
                     f"the drop's frame period ({period:g} s)"
                 )
-        if not (isinstance(self.name, str) and self.name and all(c.isalnum() or c in "-_" for c in self.name)):
-            raise ValueError(f"scene name must be a non-empty word of letters, digits, '-' or '_', got {self.name!r}")
+        if not (
+            isinstance(self.name, str) and self.name and all(c.isalnum() or c in "-_" for c in self.name)
+        ):
+            raise ValueError(
+                f"scene name must be a non-empty word of letters, digits, '-' or '_', got {self.name!r}"
+            )
 
     def to_dict(self) -> dict[str, Any]:
         """Plain nested dict (JSON-ready) of every field."""
@@ -462,7 +471,9 @@ class SceneSpec:
 
     def digest(self, seed: int | None) -> str:
         """SHA-256 of the spec, the seed and the renderer version (a cache key)."""
-        text = json.dumps({"spec": self.to_dict(), "seed": seed, "renderer": RENDERER_VERSION}, sort_keys=True)
+        text = json.dumps(
+            {"spec": self.to_dict(), "seed": seed, "renderer": RENDERER_VERSION}, sort_keys=True
+        )
         return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 

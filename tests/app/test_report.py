@@ -167,3 +167,14 @@ def test_report_command_rejects_a_track_of_another_schema(fit_json, tmp_path, ca
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "track.csv" in err[0] and "schema" in err[0]
     assert not out.exists()
+
+
+def test_report_with_a_null_stderr_renders(fit_json, tmp_path):
+    # a fit may leave a standard error null (the reader allows it); the page shows "± ?" instead
+    doc = json.loads(fit_json.read_text())
+    doc["shots"][0]["initial"]["speed_mps"]["stderr"] = None
+    doc["aero"]["drag_coefficient"]["stderr"] = None
+    path = tmp_path / "nulls.json"
+    path.write_text(json.dumps(doc))
+    html = render_report(load_report_inputs(path))
+    assert "± ?" in html

@@ -375,3 +375,15 @@ def test_fit_air_can_be_overridden_and_extra_shots_are_named(tmp_path, capsys):
     assert any("holds 2 shots; simulating the first" in w for w in warnings)
     assert any("drag law 'sphere'" in w for w in warnings)
     assert err.count("warning:") == len(warnings)
+
+
+def test_fit_with_undetermined_drag_is_one_line_exit_2(tmp_path, capsys):
+    doc = _fit_doc()
+    doc["converged"] = False
+    doc["reason"] = "parameter drag_coefficient ran to its bound 2"
+    doc["aero"]["drag_coefficient"] = {"value": None, "stderr": None}
+    fit = tmp_path / "fit.json"
+    fit.write_text(json.dumps(doc), encoding="utf-8")
+    rc, _, err = _run(capsys, ["--fit", str(fit), "-o", str(tmp_path / "p.csv")])
+    assert rc == 2 and "aero.drag_coefficient" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "p.csv").exists()
