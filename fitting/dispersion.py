@@ -89,7 +89,8 @@ def shot_spread(fm: FittedModel) -> tuple[np.ndarray, np.ndarray]:
     """Mean and shot-to-shot covariance of (speed, elevation, C_L0) over the fitted shots.
 
     The covariance is the sample covariance across shots minus the mean per-shot measurement covariance
-    (from the fit), projected onto the positive semi-definite matrices.
+    (from the fit, without the calibration's part: shots mapped with one rig share their calibration
+    error, so it does not widen their spread), projected onto the positive semi-definite matrices.
     """
     n = fm.n_shots
     idx = np.array([[5 * i + s for s in _STATE_SLOTS] for i in range(n)])
@@ -104,7 +105,7 @@ def shot_spread(fm: FittedModel) -> tuple[np.ndarray, np.ndarray]:
         cols = idx[i]
         if np.all(fm.free[cols]):
             pos = free_pos[cols]
-            meas += fm.covariance[np.ix_(pos, pos)]
+            meas += fm.noise_covariance[np.ix_(pos, pos)]
     meas /= n
     cov = between - meas
     w, v = np.linalg.eigh(0.5 * (cov + cov.T))

@@ -225,6 +225,15 @@ class FittedModel:
     covariance: np.ndarray
     labels: tuple[str, ...]
     t0_s: np.ndarray
+    #: the calibration's part of ``covariance`` (shared by shots mapped with one rig), or None if unknown
+    covariance_calibration: np.ndarray | None = None
+
+    @property
+    def noise_covariance(self) -> np.ndarray:
+        """The covariance without the calibration's part (what differs from shot to shot)."""
+        if self.covariance_calibration is None:
+            return self.covariance
+        return self.covariance - self.covariance_calibration
 
     @property
     def n_shots(self) -> int:
@@ -311,6 +320,7 @@ class FlightFit:
             self.covariance.copy(),
             tuple(s.label for s in self.shots),
             np.array([s.t0_s for s in self.shots]),
+            self.covariance_calibration.copy(),
         )
 
 

@@ -376,6 +376,7 @@ class FitFile:
             np.array(p["covariance"], dtype=float).reshape(int(free.sum()), int(free.sum())),
             self.labels,
             np.array([s["initial"]["t_s"] for s in self.data["shots"]], dtype=float),
+            np.array(p["covariance_calibration"], dtype=float).reshape(int(free.sum()), int(free.sum())),
         )
 
 
@@ -463,12 +464,13 @@ def fit_from_json(text: str, source: str = "<fit>") -> FitFile:
     if not isinstance(free, list) or len(free) != expected or not all(isinstance(f, bool) for f in free):
         raise rd.fail("parameters.free", f"expected a list of {expected} booleans")
     n_free = sum(free)
-    if conv:
-        rd.matrix(p, "covariance", "parameters", n_free)
-    else:
-        cov = rd.get(p, "covariance", "parameters")
-        if not isinstance(cov, list) or len(cov) != n_free:
-            raise rd.fail("parameters.covariance", f"expected a {n_free}×{n_free} matrix")
+    for key in ("covariance", "covariance_calibration"):
+        if conv:
+            rd.matrix(p, key, "parameters", n_free)
+        else:
+            cov = rd.get(p, key, "parameters")
+            if not isinstance(cov, list) or len(cov) != n_free:
+                raise rd.fail(f"parameters.{key}", f"expected a {n_free}×{n_free} matrix")
     return FitFile(data, source, spec)
 
 

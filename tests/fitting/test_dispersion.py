@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy.stats import norm
@@ -91,3 +93,13 @@ def test_one_shot_cannot_give_a_spread():
 def test_bad_arguments(kw, match):
     with pytest.raises(ValueError, match=match):
         effective_range(_model([0.0, 0.001]), **kw)
+
+
+def test_calibration_error_shared_by_the_shots_is_not_subtracted_from_their_spread():
+    # Shots mapped with one rig share its error: it moves them together and does not widen the group, so
+    # only the measurement-noise part of each shot's covariance comes off the between-shot scatter.
+    base = _model(_exact_elevations(20, SIGMA_EL_RAD), cov_scale=0.25 * SIGMA_EL_RAD**2)
+    noisy = shot_spread(base)[1][1, 1]
+    all_calibration = replace(base, covariance_calibration=base.covariance.copy())
+    assert noisy == pytest.approx(0.75 * SIGMA_EL_RAD**2, rel=1e-9)
+    assert shot_spread(all_calibration)[1][1, 1] == pytest.approx(SIGMA_EL_RAD**2, rel=1e-9)
