@@ -285,13 +285,15 @@ def _frames(path: Path):
             raise OSError(f"{path}: the drop clip is damaged ({' '.join(str(exc).split())})") from None
 
 
-def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> DropClip:
+def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout_s: float = 0.0) -> DropClip:
     """Find the dropped ball in each frame of a clip: |frame − median background|, largest blob's centroid.
 
     Parameters
     ----------
     path : the clip (any container/codec FFmpeg reads).
     fps : frame rate override, 1/s (frame k at k/fps); None uses the container's timestamps.
+    readout_s : rolling-shutter readout time, top row to bottom row, s: row v of a frame is exposed
+        (v / rows)·readout later than its top row, and a falling ball crosses the rows.
 
     Returns
     -------
@@ -305,6 +307,8 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
     p = Path(path)
     if fps is not None and not (math.isfinite(fps) and fps > 0):
         raise ValueError(f"--drop-fps: expected a positive frame rate, got {fps!r}")
+    if not (math.isfinite(readout_s) and readout_s >= 0):
+        raise ValueError(f"--drop-readout-ms: expected a readout time >= 0, got {readout_s!r}")
     # pass 1: timestamps of all frames and an evenly spread sample of them for the median background
     # (memory stays bounded: the sample is thinned by half whenever it grows past twice its size)
     all_t_list: list[float] = []
@@ -370,6 +374,8 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None) -> Drop
         timing = "container timestamps"
     size = (int(background.shape[1]), int(background.shape[0]))
     uv_arr = np.asarray(uvs, float).reshape(-1, 2)
+    if readout_s > 0 and uv_arr.size:
+        t_s = t_s + readout_s * uv_arr[:, 1] / size[1]  # the ball's row is exposed that much later
     return DropClip(str(p), t_s, uv_arr, frame_idx, n_frames, timing, rate, size)
 
 
@@ -441,6 +447,7 @@ def check_drop(
     fps: float | None = None,
     g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
     drag: str = "auto",
+    readout_s: float = 0.0,
 ) -> tuple[dict[str, Any], tuple[str, ...]]:
     """Measure g from a drop clip through ``rig`` and judge it.
 
@@ -457,7 +464,7 @@ def check_drop(
     """
     if not (math.isfinite(g_expected_mps2) and g_expected_mps2 > 0):
         raise ValueError(f"--g-expected: expected a positive acceleration, got {g_expected_mps2!r}")
-    clip = find_ball(path, fps=fps)
+    clip = find_ball(path, fps=fps, readout_s=readout_s)
     if clip.frame_size != tuple(rig.image_size):
         raise ValueError(
             f"{clip.source}: drop clip frames are {clip.frame_size[0]}x{clip.frame_size[1]}, the rig's images "

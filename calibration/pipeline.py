@@ -51,6 +51,7 @@ def calibrate_files(
     *,
     drop: str | None = None,
     drop_fps: float | None = None,
+    drop_readout_s: float = 0.0,
     g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
     plane_z_m: float = 0.0,
     plane_z_sigma_m: float = 0.0,
@@ -70,6 +71,7 @@ def calibrate_files(
     spec : the grid (inner corners, square size in m).
     drop : a drop clip for the g / level check, or None.
     drop_fps : frame rate of the drop clip, 1/s, overriding its timestamps.
+    drop_readout_s : rolling-shutter readout of the drop clip, top to bottom row, s.
     g_expected_mps2 : expected local gravity, m/s².
     plane_z_m, plane_z_sigma_m : distance the boards stood behind the flight plane and its standard
         error, m (parallax option).
@@ -121,6 +123,8 @@ def calibrate_files(
         provenance=prov,
     )
     if drop is not None:
-        check, warns = check_drop(rig, drop, fps=drop_fps, g_expected_mps2=g_expected_mps2)
+        check, warns = check_drop(
+            rig, drop, fps=drop_fps, g_expected_mps2=g_expected_mps2, readout_s=drop_readout_s
+        )
         rig = apply_level(rig, check, warns, rng=gen)
     return CalibrationRun(rig, lens, rig_figures(rig), len(detections))

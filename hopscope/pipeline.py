@@ -30,7 +30,7 @@ from fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from fitting.fitfile import fit_to_json
 from fitting.observe import ShotData
 from fitting.predict import predict_path
-from fitting.units import m_to_mm, mm_to_m
+from fitting.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
 from tracker.overlay import check_overlay_path, write_overlay
 from tracker.pipeline import TrackOptions, TrackResult, track_video
 from tracker.trackfile import read_track, track_to_csv
@@ -217,6 +217,9 @@ def calibrate_scene(
             planes,
             spec,
             drop=None if rendered.drop_clip_path is None else str(rendered.drop_clip_path),
+            # the drop is filmed with the flight's camera: the same rolling-shutter readout, as the user
+            # enters it (ms on the command line)
+            drop_readout_s=ms_to_s(s_to_ms(float(rendered.truth["camera"]["readout_s"]))),
             plane_z_m=mm_to_m(parallax_mm),
             plane_z_sigma_m=mm_to_m(parallax_sigma_mm),
             rng=seed,

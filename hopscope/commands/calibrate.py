@@ -18,7 +18,7 @@ from calibration.drop import STANDARD_GRAVITY_MPS2
 from calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
 from calibration.pipeline import CalibrationRun, calibrate_files
 from calibration.rig import rig_to_json
-from fitting.units import m_to_mm, mm_to_m
+from fitting.units import m_to_mm, mm_to_m, ms_to_s
 from hopscope import __version__
 from hopscope.console import progress, summary, warn
 from hopscope.fileio import write_text_atomic
@@ -78,6 +78,13 @@ def register(parser: argparse.ArgumentParser) -> None:
         help="frame rate of the drop clip (overrides its timestamps)",
     )
     parser.add_argument(
+        "--drop-readout-ms",
+        type=finite_float,
+        default=0.0,
+        metavar="R",
+        help="rolling-shutter readout of the drop clip, top to bottom row, ms (default 0: global shutter)",
+    )
+    parser.add_argument(
         "--g-expected",
         type=positive_float,
         default=STANDARD_GRAVITY_MPS2,
@@ -130,6 +137,7 @@ def run(args: argparse.Namespace) -> int:
         spec,
         drop=args.drop,
         drop_fps=args.drop_fps,
+        drop_readout_s=ms_to_s(args.drop_readout_ms),
         g_expected_mps2=args.g_expected,
         plane_z_m=mm_to_m(args.parallax_mm),
         plane_z_sigma_m=mm_to_m(args.parallax_sigma_mm),

@@ -144,3 +144,29 @@ def test_drop_clip_of_other_size_is_an_error(rendered_drop):
         ValueError, match=r"drop\.mkv: drop clip frames are 640x360, the rig's images 1280x720"
     ):
         check_drop(make_close_rig(), path)
+
+
+@pytest.mark.slow
+def test_rolling_shutter_is_taken_out_of_the_drop(tmp_path):
+    # Each row is exposed (v/rows)·readout after the frame's top row, and a falling ball moves down the
+    # rows, so the true time of each centroid is later than the frame's: render the ball where the fall puts
+    # it at its own row's time, then check that giving the readout recovers g and leaving it out does not.
+    rng = np.random.default_rng(4)
+    rig = make_close_rig(DROP_IMAGE_SCALE)
+    readout = 0.8 / FPS
+    n, lead = 150, 15
+    t = np.arange(n) / FPS
+    rows = rig.image_size[1]
+    t_row = t.copy()
+    for _ in range(6):  # fixed point: the row depends on the position, the position on the row's time
+        uv = rig.world_to_pixel(fall_with_drag(t_row, G, K_LIGHT_BALL, 0.0, start_m=(1.0, 0.62)))
+        t_row = t + readout * uv[:, 1] / rows
+    frames = render_disc_frames(rig.image_size, [uv[0]] * lead + list(uv), 1.7 * DROP_IMAGE_SCALE * 1.5, rng)
+    path = tmp_path / "rolling.mkv"
+    write_gray_video(path, frames, FPS)
+    with_readout, _ = check_drop(rig, path, readout_s=readout)
+    without, _ = check_drop(rig, path)
+    g_with = with_readout["g_measured_mps2"]["value"]
+    g_without = without["g_measured_mps2"]["value"]
+    assert abs(g_with - G) / G < G_RTOL_RENDERED
+    assert abs(g_without - G) > 2 * abs(g_with - G)
