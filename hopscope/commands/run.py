@@ -2,8 +2,9 @@
 
 Every input is checked before the first slow step (BB, air, laws, timing options, the clips exist and are
 not empty, the rig reads), so bad input leaves nothing behind. Then each clip is tracked
-(``track.csv`` + ``overlay.png``, or ``track_<stem>.csv`` + ``overlay_<stem>.png`` for several clips), all
-shots are fitted jointly (``fit.json``) and one ``report.html`` links the overlays and tracks.
+(``track.csv``, or ``track_<stem>.csv`` for several clips), all shots are fitted jointly (``fit.json``),
+each clip's overlay is drawn with its fitted path (``overlay.png`` / ``overlay_<stem>.png``) and one
+``report.html`` (with its figures as ``figure_*.png``) links the overlays and tracks.
 
 Each file is written atomically, so a step that fails leaves none of its own outputs. Outputs of earlier
 steps that completed stay (a track is useful without its fit; a rerun overwrites them). An output folder
@@ -19,6 +20,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import dataclasses
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -129,10 +131,11 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
                 rig,
                 track_options,
                 track_path=track_path,
-                overlay_path=overlay_path,
                 rig_name=str(rig_path),
                 progress=bar,
             )
+            # the overlay is drawn once, after the fit, with the fitted path in it
+            clip = dataclasses.replace(clip, overlay_path=overlay_path)
             for w in clip.result.warnings:
                 warn(f"{video.name}: {w}" if len(plan.videos) > 1 else w)
             clips.append(clip)
