@@ -20,20 +20,20 @@ from pathlib import Path
 
 import numpy as np
 
-from calibration.grid import GridSpec
-from calibration.images import VIDEO_SUFFIXES, Progress, no_progress
-from calibration.pipeline import CalibrationRun, calibrate_files
-from calibration.rig import Rig, rig_to_json
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
-from fitting.fitfile import fit_to_json
-from fitting.observe import ShotData
-from fitting.predict import predict_path
-from fitting.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
-from tracker.overlay import check_overlay_path, write_overlay
-from tracker.pipeline import TrackOptions, TrackResult, track_video
-from tracker.trackfile import read_track, track_to_csv
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.images import VIDEO_SUFFIXES, Progress, no_progress
+from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
+from hopscope.calibration.rig import Rig, rig_to_json
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
+from hopscope.fitting.fitfile import fit_to_json
+from hopscope.fitting.observe import ShotData
+from hopscope.fitting.predict import predict_path
+from hopscope.fitting.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
+from hopscope.tracker.overlay import check_overlay_path, write_overlay
+from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
+from hopscope.tracker.trackfile import read_track, track_to_csv
 
 from . import __version__
 from .fileio import atomic_path, write_text_atomic

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
-PACKAGES = ["calibration", "tracker", "fitting", "hopscope", "tests"]
+PACKAGES = ["calibration", "tracker", "fitting", "shared", "hopscope", "tests"]
 
 
 def _run(cmd: list[str]) -> subprocess.CompletedProcess[str]:
@@ -37,10 +37,11 @@ def test_fitting_never_imports_opencv_at_runtime():
     # matplotlib is not checked here: lmfit itself imports it at import time. Our own modules never do
     # (the import-linter contract above checks the direct imports).
     code = (
-        "import sys, importlib, pkgutil, fitting\n"
-        "for m in pkgutil.iter_modules(fitting.__path__):\n"
-        "    importlib.import_module('fitting.' + m.name)\n"
-        "bad = [n for n in ('cv2', 'av', 'calibration', 'tracker', 'hopscope') if n in sys.modules]\n"
+        "import sys, importlib, pkgutil, hopscope.fitting as f\n"
+        "for m in pkgutil.iter_modules(f.__path__):\n"
+        "    importlib.import_module('hopscope.fitting.' + m.name)\n"
+        "bad = [n for n in ('cv2', 'av', 'hopscope.calibration', 'hopscope.tracker', 'hopscope.commands',\n"
+        "                   'hopscope.pipeline') if n in sys.modules]\n"
         "print(','.join(bad))\n"
     )
     res = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
@@ -54,3 +55,19 @@ def test_mypy_is_clean_on_the_packages():
         pytest.fail("mypy is not installed (pip install -e '.[test]')")
     res = _run([mypy])  # packages and settings from [tool.mypy] in pyproject.toml
     assert res.returncode == 0, res.stdout[-4000:] + res.stderr[-2000:]
+
+
+def test_install_has_one_import_name(tmp_path):
+    """Every package imports as ``hopscope.<stage>``; no generic top-level name leaks into site-packages."""
+    code = (
+        "import importlib.util, hopscope.fitting, hopscope.tracker, hopscope.calibration, hopscope.shared\n"
+        "for name in ('fitting', 'tracker', 'calibration', 'shared'):\n"
+        "    spec = importlib.util.find_spec(name)\n"
+        "    print(name, spec.origin if spec else None)\n"
+    )
+    # Run outside the checkout, so only what the install put on sys.path can be found.
+    res = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0, res.stderr
+    for line in res.stdout.splitlines():
+        name, origin = line.split(" ", 1)
+        assert origin == "None" or not origin.startswith(str(ROOT)), f"top-level {name!r} importable: {origin}"

@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from calibration.rig import Rig
+from hopscope.calibration.rig import Rig
 
 from .associate import LinkOptions, LinkResult, link, scatter_ratio
 from .background import default_scale, windowed

@@ -13,15 +13,15 @@ from __future__ import annotations
 
 import argparse
 
-from calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
-from calibration.drop import STANDARD_GRAVITY_MPS2
-from calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
-from calibration.pipeline import CalibrationRun, calibrate_files
-from calibration.rig import rig_to_json
-from fitting.units import m_to_mm, mm_to_m, ms_to_s
 from hopscope import __version__
+from hopscope.calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
+from hopscope.calibration.drop import STANDARD_GRAVITY_MPS2
+from hopscope.calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
+from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
+from hopscope.calibration.rig import rig_to_json
 from hopscope.console import progress, summary, warn
 from hopscope.fileio import write_text_atomic
+from hopscope.fitting.units import m_to_mm, mm_to_m, ms_to_s
 from hopscope.options import finite_float, positive_float
 
 NAME = "calibrate"

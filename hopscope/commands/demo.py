@@ -24,8 +24,11 @@ from pathlib import Path
 
 import numpy as np
 
-from fitting.estimate import Estimate
-from fitting.units import (
+from hopscope.commands import run as run_command
+from hopscope.commands.calibrate import summary_rows as calibration_rows
+from hopscope.console import progress, summary, warn
+from hopscope.fitting.estimate import Estimate
+from hopscope.fitting.units import (
     fraction_to_percent,
     kelvin_to_celsius,
     kg_to_grams,
@@ -34,9 +37,6 @@ from fitting.units import (
     rad_to_deg,
     s_to_ms,
 )
-from hopscope.commands import run as run_command
-from hopscope.commands.calibrate import summary_rows as calibration_rows
-from hopscope.console import progress, summary, warn
 from hopscope.pipeline import RIG_NAME, calibrate_scene
 from hopscope.scenes import builtin_scene, render_scene
 

@@ -18,15 +18,15 @@ from pathlib import Path
 
 import numpy as np
 
-from fitting.estimate import Estimate, FlightFit
-from fitting.units import (
+from hopscope import options
+from hopscope.console import summary, warn
+from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
+from hopscope.fitting.estimate import Estimate, FlightFit
+from hopscope.fitting.units import (
     mps_to_fps,
     rad_to_deg,
     radps_to_rpm,
 )
-from hopscope import options
-from hopscope.console import summary, warn
-from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.pipeline import fit_track_files
 
 NAME = "fit"

@@ -11,7 +11,7 @@ import argparse
 import math
 from pathlib import Path
 
-from fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
+from hopscope.fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
 
 from .. import options
 from ..console import summary, warn

@@ -25,8 +25,8 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from calibration.rig import read_rig
 from hopscope import options
+from hopscope.calibration.rig import read_rig
 from hopscope.commands.fit import parameter_table
 from hopscope.console import progress, summary, warn
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
@@ -43,7 +43,7 @@ from hopscope.pipeline import (
     track_to_files,
 )
 from hopscope.report.build import DEFAULT_RANGE_M
-from tracker.pipeline import POLARITIES, TrackOptions
+from hopscope.tracker.pipeline import POLARITIES, TrackOptions
 
 NAME = "run"
 HELP = "track, fit and report in one go: one clip or several (joint fit), everything into one folder"

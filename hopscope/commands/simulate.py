@@ -19,9 +19,11 @@ from pathlib import Path
 
 import numpy as np
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.constants import (
+from hopscope.console import summary, warn
+from hopscope.fileio import write_text_atomic
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.constants import (
     DEFAULT_BB_DIAMETER_M,
     DEFAULT_HUMIDITY_PCT,
     DEFAULT_PRESSURE_HPA,
@@ -29,10 +31,10 @@ from fitting.constants import (
     MAX_PLAUSIBLE_SPEED_MPS,
     MIN_PLAUSIBLE_SPEED_MPS,
 )
-from fitting.fitfile import read_fit
-from fitting.flight import FlightModel, LaunchState, fly
-from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
-from fitting.units import (
+from hopscope.fitting.fitfile import read_fit
+from hopscope.fitting.flight import FlightModel, LaunchState, fly
+from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
+from hopscope.fitting.units import (
     celsius_to_kelvin,
     deg_to_rad,
     grams_to_kg,
@@ -45,8 +47,6 @@ from fitting.units import (
     rad_to_deg,
     radps_to_rpm,
 )
-from hopscope.console import summary, warn
-from hopscope.fileio import write_text_atomic
 
 NAME = "simulate"
 HELP = "fly a BB with the flight model (from a fit or given numbers) and write its path as CSV"

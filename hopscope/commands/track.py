@@ -12,13 +12,13 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from calibration.rig import read_rig
-from fitting.units import mps_to_fps
 from hopscope import options
+from hopscope.calibration.rig import read_rig
 from hopscope.console import progress, summary, warn
+from hopscope.fitting.units import mps_to_fps
 from hopscope.pipeline import track_to_files
-from tracker.overlay import check_overlay_path
-from tracker.pipeline import POLARITIES, TrackOptions
+from hopscope.tracker.overlay import check_overlay_path
+from hopscope.tracker.pipeline import POLARITIES, TrackOptions
 
 NAME = "track"
 HELP = "find the BB in every frame of a clip: positions, times and uncertainties (track.csv)"

@@ -49,10 +49,10 @@ import cv2
 import numpy as np
 from scipy.integrate import cumulative_trapezoid
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.flight import FlightModel, LaunchState, Trajectory, fly
-from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.flight import FlightModel, LaunchState, Trajectory, fly
+from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
 
 from ..fileio import atomic_path, write_text_atomic
 from .camera import SceneCamera, project_camera_points, rotation_about

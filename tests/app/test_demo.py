@@ -15,13 +15,13 @@ import json
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.fitfile import read_fit
-from fitting.units import celsius_to_kelvin, grams_to_kg, hpa_to_pa, mm_to_m, percent_to_fraction
 from hopscope import cli
 from hopscope.commands import demo
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.fitfile import read_fit
+from hopscope.fitting.units import celsius_to_kelvin, grams_to_kg, hpa_to_pa, mm_to_m, percent_to_fraction
 from hopscope.pipeline import fit_track_files
 from hopscope.scenes import load_truth
 

@@ -8,11 +8,11 @@ import re
 
 import pytest
 
-from fitting.air import Air
-from fitting.fitfile import read_fit
 from hopscope import cli
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK, EXIT_UNEXPECTED
-from tracker.trackfile import track_to_csv
+from hopscope.fitting.air import Air
+from hopscope.fitting.fitfile import read_fit
+from hopscope.tracker.trackfile import track_to_csv
 
 from .tracks_synth import TRUTH, Z_TOL, synthetic_track
 

@@ -12,11 +12,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from calibration.rig import read_rig
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.fitfile import read_fit
-from fitting.units import mm_to_m
+from hopscope.calibration.rig import read_rig
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.fitfile import read_fit
+from hopscope.fitting.units import mm_to_m
 from hopscope.pipeline import (
     calibrate_scene,
     expand_videos,
@@ -27,8 +27,8 @@ from hopscope.pipeline import (
     track_to_files,
 )
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
-from tracker.pipeline import TrackOptions
-from tracker.trackfile import read_track
+from hopscope.tracker.pipeline import TrackOptions
+from hopscope.tracker.trackfile import read_track
 
 #: Lens views of the small scene (the lens calibration needs at least 5 with the grid found).
 N_LENS_VIEWS = 8

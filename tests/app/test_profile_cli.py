@@ -6,9 +6,9 @@ import json
 
 import pytest
 
-from fitting.profile import read_profile
 from hopscope import cli
-from tracker.trackfile import track_to_csv
+from hopscope.fitting.profile import read_profile
+from hopscope.tracker.trackfile import track_to_csv
 
 from .tracks_synth import TRUTH, synthetic_track
 

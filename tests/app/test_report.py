@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from markupsafe import escape
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import fit_shots
-from fitting.fitfile import fit_to_json
-from fitting.observe import ModelSpec, simulate_shot
 from hopscope import cli
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.fitfile import fit_to_json
+from hopscope.fitting.observe import ModelSpec, simulate_shot
 from hopscope.report import CAUTIONS, figures, load_report_inputs, render_report
 
 from .browser import open_report

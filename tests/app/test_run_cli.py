@@ -14,15 +14,15 @@ import cv2
 import numpy as np
 import pytest
 
-from calibration.rig import read_rig
-from fitting.estimate import fit_shots
-from fitting.fitfile import read_fit
 from hopscope import cli
+from hopscope.calibration.rig import read_rig
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.fitfile import read_fit
 from hopscope.pipeline import calibrate_scene, fitted_paths_px, shots_from_track
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
-from tracker.overlay import FIT_COLOUR
-from tracker.trackfile import read_track
+from hopscope.tracker.overlay import FIT_COLOUR
+from hopscope.tracker.trackfile import read_track
 
 #: Lens views of the small scene (the lens calibration needs at least 5 with the grid found).
 N_LENS_VIEWS = 8

@@ -8,10 +8,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from calibration.rig import rig_to_json
 from hopscope import cli
+from hopscope.calibration.rig import rig_to_json
 from hopscope.errors import EXIT_BAD_INPUT
-from tracker.trackfile import read_track
+from hopscope.tracker.trackfile import read_track
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tracker"))
 from track_synth import flight_frames, simple_rig, write_clip

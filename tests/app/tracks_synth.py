@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.observe import ModelSpec, simulate_shot
-from tracker.trackfile import Track, TrackMeta
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.observe import ModelSpec, simulate_shot
+from hopscope.tracker.trackfile import Track, TrackMeta
 
 MASS_KG = 2.5e-4
 TRUTH = {

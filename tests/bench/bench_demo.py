@@ -28,9 +28,9 @@ def _cpu_s() -> float:
 
 
 def bench(scene: str, seed: int, folder: Path) -> dict:
-    from fitting.fitfile import read_fit
     from hopscope.commands import demo
     from hopscope.commands import run as run_command
+    from hopscope.fitting.fitfile import read_fit
     from hopscope.pipeline import calibrate_scene
     from hopscope.scenes import builtin_scene, render_scene
 

@@ -23,10 +23,10 @@ import time
 
 import numpy as np
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import fit_shots
-from fitting.observe import ModelSpec, ShotData, simulate_shot
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.observe import ModelSpec, ShotData, simulate_shot
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()

@@ -24,10 +24,10 @@ import time
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.flight import DEFAULT_STEP_S, FlightModel, LaunchState, Trajectory, fly
-from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.flight import DEFAULT_STEP_S, FlightModel, LaunchState, Trajectory, fly
+from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
 
 N_SHOTS = 10_000
 DURATION_S = 1.0

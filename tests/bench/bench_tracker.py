@@ -36,7 +36,7 @@ sys.path.insert(0, str(ROOT / "tests" / "tracker"))
 
 from track_synth import draw_bb, simple_rig, textured_background  # noqa: E402
 
-from calibration.rig import rig_to_json  # noqa: E402
+from hopscope.calibration.rig import rig_to_json  # noqa: E402
 
 
 def make_clip(path: Path, width: int, height: int, n: int, *, bb_frames=(100, 160), seed=0) -> Path:
@@ -96,8 +96,8 @@ _CHILD = r"""
 import sys, time
 open("/proc/self/clear_refs", "w").write("5")
 sys.path.insert(0, {root!r})
-from calibration.rig import read_rig
-from tracker.pipeline import track_video
+from hopscope.calibration.rig import read_rig
+from hopscope.tracker.pipeline import track_video
 t = time.perf_counter()
 res = track_video({video!r}, read_rig({rig!r}))
 dt = time.perf_counter() - t
@@ -121,7 +121,7 @@ def localisation_vs_trackpy(n: int = 200, seed: int = 1) -> None:
 
     import trackpy as tp
 
-    from tracker.localise import localise
+    from hopscope.tracker.localise import localise
 
     tp.quiet()
     rng = np.random.default_rng(seed)

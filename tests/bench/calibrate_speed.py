@@ -11,12 +11,12 @@ import tempfile
 import time
 from pathlib import Path
 
-from calibration.build import make_rig
-from calibration.drop import apply_level, check_drop
-from calibration.grid import GridSpec
-from calibration.images import detect_plane_views, detect_views, expand_views, parse_plane_arg
-from calibration.lens import ViewPoints, calibrate_lens
-from calibration.plane import Placement
+from hopscope.calibration.build import make_rig
+from hopscope.calibration.drop import apply_level, check_drop
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.images import detect_plane_views, detect_views, expand_views, parse_plane_arg
+from hopscope.calibration.lens import ViewPoints, calibrate_lens
+from hopscope.calibration.plane import Placement
 from hopscope.scenes import builtin_scene, render_scene
 
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from calibration.grid import GridSpec, _subpix_window
+from hopscope.calibration.grid import GridSpec, _subpix_window
 from hopscope.scenes import builtin_scene, render_scene
 
 ACC = cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE | cv2.CALIB_CB_ACCURACY

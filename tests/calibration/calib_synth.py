@@ -42,7 +42,7 @@ def synthetic_lens_views(
     """
     import cv2
 
-    from calibration.lens import ViewPoints
+    from hopscope.calibration.lens import ViewPoints
 
     obj = spec.board_points()
     board_c = obj.mean(axis=0)
@@ -73,7 +73,7 @@ def synthetic_lens_views(
 
 def make_close_rig(scale=1.0):
     """A 1280x720 camera 2.5 m in front of the plane, mild barrel distortion (``scale`` shrinks the image)."""
-    from calibration.rig import Rig
+    from hopscope.calibration.rig import Rig
 
     k = np.array(
         [[1400.0 * scale, 0.0, 645.0 * scale], [0.0, 1400.0 * scale, 362.0 * scale], [0.0, 0.0, 1.0]]

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from calib_synth import fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
-from calibration.drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop, find_ball, fit_free_fall
+from hopscope.calibration.drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop, find_ball, fit_free_fall
 
 #: The issue's acceptance: the drop check recovers g within 0.5 % on a rendered drop.
 G_RTOL_RENDERED = 5e-3
@@ -104,7 +104,7 @@ def test_tilted_board_is_levelled(tmp_path):
     assert check["tilt_deg"]["value"] == pytest.approx(2.0, abs=0.1)
     import dataclasses
 
-    from calibration.rig import CameraState
+    from hopscope.calibration.rig import CameraState
 
     member = CameraState(rig.camera_matrix, rig.dist_coeffs, rig.rotation, rig.translation, rig.plane_z_m)
     with_members = dataclasses.replace(rig, ensemble=(member,) * 64)

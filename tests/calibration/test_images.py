@@ -8,8 +8,8 @@ import cv2
 import numpy as np
 import pytest
 
-from calibration.grid import GridSpec, canonical_order, detect_grid, parse_grid, to_gray
-from calibration.images import (
+from hopscope.calibration.grid import GridSpec, canonical_order, detect_grid, parse_grid, to_gray
+from hopscope.calibration.images import (
     check_plane_items,
     expand_views,
     parse_plane_arg,
@@ -101,7 +101,7 @@ def test_read_image_errors(tmp_path):
 def test_video_of_lens_views_is_sampled_and_calibrates(rendered_close, tmp_path):
     import av
 
-    from calibration.lens import ViewPoints, calibrate_lens
+    from hopscope.calibration.lens import ViewPoints, calibrate_lens
 
     spec, scene = rendered_close
     b = scene.truth["board"]

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from calib_synth import IMAGE_SIZE, TRUE_DIST, TRUE_K, synthetic_lens_views
 
-from calibration.grid import GridSpec
-from calibration.lens import MIN_LENS_VIEWS, ViewPoints, calibrate_lens, frame_coverage
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.lens import MIN_LENS_VIEWS, ViewPoints, calibrate_lens, frame_coverage
 
 SPEC = GridSpec(9, 6, 0.04)
 #: The issue's acceptance: focal length and principal point within 0.2 %.

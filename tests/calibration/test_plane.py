@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 from calib_synth import IMAGE_SIZE, look_at_pose, project, synthetic_lens_views
 
-from calibration.build import make_rig, rig_figures
-from calibration.grid import GridSpec
-from calibration.lens import calibrate_lens
-from calibration.plane import Placement, solve_plane
-from calibration.rig import Rig
+from hopscope.calibration.build import make_rig, rig_figures
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.lens import calibrate_lens
+from hopscope.calibration.plane import Placement, solve_plane
+from hopscope.calibration.rig import Rig
 
 #: The issue's acceptance on a close lane: plane mapping error along the true path ≤ 0.3 mm.
 CLOSE_PATH_TOL_M = 0.3e-3

@@ -7,8 +7,8 @@ import pytest
 from calib_synth import look_at_pose
 from test_plane import BOARD, _close_setup
 
-from calibration.build import make_rig
-from calibration.rig import CameraState, rig_from_json, rig_to_json
+from hopscope.calibration.build import make_rig
+from hopscope.calibration.rig import CameraState, rig_from_json, rig_to_json
 
 MAP_TOL_M = 1e-9
 #: The members' slopes must have the spread the model says (two independent edge offsets): within 30 %

@@ -12,9 +12,9 @@ import cv2
 import numpy as np
 import pytest
 
-from calibration.grid import GridSpec
-from calibration.pipeline import calibrate_files
-from calibration.rig import Rig, read_rig, rig_to_json
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.pipeline import calibrate_files
+from hopscope.calibration.rig import Rig, read_rig, rig_to_json
 from hopscope.scenes import DropSpec, builtin_scene, prepare_scene, render_scene
 
 pytestmark = pytest.mark.slow
@@ -124,7 +124,7 @@ def drop_clip(tmp_path_factory):
 
 
 def test_rendered_drop_recovers_g_and_wrong_rate_is_flagged(close_scene, drop_clip):
-    from calibration.drop import apply_level, check_drop
+    from hopscope.calibration.drop import apply_level, check_drop
 
     _, _, run = close_scene
     g_true = drop_clip.truth["drop"]["g_mps2"]
@@ -181,9 +181,9 @@ def test_plane_mapping_agrees_with_scikit_image_on_rendered_board(close_scene):
     # estimated from the undistorted detected plane corners and their board positions.
     from skimage.transform import ProjectiveTransform
 
-    from calibration.grid import detect_grid
-    from calibration.images import read_image
-    from calibration.rig import UNDISTORT_CRITERIA
+    from hopscope.calibration.grid import detect_grid
+    from hopscope.calibration.images import read_image
+    from hopscope.calibration.rig import UNDISTORT_CRITERIA
 
     _, scene, run = close_scene
     rig = run.rig

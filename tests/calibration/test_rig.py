@@ -10,7 +10,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from calibration.rig import SCHEMA, CameraState, Rig, read_rig, rig_from_json, rig_to_json
+from hopscope.calibration.rig import SCHEMA, CameraState, Rig, read_rig, rig_from_json, rig_to_json
 
 ROUND_TRIP_TOL_PX = 1e-6
 ROUND_TRIP_TOL_M = 1e-9

@@ -9,21 +9,21 @@ import pytest
 from CoolProp.CoolProp import PropsSI
 from CoolProp.HumidAirProp import HAPropsSI
 
-from fitting.air import (
+from hopscope.fitting.air import (
     Air,
     latitude_gravity,
     moist_air_density,
     saturation_vapour_pressure,
     sutherland_viscosity,
 )
-from fitting.constants import (
+from hopscope.fitting.constants import (
     ISA_SEA_LEVEL_P_PA,
     ISA_SEA_LEVEL_RHO_KGM3,
     ISA_SEA_LEVEL_T_K,
     STANDARD_GRAVITY_MPS2,
     WGS84_K,
 )
-from fitting.units import celsius_to_kelvin, hpa_to_pa, percent_to_fraction
+from hopscope.fitting.units import celsius_to_kelvin, hpa_to_pa, percent_to_fraction
 
 DENSITY_VS_COOLPROP_RTOL = 2e-4
 VISCOSITY_VS_COOLPROP_RTOL = 5e-3

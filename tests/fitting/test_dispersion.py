@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.dispersion import effective_range, shot_spread
-from fitting.estimate import FittedModel, parameter_names
-from fitting.flight import fly
-from fitting.observe import ModelSpec, flight_for
-from fitting.predict import heights_at, shot_rows
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.dispersion import effective_range, shot_spread
+from hopscope.fitting.estimate import FittedModel, parameter_names
+from hopscope.fitting.flight import fly
+from hopscope.fitting.observe import ModelSpec, flight_for
+from hopscope.fitting.predict import heights_at, shot_rows
 
 SPEC = ModelSpec(BB(2.5e-4), Air.standard())
 SIGMA_EL_RAD = 0.004

@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 from scipy.optimize import approx_fprime, least_squares
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import ChronoPrior, FitProblem, fit_shots
-from fitting.guess import DEFAULT_SPIN_DECAY_TIME_S
-from fitting.observe import ModelSpec, ShotData, simulate_shot
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import ChronoPrior, FitProblem, fit_shots
+from hopscope.fitting.guess import DEFAULT_SPIN_DECAY_TIME_S
+from hopscope.fitting.observe import ModelSpec, ShotData, simulate_shot
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()

@@ -8,11 +8,11 @@ import math
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import fit_shots
-from fitting.fitfile import SCHEMA, fit_from_json, fit_to_json, read_fit
-from fitting.observe import ModelSpec, simulate_shot
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.fitfile import SCHEMA, fit_from_json, fit_to_json, read_fit
+from hopscope.fitting.observe import ModelSpec, simulate_shot
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()

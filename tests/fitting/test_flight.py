@@ -10,11 +10,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.integrate import cumulative_simpson, solve_ivp
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.constants import STANDARD_GRAVITY_MPS2
-from fitting.flight import DEFAULT_STEP_S, FlightModel, LaunchState, Trajectory, derivatives, fly
-from fitting.laws import (
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.constants import STANDARD_GRAVITY_MPS2
+from hopscope.fitting.flight import DEFAULT_STEP_S, FlightModel, LaunchState, Trajectory, derivatives, fly
+from hopscope.fitting.laws import (
     AerodynamicDecay,
     ConstantDrag,
     ExponentialDecay,

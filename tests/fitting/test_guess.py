@@ -7,10 +7,10 @@ import math
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.guess import BOUNDS, guess_decay_param, guess_drag_param, guess_shot
-from fitting.observe import ModelSpec, ShotData, drag_coefficient_at, simulate_shot
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.guess import BOUNDS, guess_decay_param, guess_drag_param, guess_shot
+from hopscope.fitting.observe import ModelSpec, ShotData, drag_coefficient_at, simulate_shot
 
 SPEC = ModelSpec(BB(2.5e-4), Air.standard())
 TRUTH = {

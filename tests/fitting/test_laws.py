@@ -10,8 +10,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from fitting.bb import BB
-from fitting.laws import (
+from hopscope.fitting.bb import BB
+from hopscope.fitting.laws import (
     SPHERE_CORRELATIONS,
     AerodynamicDecay,
     ConstantDrag,

@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.laws import LinearLift, SaturatingLift
-from fitting.observe import (
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.laws import LinearLift, SaturatingLift
+from hopscope.fitting.observe import (
     MIN_POINTS,
     ModelSpec,
     RowParams,

@@ -5,13 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import fit_shots
-from fitting.fitfile import fit_from_json, fit_to_json
-from fitting.flight import fly
-from fitting.observe import ModelSpec, flight_for, simulate_shot
-from fitting.predict import heights_at, predict_path, shot_rows
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.fitfile import fit_from_json, fit_to_json
+from hopscope.fitting.flight import fly
+from hopscope.fitting.observe import ModelSpec, flight_for, simulate_shot
+from hopscope.fitting.predict import heights_at, predict_path, shot_rows
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()

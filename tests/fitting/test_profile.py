@@ -9,10 +9,10 @@ import fluids.drag
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.observe import ModelSpec, simulate_shot
-from fitting.profile import (
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.observe import ModelSpec, simulate_shot
+from hopscope.fitting.profile import (
     SCHEMA,
     build_profile,
     profile_from_json,

@@ -7,11 +7,11 @@ import math
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.estimate import fit_shots
-from fitting.observe import ModelSpec, simulate_shot
-from fitting.verdict import OVER_HOP_ABOVE, UNDER_HOP_BELOW, judge_hop, lift_profile, lift_to_weight
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.observe import ModelSpec, simulate_shot
+from hopscope.fitting.verdict import OVER_HOP_ABOVE, UNDER_HOP_BELOW, judge_hop, lift_profile, lift_to_weight
 
 RATIO_RTOL = 1e-12
 

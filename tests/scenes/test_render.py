@@ -11,10 +11,10 @@ import cv2
 import numpy as np
 import pytest
 
-from fitting.air import Air
-from fitting.bb import BB
-from fitting.flight import FlightModel, LaunchState, fly
-from fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
+from hopscope.fitting.air import Air
+from hopscope.fitting.bb import BB
+from hopscope.fitting.flight import FlightModel, LaunchState, fly
+from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
 from hopscope.scenes import (
     BBSpec,
     CameraSpec,

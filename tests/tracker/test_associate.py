@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from tracker.associate import LinkOptions, link
+from hopscope.tracker.associate import LinkOptions, link
 
 FPS = 240.0
 SIGMA = 0.03
@@ -104,7 +104,7 @@ def test_empty():
 
 
 def test_scatter_ratio_measures_understated_sigma(rng):
-    from tracker.associate import scatter_ratio
+    from hopscope.tracker.associate import scatter_ratio
 
     k = np.arange(200)
     t = k / FPS

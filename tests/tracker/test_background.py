@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from track_synth import draw_bb
 
-from tracker.background import (
+from hopscope.tracker.background import (
     SIDE_SAMPLES,
     default_scale,
     downsample,
@@ -14,7 +14,7 @@ from tracker.background import (
     noise_map,
     windowed,
 )
-from tracker.video import VideoFrame
+from hopscope.tracker.video import VideoFrame
 
 #: The noise map's robust σ against the true σ of Gaussian noise (MAD estimator, 1024 px per tile: its
 #: relative standard error is about 1.166/sqrt(n) ≈ 4 %, Rousseeuw & Croux 1993).

@@ -10,7 +10,7 @@ import pytest
 from scipy.optimize import least_squares
 from track_synth import draw_bb
 
-from tracker.localise import (
+from hopscope.tracker.localise import (
     correlation_factor,
     levenberg_marquardt,
     localise,

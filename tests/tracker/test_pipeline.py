@@ -8,9 +8,9 @@ import numpy as np
 import pytest
 from track_synth import flight_frames, simple_rig, textured_background, write_clip
 
-from calibration.rig import CameraState
-from tracker.pipeline import TrackOptions, track_video
-from tracker.trackfile import read_track, track_to_csv
+from hopscope.calibration.rig import CameraState
+from hopscope.tracker.pipeline import TrackOptions, track_video
+from hopscope.tracker.trackfile import read_track, track_to_csv
 
 SHAPE = (240, 320)
 #: Position RMS vs truth on lossless synthetic clips (issue 5: ≤ 0.1 px).
@@ -175,7 +175,7 @@ def test_rig_for_another_size_and_bad_options(tmp_path, rng):
 
 
 def test_start_speed_is_the_derivative_at_the_first_point():
-    from tracker.pipeline import start_speed
+    from hopscope.tracker.pipeline import start_speed
 
     t = np.arange(12) / 240.0
     x = 0.1 + 90.0 * t - 0.5 * 300.0 * t**2  # decelerating

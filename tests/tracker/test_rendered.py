@@ -13,9 +13,9 @@ import math
 import numpy as np
 import pytest
 
-from calibration.rig import Rig
+from hopscope.calibration.rig import Rig
 from hopscope.scenes import ClutterSpec, render_scene, small_scene
-from tracker.pipeline import TrackOptions, track_video
+from hopscope.tracker.pipeline import TrackOptions, track_video
 
 #: Position RMS against truth, white BB, short exposure (issue 5 target).
 POSITION_RMS_TOL_PX = 0.1

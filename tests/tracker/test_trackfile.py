@@ -7,7 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from tracker.trackfile import (
+from hopscope.tracker.trackfile import (
     BASE_COLUMNS,
     SCHEMA,
     Track,

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from track_synth import write_clip
 
-from tracker.video import (
+from hopscope.tracker.video import (
     FRAME_RATE_RANGE_HZ,
     check_frame_rate,
     frame_times,

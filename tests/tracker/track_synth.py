@@ -15,7 +15,7 @@ import av
 import cv2
 import numpy as np
 
-from calibration.rig import Rig
+from hopscope.calibration.rig import Rig
 
 SUPERSAMPLE = 8
 
