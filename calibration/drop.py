@@ -38,11 +38,9 @@ import cv2
 import numpy as np
 from scipy.optimize import least_squares
 
-from .rig import Rig
+from hopscope.shared.constants import MAD_TO_SIGMA, STANDARD_GRAVITY_MPS2
 
-#: Standard acceleration of gravity, m/s². Source: 3rd CGPM (1901), exact by definition. (Also in
-#: fitting.constants; calibration may not import fitting.)
-STANDARD_GRAVITY_MPS2 = 9.80665
+from .rig import Rig
 
 #: Allowance for local gravity around the standard value, m/s²: normal gravity runs from 9.7803 (equator)
 #: to 9.8322 (poles) (WGS84 Somigliana formula, NIMA TR8350.2 (2000) eq. 4-1). # from memory (constants)
@@ -225,7 +223,7 @@ def fit_free_fall(t_s: Any, xy_m: Any, *, drag: str = "auto") -> FreeFallFit:
     for _ in range(2):
         p, cov, rss, dof = _solve(t[keep], xy[keep], False, p0)
         r = np.linalg.norm(_model(p, t, False) - xy, axis=1)
-        mad = 1.4826 * np.median(np.abs(r[keep] - np.median(r[keep]))) + 1e-12
+        mad = MAD_TO_SIGMA * np.median(np.abs(r[keep] - np.median(r[keep]))) + 1e-12
         new_keep = r < np.median(r[keep]) + OUTLIER_SIGMA * mad
         if new_keep.sum() < MIN_DROP_POINTS or np.array_equal(new_keep, keep):
             break
@@ -330,7 +328,7 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout
     # one robust noise level for the clip: the blurred difference of a background sample, every 4th pixel
     probe = cv2.GaussianBlur(cv2.absdiff(picked[len(picked) // 2], background), (0, 0), 1.0)
     sub = probe[::4, ::4].astype(np.float32)
-    sigma = 1.4826 * float(np.median(np.abs(sub - np.median(sub))))
+    sigma = MAD_TO_SIGMA * float(np.median(np.abs(sub - np.median(sub))))
     thr = max(DETECT_SIGMA * sigma, DETECT_FLOOR_DN)
     max_area = BLOB_MAX_AREA_FRACTION * background.size
     cand_t, cand_uv, cand_i = [], [], []

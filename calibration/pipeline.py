@@ -17,8 +17,10 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+
 from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
-from .drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop
+from .drop import apply_level, check_drop
 from .grid import DEFAULT_DETECTOR, GridSpec
 from .images import (
     Progress,

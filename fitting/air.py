@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .constants import (
+from hopscope.shared.constants import (
     CELSIUS_ZERO_K,
     CIPM_GAS_CONSTANT,
     DEFAULT_CO2_MOLE_FRACTION,
@@ -171,7 +171,11 @@ class Air:
     @classmethod
     def standard(cls) -> Air:
         """Air at 20 °C, 1013.25 hPa, 50 % RH (the project's default conditions)."""
-        from .constants import DEFAULT_HUMIDITY_PCT, DEFAULT_PRESSURE_HPA, DEFAULT_TEMPERATURE_C
+        from hopscope.shared.constants import (
+            DEFAULT_HUMIDITY_PCT,
+            DEFAULT_PRESSURE_HPA,
+            DEFAULT_TEMPERATURE_C,
+        )
 
         return cls.from_conditions(
             DEFAULT_TEMPERATURE_C + CELSIUS_ZERO_K, DEFAULT_PRESSURE_HPA * 100.0, DEFAULT_HUMIDITY_PCT / 100.0

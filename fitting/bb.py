@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .constants import DEFAULT_BB_DIAMETER_M
+from hopscope.shared.constants import DEFAULT_BB_DIAMETER_M
 
 
 @dataclass(frozen=True)

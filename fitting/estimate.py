@@ -40,9 +40,10 @@ import lmfit
 import numpy as np
 import scipy.stats
 
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+
 from .air import Air
 from .bb import BB
-from .constants import STANDARD_GRAVITY_MPS2
 from .guess import (
     BOUNDS,
     DEFAULT_SPIN_DECAY_TIME_S,

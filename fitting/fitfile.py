@@ -46,11 +46,12 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.shared.units import rad_to_deg
+
 from .air import Air
 from .bb import BB
 from .estimate import ChronoPrior, Estimate, FittedModel, FlightFit, decay_param_name
 from .observe import ModelSpec
-from .units import rad_to_deg
 
 SCHEMA = "hopscope.fit/1"
 

@@ -32,9 +32,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+
 from .air import Air
 from .bb import BB
-from .constants import STANDARD_GRAVITY_MPS2
 from .laws import (
     SPHERE_CORRELATIONS_UNCHECKED,
     AerodynamicDecay,

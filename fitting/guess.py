@@ -21,7 +21,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constants import MAX_PLAUSIBLE_SPEED_MPS
+from hopscope.shared.constants import MAX_PLAUSIBLE_SPEED_MPS
+
 from .observe import ModelSpec, ShotData, drag_coefficient_at
 
 #: Physical bounds of the fitted quantities (SI). Speeds: a BB is neither at rest nor supersonic here.

@@ -23,9 +23,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+
 from .air import Air
 from .bb import BB
-from .constants import STANDARD_GRAVITY_MPS2
 from .flight import FlightModel, LaunchState, fly
 from .laws import (
     DECAY_LAWS,

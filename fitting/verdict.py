@@ -13,9 +13,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+
 from .air import Air
 from .bb import BB
-from .constants import STANDARD_GRAVITY_MPS2
 from .flight import fly
 from .observe import flight_for
 from .predict import check_shot, fitted_model_of, flight_time_to, shot_rows

@@ -12,15 +12,15 @@ import math
 
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
-from hopscope.fitting.constants import (
+from hopscope.fitting.estimate import DEFAULT_LOSS, LOSSES, ChronoPrior
+from hopscope.fitting.laws import DECAY_LAWS, DRAG_LAWS, LIFT_LAWS
+from hopscope.shared.constants import (
     DEFAULT_BB_DIAMETER_M,
     DEFAULT_HUMIDITY_PCT,
     DEFAULT_PRESSURE_HPA,
     DEFAULT_TEMPERATURE_C,
 )
-from hopscope.fitting.estimate import DEFAULT_LOSS, LOSSES, ChronoPrior
-from hopscope.fitting.laws import DECAY_LAWS, DRAG_LAWS, LIFT_LAWS
-from hopscope.fitting.units import (
+from hopscope.shared.units import (
     celsius_to_kelvin,
     grams_to_kg,
     hpa_to_pa,

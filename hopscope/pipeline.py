@@ -3,7 +3,7 @@
 Plain functions returning frozen results; ``hopscope run`` and ``hopscope demo`` call them, and hold no
 physics or image maths of their own (that lives in ``calibration/``, ``tracker/`` and ``fitting/``).
 
-Outputs of one step are written through :func:`hopscope.fileio.atomic_path` (temporary file, then rename),
+Outputs of one step are written through :func:`hopscope.shared.fileio.atomic_path` (temporary file, then rename),
 so a step that fails leaves none of its own files behind. Files of earlier steps that completed stay
 (a track is still useful when the fit fails, and a rerun overwrites it).
 
@@ -30,13 +30,13 @@ from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_
 from hopscope.fitting.fitfile import fit_to_json
 from hopscope.fitting.observe import ShotData
 from hopscope.fitting.predict import predict_path
-from hopscope.fitting.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
+from hopscope.shared.fileio import atomic_path, write_text_atomic
+from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
 from hopscope.tracker.trackfile import read_track, track_to_csv
 
 from . import __version__
-from .fileio import atomic_path, write_text_atomic
 from .report import load_report_inputs, write_report
 from .report.build import DEFAULT_RANGE_M, SPAN_RANGE_M
 

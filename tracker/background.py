@@ -28,6 +28,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from hopscope.shared.constants import MAD_TO_SIGMA
+
 from .video import VideoFrame
 
 #: Samples on each side of the frame: k ± g, k ± 2g, ..., k ± SIDE_SAMPLES·g.
@@ -47,8 +49,6 @@ NOISE_EVERY = 24
 #: even where the sensor noise was smoothed away.  # common practice, no published source
 NOISE_FLOOR_DN = 1.0
 
-#: MAD → standard deviation for Gaussian noise (Hampel 1974): σ = 1.4826 · MAD.
-MAD_TO_SIGMA = 1.4826
 
 
 def default_scale(width: int, height: int) -> int:

@@ -41,7 +41,7 @@ import cv2
 import numpy as np
 from scipy.special import erf
 
-from .background import MAD_TO_SIGMA
+from hopscope.shared.constants import MAD_TO_SIGMA
 
 #: A streak model is tried when the blob's second-moment axis ratio exceeds this.
 ELONGATION_RATIO = 1.25

@@ -15,14 +15,14 @@ import argparse
 
 from hopscope import __version__
 from hopscope.calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
-from hopscope.calibration.drop import STANDARD_GRAVITY_MPS2
 from hopscope.calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
 from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
 from hopscope.calibration.rig import rig_to_json
 from hopscope.console import progress, summary, warn
-from hopscope.fileio import write_text_atomic
-from hopscope.fitting.units import m_to_mm, mm_to_m, ms_to_s
 from hopscope.options import finite_float, positive_float
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
+from hopscope.shared.fileio import write_text_atomic
+from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s
 
 NAME = "calibrate"
 HELP = "calibrate the camera and the flight plane from grid images and write rig.json"

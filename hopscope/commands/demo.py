@@ -28,7 +28,9 @@ from hopscope.commands import run as run_command
 from hopscope.commands.calibrate import summary_rows as calibration_rows
 from hopscope.console import progress, summary, warn
 from hopscope.fitting.estimate import Estimate
-from hopscope.fitting.units import (
+from hopscope.pipeline import RIG_NAME, calibrate_scene
+from hopscope.scenes import builtin_scene, render_scene
+from hopscope.shared.units import (
     fraction_to_percent,
     kelvin_to_celsius,
     kg_to_grams,
@@ -37,8 +39,6 @@ from hopscope.fitting.units import (
     rad_to_deg,
     s_to_ms,
 )
-from hopscope.pipeline import RIG_NAME, calibrate_scene
-from hopscope.scenes import builtin_scene, render_scene
 
 NAME = "demo"
 HELP = "render a built-in demo scene (invented data) and run the whole job on it: recovered vs true values"

@@ -22,12 +22,12 @@ from hopscope import options
 from hopscope.console import summary, warn
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.fitting.estimate import Estimate, FlightFit
-from hopscope.fitting.units import (
+from hopscope.pipeline import fit_track_files
+from hopscope.shared.units import (
     mps_to_fps,
     rad_to_deg,
     radps_to_rpm,
 )
-from hopscope.pipeline import fit_track_files
 
 NAME = "fit"
 HELP = "fit exit speed, drag, lift and spin decay to tracked shots and write fit.json"

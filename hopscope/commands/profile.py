@@ -12,10 +12,10 @@ import math
 from pathlib import Path
 
 from hopscope.fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
+from hopscope.shared.fileio import atomic_path
 
 from .. import options
 from ..console import summary, warn
-from ..fileio import atomic_path
 from ..pipeline import shots_from_track
 
 NAME = "profile"

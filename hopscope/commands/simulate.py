@@ -20,10 +20,12 @@ from pathlib import Path
 import numpy as np
 
 from hopscope.console import summary, warn
-from hopscope.fileio import write_text_atomic
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
-from hopscope.fitting.constants import (
+from hopscope.fitting.fitfile import read_fit
+from hopscope.fitting.flight import FlightModel, LaunchState, fly
+from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
+from hopscope.shared.constants import (
     DEFAULT_BB_DIAMETER_M,
     DEFAULT_HUMIDITY_PCT,
     DEFAULT_PRESSURE_HPA,
@@ -31,10 +33,8 @@ from hopscope.fitting.constants import (
     MAX_PLAUSIBLE_SPEED_MPS,
     MIN_PLAUSIBLE_SPEED_MPS,
 )
-from hopscope.fitting.fitfile import read_fit
-from hopscope.fitting.flight import FlightModel, LaunchState, fly
-from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
-from hopscope.fitting.units import (
+from hopscope.shared.fileio import write_text_atomic
+from hopscope.shared.units import (
     celsius_to_kelvin,
     deg_to_rad,
     grams_to_kg,

@@ -15,8 +15,8 @@ from pathlib import Path
 from hopscope import options
 from hopscope.calibration.rig import read_rig
 from hopscope.console import progress, summary, warn
-from hopscope.fitting.units import mps_to_fps
 from hopscope.pipeline import track_to_files
+from hopscope.shared.units import mps_to_fps
 from hopscope.tracker.overlay import check_overlay_path
 from hopscope.tracker.pipeline import POLARITIES, TrackOptions
 

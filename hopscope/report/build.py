@@ -23,12 +23,12 @@ from hopscope.fitting.dispersion import effective_range
 from hopscope.fitting.fitfile import FitFile, read_fit
 from hopscope.fitting.predict import DEFAULT_RANGE_M as PREDICT_DEFAULT_RANGE_M
 from hopscope.fitting.predict import predict_path
-from hopscope.fitting.units import kg_to_grams, mps_to_fps, radps_to_rpm
 from hopscope.fitting.verdict import judge_hop, lift_profile, lift_to_weight
+from hopscope.shared.fileio import write_bytes_atomic, write_text_atomic
+from hopscope.shared.units import kg_to_grams, mps_to_fps, radps_to_rpm
 from hopscope.tracker.trackfile import Track, read_track
 
 from .. import __version__
-from ..fileio import write_bytes_atomic, write_text_atomic
 from . import figures
 
 #: Safety cautions shown on every report (and in the README).

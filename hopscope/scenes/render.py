@@ -53,8 +53,8 @@ from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.flight import FlightModel, LaunchState, Trajectory, fly
 from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
+from hopscope.shared.fileio import atomic_path, write_text_atomic
 
-from ..fileio import atomic_path, write_text_atomic
 from .camera import SceneCamera, project_camera_points, rotation_about
 from .spec import (
     BBSpec,

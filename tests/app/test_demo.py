@@ -21,9 +21,9 @@ from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.fitfile import read_fit
-from hopscope.fitting.units import celsius_to_kelvin, grams_to_kg, hpa_to_pa, mm_to_m, percent_to_fraction
 from hopscope.pipeline import fit_track_files
 from hopscope.scenes import load_truth
+from hopscope.shared.units import celsius_to_kelvin, grams_to_kg, hpa_to_pa, mm_to_m, percent_to_fraction
 
 #: Fitter-issue tolerances (relative to the truth).
 CLOSE_SPEED_REL_TOL = 0.0015

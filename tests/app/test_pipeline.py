@@ -16,7 +16,6 @@ from hopscope.calibration.rig import read_rig
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.fitfile import read_fit
-from hopscope.fitting.units import mm_to_m
 from hopscope.pipeline import (
     calibrate_scene,
     expand_videos,
@@ -27,6 +26,7 @@ from hopscope.pipeline import (
     track_to_files,
 )
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
+from hopscope.shared.units import mm_to_m
 from hopscope.tracker.pipeline import TrackOptions
 from hopscope.tracker.trackfile import read_track
 

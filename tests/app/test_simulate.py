@@ -13,10 +13,10 @@ import pytest
 from hopscope.cli import main
 from hopscope.fitting.air import Air, moist_air_density
 from hopscope.fitting.bb import BB
-from hopscope.fitting.constants import STANDARD_GRAVITY_MPS2
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import fit_to_json
 from hopscope.fitting.observe import ModelSpec, simulate_shot
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 PARABOLA_TOL_M = 1e-6
 TIME_TOL_S = 1e-8  # CSV writes t_s to 1e-9 s

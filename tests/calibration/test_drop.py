@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 from calib_synth import fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
-from hopscope.calibration.drop import STANDARD_GRAVITY_MPS2, apply_level, check_drop, find_ball, fit_free_fall
+from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 #: The issue's acceptance: the drop check recovers g within 0.5 % on a rendered drop.
 G_RTOL_RENDERED = 5e-3

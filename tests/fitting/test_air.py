@@ -16,14 +16,14 @@ from hopscope.fitting.air import (
     saturation_vapour_pressure,
     sutherland_viscosity,
 )
-from hopscope.fitting.constants import (
+from hopscope.shared.constants import (
     ISA_SEA_LEVEL_P_PA,
     ISA_SEA_LEVEL_RHO_KGM3,
     ISA_SEA_LEVEL_T_K,
     STANDARD_GRAVITY_MPS2,
     WGS84_K,
 )
-from hopscope.fitting.units import celsius_to_kelvin, hpa_to_pa, percent_to_fraction
+from hopscope.shared.units import celsius_to_kelvin, hpa_to_pa, percent_to_fraction
 
 DENSITY_VS_COOLPROP_RTOL = 2e-4
 VISCOSITY_VS_COOLPROP_RTOL = 5e-3

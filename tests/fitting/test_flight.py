@@ -12,7 +12,6 @@ from scipy.integrate import cumulative_simpson, solve_ivp
 
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
-from hopscope.fitting.constants import STANDARD_GRAVITY_MPS2
 from hopscope.fitting.flight import DEFAULT_STEP_S, FlightModel, LaunchState, Trajectory, derivatives, fly
 from hopscope.fitting.laws import (
     AerodynamicDecay,
@@ -22,6 +21,7 @@ from hopscope.fitting.laws import (
     SaturatingLift,
     SphereDrag,
 )
+from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 PATH_TOL_M = 1e-3  # the requirement: ≤ 1 mm over 100 m of flight with the default step
 PATH_TOL_TIGHT_M = 1e-4  # margin over what the default step achieves (measured ≤ 1.2e-5 m, sphere law)

@@ -8,6 +8,10 @@ from __future__ import annotations
 #: Standard acceleration of gravity, m/s². Source: 3rd CGPM (1901), exact by definition.
 STANDARD_GRAVITY_MPS2 = 9.80665
 
+#: Median absolute deviation → standard deviation for Gaussian noise, σ = MAD / Φ⁻¹(3/4) = 1.4826 · MAD.
+#: Source: Hampel (1974), J. Am. Stat. Assoc. 69:383; Rousseeuw & Croux (1993), J. Am. Stat. Assoc. 88:1273.
+MAD_TO_SIGMA = 1.4826
+
 #: Molar gas constant, J/(mol·K), the value used inside the CIPM-2007 formula.
 #: Source: Picard, Davis, Gläser & Fujii (2008), Metrologia 45:149, Table 1.
 CIPM_GAS_CONSTANT = 8.314472

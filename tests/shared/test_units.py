@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from hopscope.fitting import units
+from hopscope.shared import units
 
 ROUND_TRIP_RTOL = 1e-12
 

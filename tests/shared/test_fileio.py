@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from hopscope.fileio import atomic_path, write_text_atomic
+from hopscope.shared.fileio import atomic_path, write_text_atomic
 
 
 def test_write_text_atomic_writes_whole_file(tmp_path):
