@@ -45,6 +45,15 @@ class BB:
         """Moment of inertia of a uniform solid sphere, (2/5) m r², kg·m²."""
         return 0.4 * self.mass_kg * self.radius_m**2
 
+    def q_per_m(self, density_kgm3: float) -> float:
+        """q = ½ ρ A / m, 1/m: drag deceleration is q·C_D·u², Magnus lift acceleration q·C_L·u².
+
+        Parameters
+        ----------
+        density_kgm3 : air density, kg/m³.
+        """
+        return 0.5 * density_kgm3 * self.area_m2 / self.mass_kg
+
     def kinetic_energy_j(self, speed_mps: float) -> float:
         """Translational kinetic energy ½ m v², J."""
         return 0.5 * self.mass_kg * speed_mps * speed_mps

@@ -33,11 +33,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .estimate import FittedModel, FlightFit
 from .fitfile import FitFile
 from .flight import fly
+from .flyto import time_to_range
 from .observe import RowParams, flight_for
-from .predict import fitted_model_of, flight_time_to, heights_at
+from .predict import MAX_TIME_S, fitted_model_of, heights_at
+from .results import FittedModel, FlightFit
 
 #: Target circle diameter, m: a torso-sized target.  # common practice, no published source
 DEFAULT_TARGET_DIAMETER_M = 0.3
@@ -48,7 +49,7 @@ DEFAULT_MAX_RANGE_M = 80.0
 DEFAULT_STEP_M = 0.5
 DEFAULT_BATCHES = 20
 
-_STATE_SLOTS = (2, 3, 4)  # speed, elevation, lift coefficient within a shot's five own parameters
+_STATE_SLOTS = ("speed_mps", "elevation_rad", "lift_coefficient")
 
 
 @dataclass(frozen=True, eq=False)
@@ -93,7 +94,8 @@ def shot_spread(fm: FittedModel) -> tuple[np.ndarray, np.ndarray]:
     error, so it does not widen their spread), projected onto the positive semi-definite matrices.
     """
     n = fm.n_shots
-    idx = np.array([[5 * i + s for s in _STATE_SLOTS] for i in range(n)])
+    lay = fm.layout
+    idx = np.array([[lay.index(i, s) for s in _STATE_SLOTS] for i in range(n)])
     states = fm.theta[idx]  # (n, 3)
     mean = states.mean(axis=0)
     if n < 2:
@@ -169,7 +171,8 @@ def effective_range(
         "tracks are planar: lateral spread is not measured, so this is an upper bound for a real group",
         "shot-to-shot spread = covariance of the fitted shots minus their measurement covariance",
     ]
-    start_x = float(np.mean(fm.theta[[5 * i for i in range(fm.n_shots)]]))
+    lay = fm.layout
+    start_x = float(np.mean(fm.theta[lay.slot("x0_m")]))
     x_grid = np.arange(start_x + step_m, max_range_m + 1e-9, step_m)
     empty = np.zeros(0)
     if fm.n_shots < 2:
@@ -184,11 +187,11 @@ def effective_range(
     total = per * n_b
     states = gen.multivariate_normal(mean, cov, size=total, method="eigh")
     if include_parameter_uncertainty:
-        shared = fm.sample_theta(n_b, gen)[:, -2:]
+        shared = fm.sample_theta(n_b, gen)[:, lay.shared]
     else:
-        shared = fm.theta[None, -2:]
+        shared = fm.theta[None, lay.shared]
     shared_rows = np.repeat(shared, per, axis=0)
-    y0 = float(np.mean(fm.theta[[5 * i + 1 for i in range(fm.n_shots)]]))
+    y0 = float(np.mean(fm.theta[lay.slot("y0_m")]))
     rows = RowParams(
         np.full(total, start_x),
         np.full(total, y0),
@@ -198,9 +201,8 @@ def effective_range(
         shared_rows[:, 0],
         np.abs(shared_rows[:, 1]),
     )
-    duration = flight_time_to(fm, rows, max_range_m)
     model, launch = flight_for(fm.spec, rows)
-    traj = fly(model, launch, duration)
+    traj = fly(model, launch, min(MAX_TIME_S, time_to_range(model, launch, max_range_m)))
     ys, _ = heights_at(traj, x_grid)  # (total, k)
     ys = ys.reshape(n_b, per, x_grid.size)
     reached = np.isfinite(ys)

@@ -37,7 +37,6 @@ horizontal. Stage I/O serialises to text; the app writes the file atomically.
 from __future__ import annotations
 
 import json
-import math
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -46,12 +45,14 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.shared.parse import finite_or_none, is_finite_number
 from hopscope.shared.units import rad_to_deg
 
 from .air import Air
 from .bb import BB
-from .estimate import ChronoPrior, Estimate, FittedModel, FlightFit, decay_param_name
+from .layout import ParamLayout, decay_param_name
 from .observe import ModelSpec
+from .results import ChronoPrior, Estimate, FittedModel, FlightFit
 
 SCHEMA = "hopscope.fit/1"
 
@@ -65,11 +66,7 @@ SPIN_NOTE_SATURATING = (
 )
 
 
-def _num(x: Any) -> float | None:
-    if x is None:
-        return None
-    v = float(x)
-    return v if math.isfinite(v) else None
+_num = finite_or_none
 
 
 def estimate_to_dict(e: Estimate | None, scale: float = 1.0) -> dict[str, float | None] | None:
@@ -236,7 +233,7 @@ class _Reader:
         path = f"{where}.{key}" if where else key
         if v is None and allow_null:
             return None
-        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+        if not is_finite_number(v):
             raise self.fail(path, f"expected a finite number, got {v!r}")
         return float(v)
 
@@ -275,7 +272,7 @@ class _Reader:
             raise self.fail(path, f"expected a list of {n if n is not None else 'some'} numbers")
         out = []
         for i, x in enumerate(v):
-            if isinstance(x, bool) or not isinstance(x, int | float) or not math.isfinite(x):
+            if not is_finite_number(x):
                 raise self.fail(f"{path}[{i}]", f"expected a finite number, got {x!r}")
             out.append(float(x))
         return np.array(out)
@@ -290,7 +287,7 @@ class _Reader:
             if not isinstance(row, list) or len(row) != n:
                 raise self.fail(f"{path}[{i}]", f"expected a row of {n} numbers")
             for j, x in enumerate(row):
-                if isinstance(x, bool) or not isinstance(x, int | float) or not math.isfinite(x):
+                if not is_finite_number(x):
                     raise self.fail(f"{path}[{i}][{j}]", f"expected a finite number, got {x!r}")
             rows.append([float(x) for x in row])
         return np.array(rows).reshape(n, n)
@@ -455,7 +452,7 @@ def fit_from_json(text: str, source: str = "<fit>") -> FitFile:
     names = rd.get(p, "names", "parameters")
     if not isinstance(names, list) or not all(isinstance(nm, str) for nm in names):
         raise rd.fail("parameters.names", "expected a list of strings")
-    expected = 5 * len(shots) + 2
+    expected = ParamLayout(len(shots)).size
     if len(names) != expected:
         raise rd.fail(
             "parameters.names", f"expected {expected} names for {len(shots)} shots, got {len(names)}"

@@ -159,7 +159,7 @@ class _Kernel:
         self.model = model
         self.re_per_speed = air.density_kgm3 * bb.diameter_m / air.viscosity_pas  # s/m
         self.radius = bb.radius_m
-        self.q = 0.5 * air.density_kgm3 * bb.area_m2 / bb.mass_kg  # 1/m
+        self.q = bb.q_per_m(air.density_kgm3)  # 1/m
         self.decay_kwargs = {
             "density_kgm3": air.density_kgm3,
             "area_m2": bb.area_m2,

@@ -99,7 +99,7 @@ def guess_shot(shot: ShotData, spec: ModelSpec) -> ShotGuess:
         raise ValueError(f"shot {shot.label!r}: the points do not move, cannot guess a speed")
     ux, uy = vx / speed, vy / speed
     g = spec.gravity_mps2
-    q = 0.5 * spec.air.density_kgm3 * spec.bb.area_m2 / spec.bb.mass_kg
+    q = spec.q_per_m
     along = ax * ux + ay * uy
     across = -ax * uy + ay * ux
     cd = -(along + g * uy) / (q * speed**2)

@@ -172,6 +172,11 @@ class ModelSpec:
             raise ValueError(f"sphere_correlation: unknown {self.sphere_correlation!r}")
 
     @property
+    def q_per_m(self) -> float:
+        """q = ½ ρ A / m of this BB in this air, 1/m (see :meth:`fitting.bb.BB.q_per_m`)."""
+        return self.bb.q_per_m(self.air.density_kgm3)
+
+    @property
     def cl_limit(self) -> float:
         """Largest |C_L| the lift law can produce (inf for the linear law)."""
         return float(SaturatingLift().cl_max) if self.lift == "saturating" else math.inf

@@ -17,13 +17,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .estimate import FittedModel, FlightFit
 from .fitfile import FitFile
-from .flight import Trajectory, fly
-from .observe import RowParams, drag_coefficient_at, flight_for
+from .flight import Trajectory
+from .flyto import DEFAULT_SAMPLE_S, fly_to
+from .observe import RowParams, flight_for
+from .results import FittedModel, FlightFit
 
 DEFAULT_RANGE_M = 50.0
-DEFAULT_SAMPLE_S = 1e-3
 DEFAULT_SAMPLES = 300
 #: Distances at which the band is computed (then interpolated onto the path).
 BAND_POINTS = 80
@@ -68,21 +68,7 @@ def fitted_model_of(fit: FlightFit | FitFile | FittedModel) -> FittedModel:
 
 def shot_rows(fm: FittedModel, thetas: np.ndarray, shot: int) -> RowParams:
     """Row parameters of one shot for each parameter vector in ``thetas`` (n, p)."""
-    b = 5 * shot
-    th = np.atleast_2d(thetas)
-    return RowParams(th[:, b], th[:, b + 1], th[:, b + 2], th[:, b + 3], th[:, b + 4], th[:, -2], th[:, -1])
-
-
-def flight_time_to(fm: FittedModel, rows: RowParams, range_m: float) -> float:
-    """Time for the slowest row to cover ``range_m`` downrange (drag-only closed form, with margin), s."""
-    q = 0.5 * fm.spec.air.density_kgm3 * fm.spec.bb.area_m2 / fm.spec.bb.mass_kg
-    speed = np.asarray(rows.speed_mps, dtype=float)
-    cd = drag_coefficient_at(fm.spec, rows.drag_param, speed)
-    k = q * np.maximum(cd, 1e-3)
-    dist = np.maximum(range_m - np.asarray(rows.x0_m), 0.0) / np.maximum(np.cos(rows.elevation_rad), 0.2)
-    with np.errstate(over="ignore"):
-        t = np.expm1(np.minimum(k * dist, 50.0)) / (k * speed)
-    return float(min(MAX_TIME_S, 1.3 * np.max(t) + 0.05))
+    return fm.layout.shot_rows(thetas, shot)
 
 
 def check_shot(fm: FittedModel, shot: int) -> None:
@@ -128,28 +114,18 @@ def predict_path(
     thetas = (
         np.vstack([fm.theta[None, :], fm.sample_theta(n_samples, rng)]) if n_samples else fm.theta[None, :]
     )
-    rows = shot_rows(fm, thetas, shot)
-    duration = flight_time_to(fm, rows, range_m)
-    if max_time_s is not None:
-        duration = min(duration, max_time_s)
-    model, launch = flight_for(fm.spec, rows)
-    traj = fly(model, launch, duration)
-    nominal_traj = Trajectory(traj.t_s, traj.state[:1], traj.rate[:1])
-    t = np.arange(0.0, traj.t_s[-1] + 1e-12, sample_s)
-    if max_time_s is not None and t[-1] < traj.t_s[-1] - 1e-12:
-        t = np.append(t, traj.t_s[-1])  # end exactly at the requested time
-    nominal = nominal_traj.sample(t)[0]
-    x, y = nominal[:, 0], nominal[:, 1]
-    speed = np.linalg.norm(nominal[:, 3:6], axis=1)
-    stop, reached = x.size, "time"
-    hit_range = np.nonzero(x >= range_m)[0]
-    if hit_range.size:
-        stop, reached = int(hit_range[0]) + 1, "range"
-    if ground_y_m is not None:
-        below = np.nonzero(y[:stop] <= ground_y_m)[0]
-        if below.size:
-            stop, reached = int(below[0]) + 1, "ground"
-    t, x, y, speed = t[:stop], x[:stop], y[:stop], speed[:stop]
+    model, launch = flight_for(fm.spec, shot_rows(fm, thetas, shot))
+    path = fly_to(
+        model,
+        launch,
+        range_m=range_m,
+        ground_y_m=ground_y_m,
+        duration_s=max_time_s,
+        sample_s=sample_s,
+        max_time_s=MAX_TIME_S,
+    )
+    traj, reached = path.trajectory, path.reached
+    t, x, y, speed = path.t_s, path.x_m, path.y_m, path.speed_mps
     y_sig = np.zeros_like(x)
     v_sig = np.zeros_like(x)
     if n_samples and x.size > 1:

@@ -31,6 +31,8 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.shared.parse import finite_or_none, json_finite
+
 from .air import Air
 from .bb import BB
 from .estimate import fit_shots
@@ -158,7 +160,7 @@ def build_profile(
         edges = np.asarray(re_edges, dtype=float)
         if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0) or not np.all(np.isfinite(edges)):
             raise ValueError("re_edges: expected at least two finite, strictly ascending Reynolds numbers")
-    decay_value = float(allfit.parameter_values[-1])
+    decay_value = float(allfit.parameter_values[allfit.layout.decay])
     bins = []
     for lo, hi in zip(edges[:-1], edges[1:], strict=True):
         members = [i for i in range(len(shots)) if lo <= re[i] < hi or (hi == edges[-1] and re[i] == hi)]
@@ -233,8 +235,7 @@ def build_profile(
 # ---------------------------------------------------------------------------------------------- files
 
 
-def _num(x: float | None) -> float | None:
-    return None if x is None or not math.isfinite(x) else float(x)
+_num = finite_or_none
 
 
 def profile_to_dict(p: BBProfile) -> dict[str, Any]:
@@ -340,9 +341,7 @@ def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
         v = obj[key]
         if v is None and null:
             return None
-        if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-            raise ValueError(f"{source}: key {where}.{key}: expected a finite number, got {v!r}")
-        return float(v)
+        return json_finite(v, f"{source}: key {where}.{key}")
 
     def est(obj, key, where):
         if not isinstance(obj, dict) or not isinstance(obj.get(key), dict):

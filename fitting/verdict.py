@@ -17,9 +17,9 @@ from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 from .air import Air
 from .bb import BB
-from .flight import fly
+from .flyto import fly_to
 from .observe import flight_for
-from .predict import check_shot, fitted_model_of, flight_time_to, shot_rows
+from .predict import check_shot, fitted_model_of, shot_rows
 
 #: Lift-to-weight below this: too little hop (the BB drops early).  # common practice, no published source
 UNDER_HOP_BELOW = 0.80
@@ -36,7 +36,7 @@ def lift_to_weight(
     gravity_mps2: float = STANDARD_GRAVITY_MPS2,
 ) -> float:
     """Magnus lift over weight, ½ ρ A C_L u² / (m g) (dimensionless)."""
-    return 0.5 * air.density_kgm3 * bb.area_m2 * lift_coefficient * speed_mps**2 / (bb.mass_kg * gravity_mps2)
+    return bb.q_per_m(air.density_kgm3) * lift_coefficient * speed_mps**2 / gravity_mps2
 
 
 @dataclass(frozen=True)
@@ -123,18 +123,15 @@ def lift_profile(fit, *, shot: int = 0, range_m: float = 50.0, points: int = 200
     check_shot(fm, shot)
     if not (math.isfinite(range_m) and range_m > 0):
         raise ValueError(f"range_m must be positive, got {range_m!r}")
-    rows = shot_rows(fm, fm.theta[None, :], shot)
-    model, launch = flight_for(fm.spec, rows)
-    traj = fly(model, launch, flight_time_to(fm, rows, range_m))
-    t = np.linspace(0.0, traj.t_s[-1], points)
-    st = traj.sample(t)[0]
+    model, launch = flight_for(fm.spec, shot_rows(fm, fm.theta[None, :], shot))
+    path = fly_to(model, launch, range_m=range_m)
+    t = np.linspace(0.0, path.t_s[-1], points)
+    st = path.trajectory.sample(t)[0]
     keep = st[:, 0] <= range_m
     st = st[keep]
     u_vec = st[:, 3:6] - np.asarray(model.wind_mps)
     u = np.linalg.norm(u_vec, axis=1)
     s = model.bb.radius_m * st[:, 6] / u
     cl = np.asarray(model.lift.coefficient(s), dtype=float) * np.ones_like(u)
-    ratio = (
-        0.5 * model.air.density_kgm3 * model.bb.area_m2 * cl * u**2 / (model.bb.mass_kg * model.gravity_mps2)
-    )
+    ratio = model.bb.q_per_m(model.air.density_kgm3) * cl * u**2 / model.gravity_mps2
     return LiftProfile(st[:, 0], np.linalg.norm(st[:, 3:6], axis=1), cl, ratio)
