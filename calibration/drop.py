@@ -29,7 +29,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -39,7 +38,9 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from hopscope.shared.constants import MAD_TO_SIGMA, STANDARD_GRAVITY_MPS2
+from hopscope.shared.video import check_frame_rate, iter_frames, point_times_s
 
+from .dropcheck import DropCheck, Measured
 from .rig import Rig
 
 #: Allowance for local gravity around the standard value, m/s²: normal gravity runs from 9.7803 (equator)
@@ -89,6 +90,22 @@ BACKGROUND_FRAMES = 15
 #: Points further than OUTLIER_SIGMA robust σ from the fit are dropped and the fit repeated.
 OUTLIER_SIGMA = 5.0
 
+#: Release search (:func:`find_release`): the first points of the free fall must lie within RELEASE_SIGMA
+#: noise σ of the fall's curve. # common practice, no published source
+RELEASE_HEAD_POINTS = 3
+RELEASE_SIGMA = 4.0
+
+#: A fall is a clean parabola when the lag-1 autocorrelation of its fit residuals stays below this
+#: (noise: ≈ 0 ± 1/√N; a contact phase or a wrong model leaves a trend near 1). # common practice, no
+#: published source (threshold; the statistic: Durbin & Watson 1950, Biometrika 37:409)
+CLEAN_AUTOCORRELATION = 0.5
+
+#: Camera frame rates, Hz: a wrong g that a true rate among these explains (within COMMON_RATE_TOLERANCE)
+#: is blamed on the frame rate. # common practice, no published source
+COMMON_FRAME_RATES_HZ = (24, 25, 30, 48, 50, 60, 90, 100, 120, 180, 200, 240, 250, 300, 400, 480, 500, 600,
+                         960, 1000, 1200, 1920, 2000, 2500, 3000, 4000, 5000, 10000)  # fmt: skip
+COMMON_RATE_TOLERANCE = 0.01
+
 
 @dataclass(frozen=True)
 class DropClip:
@@ -128,6 +145,7 @@ class FreeFallFit:
     residual_rms_m : RMS of the position residuals, m.
     n_points : points used; duration_s : time they span, s.
     reason : why the fit failed ("" when it did not).
+    residual_autocorrelation : lag-1 autocorrelation of the residuals (:func:`lag1_autocorrelation`).
     """
 
     g_mps2: float
@@ -140,6 +158,7 @@ class FreeFallFit:
     n_points: int
     duration_s: float
     reason: str = ""
+    residual_autocorrelation: float = 0.0
 
     @property
     def ok(self) -> bool:
@@ -254,33 +273,15 @@ def fit_free_fall(t_s: Any, xy_m: Any, *, drag: str = "auto") -> FreeFallFit:
         residual_rms_m=float(np.sqrt(rss / len(tk))),
         n_points=int(len(tk)),
         duration_s=float(tk[-1] - tk[0]),
+        residual_autocorrelation=lag1_autocorrelation(_model(p, tk, with_drag) - xyk),
     )
 
 
 # --- the clip ----------------------------------------------------------------------------------------------
-def _open(path: Path):
-    import av
-
-    try:
-        return av.open(str(path))
-    except (av.error.FFmpegError, OSError, ValueError) as exc:  # type: ignore[attr-defined]
-        raise OSError(f"{path}: cannot read the drop clip ({' '.join(str(exc).split())})") from None
-
-
-def _frames(path: Path):
-    """Yield (time_s, index, grey uint8 frame) with the container's timestamps."""
-    import av
-
-    with _open(path) as container:
-        if not container.streams.video:
-            raise ValueError(f"{path}: the drop clip has no video stream")
-        stream = container.streams.video[0]
-        try:
-            for i, frame in enumerate(container.decode(stream)):
-                t = frame.time
-                yield (float(t) if t is not None else float("nan")), i, frame.to_ndarray(format="gray")
-        except av.error.FFmpegError as exc:  # type: ignore[attr-defined]
-            raise OSError(f"{path}: the drop clip is damaged ({' '.join(str(exc).split())})") from None
+def _frames(path: Path, fps: float | None):
+    """Yield (time_s, index, luma frame) through the ground floor's reader (container times or override)."""
+    for frame in iter_frames(path, fps_override=fps, fps_option="--drop-fps"):
+        yield frame.t_s, frame.index, frame.luma
 
 
 def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout_s: float = 0.0) -> DropClip:
@@ -303,8 +304,8 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout
     frame.
     """
     p = Path(path)
-    if fps is not None and not (math.isfinite(fps) and fps > 0):
-        raise ValueError(f"--drop-fps: expected a positive frame rate, got {fps!r}")
+    if fps is not None:
+        check_frame_rate(fps, "--drop-fps")
     if not (math.isfinite(readout_s) and readout_s >= 0):
         raise ValueError(f"--drop-readout-ms: expected a readout time >= 0, got {readout_s!r}")
     # pass 1: timestamps of all frames and an evenly spread sample of them for the median background
@@ -312,10 +313,10 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout
     all_t_list: list[float] = []
     sample: list[tuple[int, np.ndarray]] = []
     step = 1
-    for t, i, img in _frames(p):
+    for t, i, img in _frames(p, fps):
         all_t_list.append(t)
         if i % step == 0:
-            sample.append((i, img))
+            sample.append((i, np.array(img)))
             if len(sample) > 2 * BACKGROUND_FRAMES:
                 step *= 2
                 sample = [(j, f) for j, f in sample if j % step == 0]
@@ -332,7 +333,7 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout
     thr = max(DETECT_SIGMA * sigma, DETECT_FLOOR_DN)
     max_area = BLOB_MAX_AREA_FRACTION * background.size
     cand_t, cand_uv, cand_i = [], [], []
-    for t, i, img in _frames(p):  # pass 2: the ball in every frame
+    for t, i, img in _frames(p, fps):  # pass 2: the ball in every frame
         diff = cv2.absdiff(img, background)
         mask = (cv2.GaussianBlur(diff, (0, 0), 1.0) > thr).astype(np.uint8)
         n, _, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
@@ -352,28 +353,20 @@ def find_ball(path: str | os.PathLike[str], *, fps: float | None = None, readout
                 continue
             rr, cc = np.mgrid[r0:r1, c0:c1]
             cand_uv.append([(patch * cc).sum() / total, (patch * rr).sum() / total])
-            cand_t.append(t if fps is None else i / float(fps))
+            cand_t.append(t)
             cand_i.append(i)
     keep = _consistent_path(np.asarray(cand_i, int), np.asarray(cand_uv, float).reshape(-1, 2))
-    times = [cand_t[j] for j in keep]
-    uvs = [cand_uv[j] for j in keep]
-    idx = [cand_i[j] for j in keep]
-    frame_idx = np.asarray(idx, int)
+    uv_arr = np.asarray([cand_uv[j] for j in keep], float).reshape(-1, 2)
+    frame_idx = np.asarray([cand_i[j] for j in keep], int)
+    all_t = np.array(all_t_list)
+    span = all_t[-1] - all_t[0]
     if fps is not None:
-        t_s = frame_idx / float(fps)
         timing, rate = "--fps override", float(fps)
     else:
-        all_t = np.array(all_t_list)
-        if not np.all(np.isfinite(all_t)):
-            raise ValueError(f"{p}: the drop clip has frames without timestamps; give its frame rate")
-        t_s = np.asarray(times, float) - all_t[0]
-        span = all_t[-1] - all_t[0]
-        rate = (len(all_t) - 1) / span if span > 0 else float("nan")
-        timing = "container timestamps"
+        timing, rate = "container timestamps", (len(all_t) - 1) / span if span > 0 else float("nan")
     size = (int(background.shape[1]), int(background.shape[0]))
-    uv_arr = np.asarray(uvs, float).reshape(-1, 2)
-    if readout_s > 0 and uv_arr.size:
-        t_s = t_s + readout_s * uv_arr[:, 1] / size[1]  # the ball's row is exposed that much later
+    # the ball's row is exposed that much later than the frame's top row (the one place that offset is applied)
+    t_s = point_times_s(np.asarray([cand_t[j] for j in keep], float), uv_arr[:, 1], size[1], readout_s)
     return DropClip(str(p), t_s, uv_arr, frame_idx, n_frames, timing, rate, size)
 
 
@@ -438,6 +431,64 @@ def _moving(clip: DropClip) -> np.ndarray:
     return mask
 
 
+def _poly_residuals(t: np.ndarray, xy: np.ndarray, deg: int) -> np.ndarray:
+    """(N, 2) residuals of a per-axis polynomial of degree ``deg`` in t fitted to ``xy``."""
+    tc = t - t.mean()
+    out = np.empty_like(xy)
+    for ax in range(2):
+        out[:, ax] = xy[:, ax] - np.polyval(np.polyfit(tc, xy[:, ax], deg), tc)
+    return out
+
+
+def find_release(t_s: np.ndarray, xy_m: np.ndarray) -> int:
+    """Index of the first point of the free fall: where the ball has left its holder or hand.
+
+    Before the release the ball is held, or slides and rolls against the holder with less than g; that part
+    does not lie on the fall's smooth curve. The noise σ is measured on the fall's second half (a cubic per
+    axis, which absorbs the small drag term); the release is the earliest start whose first
+    :data:`RELEASE_HEAD_POINTS` points lie within :data:`RELEASE_SIGMA` σ of the curve fitted from there on.
+    Returns 0 when every start looks like free fall. (A change-point search by residuals, Bevington &
+    Robinson 2003, sec. 11.4, applied to the start of the segment.)
+    """
+    t = np.asarray(t_s, float)
+    xy = np.asarray(xy_m, float).reshape(-1, 2)
+    n = len(t)
+    if n < 3 * MIN_DROP_POINTS:
+        return 0
+    tail = slice(n // 2, n)
+    r_tail = _poly_residuals(t[tail], xy[tail], 3)
+    dof = max(r_tail.size - 8, 1)
+    sigma = float(np.sqrt(np.sum(r_tail**2) / dof)) + 1e-12
+    for start in range(0, n - 2 * MIN_DROP_POINTS):
+        r = np.linalg.norm(_poly_residuals(t[start:], xy[start:], 3), axis=1) / sigma
+        if np.max(r[:RELEASE_HEAD_POINTS]) < RELEASE_SIGMA:
+            return start
+    return 0
+
+
+def lag1_autocorrelation(residuals: np.ndarray) -> float:
+    """Lag-1 autocorrelation of a fit's residuals (each column separately, averaged): ≈ 0 ± 1/√N for
+    noise, near 1 when a trend is left (Durbin & Watson 1950, Biometrika 37:409, d ≈ 2(1 − ρ₁))."""
+    r = np.asarray(residuals, float).reshape(len(residuals), -1)
+    r = r - r.mean(axis=0)
+    den = np.sum(r**2, axis=0)
+    num = np.sum(r[1:] * r[:-1], axis=0)
+    ok = den > 0
+    return float(np.mean(num[ok] / den[ok])) if ok.any() else 0.0
+
+
+def _likely_cause(ratio: float, fps: float, clean: bool) -> str:
+    """Which error best explains g measured ``ratio`` × expected: not free fall when the fall is not a
+    clean parabola; the frame rate when a common camera rate explains it; else the scale."""
+    if not clean:
+        return "not free fall"
+    if math.isfinite(fps) and fps > 0:
+        true_fps = fps / math.sqrt(ratio)
+        if any(abs(true_fps / r - 1) < COMMON_RATE_TOLERANCE for r in COMMON_FRAME_RATES_HZ):
+            return "frame rate"
+    return "scale"
+
+
 def check_drop(
     rig: Rig,
     path: str | os.PathLike[str],
@@ -446,15 +497,19 @@ def check_drop(
     g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
     drag: str = "auto",
     readout_s: float = 0.0,
-) -> tuple[dict[str, Any], tuple[str, ...]]:
+) -> tuple[DropCheck, tuple[str, ...]]:
     """Measure g from a drop clip through ``rig`` and judge it.
+
+    Only the free fall is fitted: the frames where the ball sits still are left out, then
+    :func:`find_release` finds where it leaves its holder. The fit's residuals decide whether the fall
+    is a clean parabola (:func:`lag1_autocorrelation` below :data:`CLEAN_AUTOCORRELATION`); only then can a
+    wrong g be blamed on the frame rate or the scale.
 
     Returns
     -------
-    (drop_check, warnings): ``drop_check`` is the rig's ``drop_check`` entry (``g_measured_mps2``
-    {"value", "stderr"}, ``g_expected_mps2``, ``verdict`` "consistent" / "inconsistent" / "failed",
-    ``tilt_deg`` {"value", "stderr"}, ``levelled`` false until :func:`apply_level`, and the details);
-    ``warnings`` name the likely cause when g is off (frame rate, scale) or why the check failed.
+    (drop_check, warnings): the :class:`~calibration.dropcheck.DropCheck` (verdict "consistent",
+    "inconsistent" or "failed", ``likely_cause``, ``levelled`` false until :func:`apply_level`);
+    ``warnings`` name the likely cause when g is off or why the check failed.
 
     Notes
     -----
@@ -470,43 +525,64 @@ def check_drop(
         )
     mask = _moving(clip)
     xy = rig.pixel_to_world(clip.uv_px[mask]) if mask.any() else np.zeros((0, 2))
-    fit = fit_free_fall(clip.t_s[mask], xy, drag=drag)
-    base: dict[str, Any] = {
-        "clip": clip.source,
-        "timing": clip.timing,
-        "fps": clip.fps if math.isfinite(clip.fps) else None,
-        "frames": clip.n_frames,
-        "g_expected_mps2": g_expected_mps2,
-        "levelled": False,
-    }
+    t_fall, uv_fall, frames_fall = clip.t_s[mask], clip.uv_px[mask], clip.frames[mask]
+    release = find_release(t_fall, xy) if len(xy) else 0
+    t_fall, xy, uv_fall, frames_fall = (
+        t_fall[release:],
+        xy[release:],
+        uv_fall[release:],
+        frames_fall[release:],
+    )
+    fit = fit_free_fall(t_fall, xy, drag=drag)
+    base = DropCheck(
+        clip=clip.source,
+        timing=clip.timing,
+        fps=clip.fps if math.isfinite(clip.fps) else None,
+        frames=clip.n_frames,
+        g_expected_mps2=g_expected_mps2,
+        verdict="failed",
+        release_frame=int(frames_fall[0]) if len(frames_fall) else None,
+    )
     if not fit.ok:
-        base.update({"verdict": "failed", "reason": fit.reason, "g_measured_mps2": None, "tilt_deg": None})
-        return base, (f"drop check failed on {clip.source}: {fit.reason}",)
-    fall_px = float(np.linalg.norm(clip.uv_px[mask][-1] - clip.uv_px[mask][0]))
+        failed = dataclasses.replace(base, reason=fit.reason, likely_cause="not free fall")
+        return failed, (f"drop check failed on {clip.source}: {fit.reason}",)
+    fall_px = float(np.linalg.norm(uv_fall[-1] - uv_fall[0]))
     tilt_sys = CENTROID_SYSTEMATIC_PX / max(fall_px, 1.0)
     tilt_err = math.hypot(fit.tilt_stderr_rad, tilt_sys)
     dev = fit.g_mps2 - g_expected_mps2
     allowed = DROP_SIGMA_LIMIT * fit.g_stderr_mps2 + LOCAL_GRAVITY_ALLOWANCE_MPS2
     verdict = "consistent" if abs(dev) <= allowed else "inconsistent"
     ratio = fit.g_mps2 / g_expected_mps2
-    base.update(
-        {
-            "g_measured_mps2": {"value": fit.g_mps2, "stderr": fit.g_stderr_mps2},
-            "g_ratio": ratio,
-            "tilt_deg": {"value": math.degrees(fit.tilt_rad), "stderr": math.degrees(tilt_err)},
-            "tilt_stderr_parts_deg": {
-                "fit": math.degrees(fit.tilt_stderr_rad),
-                "centroid_systematic": math.degrees(tilt_sys),
-            },
-            "fall_px": fall_px,
-            "drag_per_m": None
-            if fit.drag_per_m is None
-            else {"value": fit.drag_per_m, "stderr": fit.drag_stderr_per_m},
-            "points": fit.n_points,
-            "duration_s": fit.duration_s,
-            "residual_rms_m": fit.residual_rms_m,
-            "verdict": verdict,
-        }
+    clean = abs(fit.residual_autocorrelation) < CLEAN_AUTOCORRELATION
+    cause = "" if verdict == "consistent" else _likely_cause(ratio, clip.fps, clean)
+    rate_hint = ""
+    if math.isfinite(clip.fps):
+        rate_hint = f" (a true frame rate of {clip.fps / math.sqrt(ratio):.4g} fps instead of {clip.fps:.4g})"
+    reasons = {
+        "": "",
+        "frame rate": f"the frame rate is probably wrong{rate_hint}: g scales with its square; or the scale "
+        "(--square-mm, plane offsets, parallax) is off, which scales g by its own error",
+        "scale": "the scale is probably wrong (--square-mm, plane offsets typed in the wrong unit, parallax), "
+        f"which scales g by its own error; or the frame rate{rate_hint}, which scales g by its square",
+        "not free fall": "the ball's path is not a clean parabola (it touched the holder or a hand, or "
+        "something else moved): film a ball falling freely; neither the frame rate nor the scale is blamed",
+    }
+    check = dataclasses.replace(
+        base,
+        verdict=verdict,
+        reason=reasons[cause],
+        g_measured_mps2=Measured(fit.g_mps2, fit.g_stderr_mps2),
+        g_ratio=ratio,
+        tilt_deg=Measured(math.degrees(fit.tilt_rad), math.degrees(tilt_err)),
+        tilt_fit_stderr_deg=math.degrees(fit.tilt_stderr_rad),
+        tilt_centroid_stderr_deg=math.degrees(tilt_sys),
+        fall_px=fall_px,
+        drag_per_m=None if fit.drag_per_m is None else Measured(fit.drag_per_m, fit.drag_stderr_per_m or 0.0),
+        points=fit.n_points,
+        duration_s=fit.duration_s,
+        residual_rms_m=fit.residual_rms_m,
+        clean_parabola=bool(clean),
+        likely_cause=cause,
     )
     warns = []
     if fit.g_stderr_mps2 > WEAK_DROP_RELATIVE_STDERR * g_expected_mps2:
@@ -515,23 +591,30 @@ def check_drop(
             f"from {fit.n_points} points over {1e3 * fit.duration_s:.0f} ms; film a longer fall (≥ 0.2 s in view)"
         )
     if verdict == "inconsistent":
-        rate_hint = ""
-        if math.isfinite(clip.fps):
-            rate_hint = (
-                f" (a true frame rate of {clip.fps / math.sqrt(ratio):.4g} fps instead of {clip.fps:.4g})"
-            )
         warns.append(
             f"drop check: measured g = {fit.g_mps2:.4g} ± {fit.g_stderr_mps2:.2g} m/s², expected "
-            f"{g_expected_mps2:.4g} ({100 * (ratio - 1):+.2f} %): check the frame rate{rate_hint}, which "
-            f"scales g by its square, or the scale (--square-mm, plane offsets, parallax), which scales g "
-            f"by its own error"
+            f"{g_expected_mps2:.4g} ({100 * (ratio - 1):+.2f} %): {reasons[cause]}"
         )
-    return base, tuple(warns)
+    return check, tuple(warns)
+
+
+def drop_refusal(check: DropCheck) -> str:
+    """The one line ``calibrate`` stops with when the rig fails its own drop check."""
+    if check.g_measured_mps2 is None:
+        return (
+            f"{check.clip}: drop check failed ({check.reason}); rerun with --keep-failed-drop to keep the rig"
+        )
+    g = check.g_measured_mps2
+    return (
+        f"{check.clip}: drop check failed: g = {g.value:.4g} ± {g.stderr:.2g} m/s², expected "
+        f"{check.g_expected_mps2:.4g}; likely cause: {check.likely_cause} ({check.reason}); "
+        "rerun with --keep-failed-drop to keep the rig anyway"
+    )
 
 
 def apply_level(
     rig: Rig,
-    drop_check: Mapping[str, Any],
+    drop_check: DropCheck,
     warnings: tuple[str, ...] = (),
     *,
     rng: int | np.random.Generator | None = 0,
@@ -541,13 +624,14 @@ def apply_level(
     The world frame is turned about z by −tilt, so gravity points along −y: the origin and the plane stay;
     every mapped x, y is then in the levelled frame. Each ensemble member is turned by its own draw
     −(tilt + δ), δ ~ N(0, σ_tilt²), so the tilt's uncertainty reaches the error bars. Levelled or not is
-    recorded in ``drop_check``.
+    recorded in ``drop_check``. A check that is not consistent never levels the rig (its fall is not
+    trusted).
     """
-    check = dict(drop_check)
-    tilt = check.get("tilt_deg")
+    check = dataclasses.replace(drop_check, levelled=False)
+    tilt = check.tilt_deg
     out = rig
-    if isinstance(tilt, Mapping) and check.get("verdict") in ("consistent", "inconsistent"):
-        value, err = float(tilt["value"]), float(tilt["stderr"])
+    if tilt is not None and check.verdict == "consistent":
+        value, err = tilt.value, tilt.stderr
         if math.isfinite(err) and abs(value) > TILT_SIGNIFICANCE * err:
             gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
             angle = -math.radians(value)
@@ -558,7 +642,7 @@ def apply_level(
                 for m, dd in zip(rig.ensemble, draws, strict=True)
             )
             out = dataclasses.replace(out, ensemble=members)
-            check["levelled"] = True
+            check = dataclasses.replace(check, levelled=True)
     return out.with_drop_check(check, warnings=warnings)
 
 

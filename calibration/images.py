@@ -19,10 +19,12 @@ from typing import TypeVar
 import cv2
 import numpy as np
 
+from hopscope.shared.parse import parse_finite
+from hopscope.shared.video import VIDEO_SUFFIXES, frame_count, iter_frames
+
 from .grid import DEFAULT_DETECTOR, GridDetection, GridSpec, detect_grid, to_gray
 
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp", ".pgm", ".ppm", ".webp")
-VIDEO_SUFFIXES = (".mp4", ".mov", ".avi", ".mkv", ".m4v", ".webm", ".mts", ".m2ts", ".wmv", ".mpg", ".mpeg")
 
 #: Video sampling for lens views: frames looked at (evenly spread), and the most views kept (the most
 #: varied ones, by board position, size and foreshortening in the image).
@@ -30,6 +32,7 @@ VIDEO_CANDIDATES = 60
 VIDEO_MAX_VIEWS = 20
 #: Frames blurrier than this fraction of the sharpest candidate's Laplacian variance are skipped.
 VIDEO_MIN_RELATIVE_SHARPNESS = 0.3
+
 
 T = TypeVar("T")
 Progress = Callable[[Iterable[T]], Iterator[T]]
@@ -86,37 +89,9 @@ def read_image(path: str | os.PathLike[str]) -> np.ndarray:
     return to_gray(img)
 
 
-def _video_frames(path: Path, wanted: set[int] | None):
-    import av
-
-    try:
-        container = av.open(str(path))
-    except (av.error.FFmpegError, OSError) as exc:  # type: ignore[attr-defined]
-        raise OSError(f"{path}: cannot read the video ({' '.join(str(exc).split())})") from None
-    with container:
-        if not container.streams.video:
-            raise ValueError(f"{path}: the file has no video stream")
-        try:
-            for i, frame in enumerate(container.decode(container.streams.video[0])):
-                if wanted is None or i in wanted:
-                    yield i, frame.to_ndarray(format="gray")
-        except av.error.FFmpegError as exc:  # type: ignore[attr-defined]
-            raise OSError(f"{path}: the video is damaged ({' '.join(str(exc).split())})") from None
-
-
-def _frame_count(path: Path) -> int:
-    import av
-
-    try:
-        with av.open(str(path)) as container:
-            if not container.streams.video:
-                raise ValueError(f"{path}: the file has no video stream")
-            n = container.streams.video[0].frames
-            if n:
-                return int(n)
-            return sum(1 for _ in container.decode(container.streams.video[0]))
-    except av.error.FFmpegError as exc:  # type: ignore[attr-defined]
-        raise OSError(f"{path}: cannot read the video ({' '.join(str(exc).split())})") from None
+def _video_frames(path: Path, wanted: set[int]) -> list[tuple[int, np.ndarray]]:
+    """The wanted frames of a video as (index, luma copy), read by the ground floor's reader."""
+    return [(f.index, np.array(f.luma)) for f in iter_frames(path, check_length=False) if f.index in wanted]
 
 
 def _descriptor(corners: np.ndarray, spec: GridSpec, size: tuple[int, int]) -> np.ndarray:
@@ -143,7 +118,7 @@ def sample_video_views(
     """Sharp, varied lens views from a video: evenly spread candidate frames, the blurry ones skipped,
     then greedily the most different board placements (farthest-point sampling on position, size and
     foreshortening). Returns the detections (found and not) and the frame size (w, h)."""
-    n = _frame_count(path)
+    n = frame_count(path)
     wanted = set(np.unique(np.linspace(0, max(n - 1, 0), min(candidates, max(n, 1))).astype(int)).tolist())
     frames = list(_video_frames(path, wanted))
     if not frames:
@@ -225,12 +200,7 @@ def parse_plane_arg(item: str) -> tuple[Path, float]:
     if Path(item).is_file() or ":" not in item:
         return Path(item), 0.0
     path, _, off = item.rpartition(":")
-    try:
-        value = float(off)
-    except ValueError:
-        raise ValueError(f"--plane {item}: the offset {off!r} is not a number of metres") from None
-    if not math.isfinite(value):
-        raise ValueError(f"--plane {item}: the offset {off!r} is not a finite number of metres")
+    value = parse_finite(off, f"--plane {item}: the offset in metres")
     return Path(path), value
 
 

@@ -11,6 +11,7 @@ inner corner (top left in the image). Pixels (u, v) in OpenCV order.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -20,7 +21,7 @@ import numpy as np
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
-from .drop import apply_level, check_drop
+from .drop import apply_level, check_drop, drop_refusal
 from .grid import DEFAULT_DETECTOR, GridSpec
 from .images import (
     Progress,
@@ -55,6 +56,7 @@ def calibrate_files(
     drop_fps: float | None = None,
     drop_readout_s: float = 0.0,
     g_expected_mps2: float = STANDARD_GRAVITY_MPS2,
+    keep_failed_drop: bool = False,
     plane_z_m: float = 0.0,
     plane_z_sigma_m: float = 0.0,
     ensemble_size: int = DEFAULT_ENSEMBLE_SIZE,
@@ -75,6 +77,9 @@ def calibrate_files(
     drop_fps : frame rate of the drop clip, 1/s, overriding its timestamps.
     drop_readout_s : rolling-shutter readout of the drop clip, top to bottom row, s.
     g_expected_mps2 : expected local gravity, m/s².
+    keep_failed_drop : keep a rig that fails its own drop check (it then carries
+        ``drop_check.kept_by_user`` and :attr:`~calibration.rig.Rig.drop_check_warning`); by default such
+        a rig is refused with a ValueError naming the likely cause.
     plane_z_m, plane_z_sigma_m : distance the boards stood behind the flight plane and its standard
         error, m (parallax option).
     ensemble_size : members of the uncertainty ensemble.
@@ -86,7 +91,8 @@ def calibrate_files(
     Raises
     ------
     ValueError / OSError with a one-line message naming the file or option (no grid in any view, too
-    few usable views, unreadable image, plane view without the board, mismatched sizes, bad offset).
+    few usable views, unreadable image, plane view without the board, mismatched sizes, bad offset, a
+    drop check the rig fails unless ``keep_failed_drop``).
     """
     plane_items = [parse_plane_arg(p) for p in planes]
     check_plane_items(plane_items)  # cheap checks before the slow detection
@@ -128,5 +134,9 @@ def calibrate_files(
         check, warns = check_drop(
             rig, drop, fps=drop_fps, g_expected_mps2=g_expected_mps2, readout_s=drop_readout_s
         )
+        if check.failed:
+            if not keep_failed_drop:
+                raise ValueError(drop_refusal(check))
+            check = dataclasses.replace(check, kept_by_user=True)
         rig = apply_level(rig, check, warns, rng=gen)
     return CalibrationRun(rig, lens, rig_figures(rig), len(detections))

@@ -23,6 +23,7 @@ Brown, D. C. (1966). Decentering distortion of lenses. Photogrammetric Engineeri
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import math
@@ -34,6 +35,10 @@ from typing import Any
 
 import cv2
 import numpy as np
+
+from hopscope.shared.parse import json_finite
+
+from .dropcheck import DropCheck
 
 SCHEMA = "hopscope.rig/1"
 
@@ -230,7 +235,10 @@ class Rig:
     ensemble : perturbed camera states (resampled views, corner noise, taped-offset error) that carry the
         calibration's uncertainty; map a point through each to get its calibration spread.
     coverage_m : (x_min, x_max, y_min, y_max) region of the flight plane covered by plane references, m.
-    drop_check : free-fall scale and level check (see :mod:`calibration.drop`), or None.
+    drop_check : free-fall scale and level check (:class:`calibration.dropcheck.DropCheck`, measured by
+        :mod:`calibration.drop`), or None. A mapping in the ``rig.json`` layout is accepted and read.
+        ``drop_check.failed`` marks a rig that did not pass its own check; :attr:`drop_check_warning` is
+        the line later commands print for it.
     provenance : how the rig was made (inputs, views used/rejected, per-view errors, σ of intrinsics ...).
     warnings : warnings raised while making the rig (also printed by the CLI).
 
@@ -248,7 +256,7 @@ class Rig:
     reprojection_rms_px: float
     ensemble: tuple[CameraState, ...] = ()
     coverage_m: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)
-    drop_check: Mapping[str, Any] | None = None
+    drop_check: DropCheck | None = None
     provenance: Mapping[str, Any] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
 
@@ -262,7 +270,6 @@ class Rig:
         nominal = CameraState(
             self.camera_matrix, self.dist_coeffs, self.rotation, self.translation, self.plane_z_m
         )
-        object.__setattr__(self, "_nominal", nominal)
         for name in ("camera_matrix", "dist_coeffs", "rotation", "translation", "plane_z_m"):
             object.__setattr__(self, name, getattr(nominal, name))
         rms = float(self.reprojection_rms_px)
@@ -277,16 +284,38 @@ class Rig:
                 f"rig field coverage_m: expected finite (x_min, x_max, y_min, y_max), got {cov!r}"
             )
         object.__setattr__(self, "coverage_m", cov)
-        if self.drop_check is not None:
-            _check_finite_tree(self.drop_check, "drop_check")
+        if isinstance(self.drop_check, Mapping):
+            object.__setattr__(
+                self, "drop_check", DropCheck.from_dict(self.drop_check, "rig field drop_check")
+            )
+        elif self.drop_check is not None and not isinstance(self.drop_check, DropCheck):
+            raise ValueError("rig field drop_check: expected a DropCheck, a mapping or None")
         object.__setattr__(self, "provenance", dict(self.provenance))
         object.__setattr__(self, "warnings", tuple(str(w) for w in self.warnings))
 
     # --- mapping ---------------------------------------------------------------------------------------
-    @property
+    @functools.cached_property
     def nominal(self) -> CameraState:
-        """The nominal camera state (intrinsics, distortion, pose, plane)."""
-        return self._nominal  # type: ignore[attr-defined,no-any-return]
+        """The nominal camera state (intrinsics, distortion, pose, plane), made once per rig."""
+        return CameraState(
+            self.camera_matrix, self.dist_coeffs, self.rotation, self.translation, self.plane_z_m
+        )
+
+    @property
+    def drop_check_warning(self) -> str | None:
+        """The ``warning:`` text for a rig that failed its own drop check (None when it passed or has none).
+
+        Later commands that use the rig print it and carry it into their outputs."""
+        d = self.drop_check
+        if d is None or not d.failed:
+            return None
+        g = (
+            ""
+            if d.g_measured_mps2 is None
+            else f" (g = {d.g_measured_mps2.value:.4g} m/s², expected {d.g_expected_mps2:.4g})"
+        )
+        cause = f"; likely cause: {d.likely_cause}" if d.likely_cause else ""
+        return f"this rig failed its own drop check{g}{cause}: its scale or timing may be wrong ({d.reason})"
 
     @property
     def camera_center_m(self) -> np.ndarray:
@@ -333,7 +362,7 @@ class Rig:
         )
 
     # --- derived rigs ----------------------------------------------------------------------------------
-    def with_drop_check(self, drop_check: Mapping[str, Any] | None, *, warnings: Sequence[str] = ()) -> Rig:
+    def with_drop_check(self, drop_check: DropCheck | None, *, warnings: Sequence[str] = ()) -> Rig:
         """A copy carrying ``drop_check`` (and extra warnings)."""
         return dataclasses.replace(self, drop_check=drop_check, warnings=self.warnings + tuple(warnings))
 
@@ -363,22 +392,6 @@ class Rig:
     def digest(self) -> str:
         """sha256 hex digest of the canonical JSON of the rig (sorted keys, no whitespace)."""
         return hashlib.sha256(_canonical(rig_to_dict(self)).encode("utf-8")).hexdigest()
-
-
-def _check_finite_tree(value: Any, name: str) -> None:
-    if isinstance(value, Mapping):
-        for k, v in value.items():
-            _check_finite_tree(v, f"{name}.{k}")
-    elif isinstance(value, (list, tuple)):
-        for i, v in enumerate(value):
-            _check_finite_tree(v, f"{name}[{i}]")
-    elif isinstance(value, bool) or value is None or isinstance(value, str):
-        return
-    elif isinstance(value, (int, float, np.integer, np.floating)):
-        if not math.isfinite(float(value)):
-            raise ValueError(f"rig field {name}: not a finite number")
-    else:
-        raise ValueError(f"rig field {name}: unsupported value of type {type(value).__name__}")
 
 
 def _plain(value: Any) -> Any:
@@ -429,7 +442,7 @@ def rig_to_dict(rig: Rig) -> dict[str, Any]:
         "reprojection_rms_px": rig.reprojection_rms_px,
         "ensemble": [m.to_dict() for m in rig.ensemble],
         "coverage_m": {"x_min": x0, "x_max": x1, "y_min": y0, "y_max": y1},
-        "drop_check": _plain(rig.drop_check) if rig.drop_check is not None else None,
+        "drop_check": rig.drop_check.to_dict() if rig.drop_check is not None else None,
         "provenance": _plain(rig.provenance),
         "warnings": list(rig.warnings),
     }
@@ -470,11 +483,9 @@ def rig_from_json(text: str, source: str = "rig.json") -> Rig:
         if not isinstance(cov, dict):
             raise ValueError("rig field coverage_m: expected an object with x_min, x_max, y_min, y_max")
         for key in ("x_min", "x_max", "y_min", "y_max"):
-            if not isinstance(cov.get(key), (int, float)) or isinstance(cov.get(key), bool):
-                raise ValueError(f"rig field coverage_m.{key}: expected a number")
+            json_finite(cov.get(key), f"rig field coverage_m.{key}")
         for name in ("plane_z_m", "reprojection_rms_px"):
-            if not isinstance(data[name], (int, float)) or isinstance(data[name], bool):
-                raise ValueError(f"rig field {name}: expected a number")
+            json_finite(data[name], f"rig field {name}")
         if not isinstance(data["ensemble"], list):
             raise ValueError("rig field ensemble: expected a list")
         members = []
@@ -488,9 +499,7 @@ def rig_from_json(text: str, source: str = "rig.json") -> Rig:
             ]
             if missing:
                 raise ValueError(f"rig field ensemble[{i}]: missing {missing[0]!r}")
-            slope = m.get("plane_slope", 0.0)
-            if not isinstance(slope, (int, float)) or isinstance(slope, bool):
-                raise ValueError(f"rig field ensemble[{i}].plane_slope: expected a number")
+            slope = json_finite(m.get("plane_slope", 0.0), f"rig field ensemble[{i}].plane_slope")
             try:
                 members.append(
                     CameraState(
@@ -522,7 +531,7 @@ def rig_from_json(text: str, source: str = "rig.json") -> Rig:
             reprojection_rms_px=data["reprojection_rms_px"],
             ensemble=tuple(members),
             coverage_m=(cov["x_min"], cov["x_max"], cov["y_min"], cov["y_max"]),
-            drop_check=drop,
+            drop_check=None if drop is None else DropCheck.from_dict(drop, "rig field drop_check"),
             provenance=prov,
             warnings=tuple(warns),
         )

@@ -34,6 +34,7 @@ from .video import (
     VideoInfo,
     check_frame_rate,
     iter_frames,
+    point_times_s,
     probe_video,
     regularise_times,
     timing_warnings,
@@ -390,9 +391,7 @@ def _build_track(
         if ratio > 1.0:
             sig[m] *= ratio
     rows = info.height
-    t = t_frame + (uv[:, 1] / rows) * opt.readout_s
-    if opt.exposure_s is not None:
-        t = t + 0.5 * opt.exposure_s
+    t = point_times_s(t_frame, uv[:, 1], rows, opt.readout_s, opt.exposure_s)
     xy = rig.pixel_to_world(uv)
     good = np.all(np.isfinite(xy), axis=1)
     if not np.all(good):

@@ -38,6 +38,8 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.shared.parse import parse_finite, parse_int
+
 SCHEMA = "hopscope.track/1"
 
 #: Columns every track file has, in order (the calibration offsets follow).
@@ -390,9 +392,9 @@ def track_from_csv(text: str, source: str = "<track>") -> Track:
                 f"{source}: line {lineno}: row: expected {len(columns)} fields, got {len(cells)}"
             )
         for f in _INT_FIELDS:
-            ints[f][j] = _parse_int(cells[col[f]], source, lineno, f)
+            ints[f][j] = parse_int(cells[col[f]], f"{source}: line {lineno}: {f}")
         for f in _FLOAT_FIELDS:
-            floats[f][j] = _parse_float(cells[col[f]], source, lineno, f)
+            floats[f][j] = parse_finite(cells[col[f]], f"{source}: line {lineno}: {f}")
         for f in ("sigma_px", "sigma_m"):
             if floats[f][j] <= 0:
                 raise ValueError(
@@ -404,8 +406,8 @@ def track_from_csv(text: str, source: str = "<track>") -> Track:
             raise ValueError(f"{source}: line {lineno}: flags: unknown token(s) {sorted(bad)}")
         flags.append(fl)
         for i in range(k):
-            cdx[i, j] = _parse_float(cells[cal_x[i + 1]], source, lineno, f"cal_dx_m_{i + 1:02d}")
-            cdy[i, j] = _parse_float(cells[cal_y[i + 1]], source, lineno, f"cal_dy_m_{i + 1:02d}")
+            cdx[i, j] = parse_finite(cells[cal_x[i + 1]], f"{source}: line {lineno}: cal_dx_m_{i + 1:02d}")
+            cdy[i, j] = parse_finite(cells[cal_y[i + 1]], f"{source}: line {lineno}: cal_dy_m_{i + 1:02d}")
     # Times within a shot must increase, in file order.
     last: dict[int, tuple[float, int]] = {}
     for j, (lineno, _) in enumerate(rows):
@@ -428,23 +430,6 @@ def track_from_csv(text: str, source: str = "<track>") -> Track:
     )
 
 
-def _parse_float(cell: str, source: str, lineno: int, name: str) -> float:
-    try:
-        v = float(cell)
-    except ValueError:
-        raise ValueError(f"{source}: line {lineno}: {name}: not a number: {cell.strip()!r}") from None
-    if not math.isfinite(v):
-        raise ValueError(f"{source}: line {lineno}: {name}: non-finite value {cell.strip()!r}")
-    return v
-
-
-def _parse_int(cell: str, source: str, lineno: int, name: str) -> int:
-    try:
-        return int(cell)
-    except ValueError:
-        raise ValueError(f"{source}: line {lineno}: {name}: not an integer: {cell.strip()!r}") from None
-
-
 def _meta_from_header(header: dict[str, str], warnings: list[str], source: str) -> TrackMeta:
     def need(key: str) -> str:
         if key not in header:
@@ -452,28 +437,24 @@ def _meta_from_header(header: dict[str, str], warnings: list[str], source: str) 
         return header[key]
 
     def num(key: str) -> float:
-        v = need(key)
-        try:
-            x = float(v)
-        except ValueError:
-            raise ValueError(f"{source}: header: {key}: not a number: {v!r}") from None
-        if not math.isfinite(x):
-            raise ValueError(f"{source}: header: {key}: non-finite value {v!r}")
-        return x
+        return parse_finite(need(key), f"{source}: header: {key}")
 
     size = need("image_size")
     m = re.fullmatch(r"(\d+)x(\d+)", size)
     if not m:
         raise ValueError(f"{source}: header: image_size: expected WIDTHxHEIGHT, got {size!r}")
     exp = header.get("exposure_s", "")
-    try:
+    video, timing, digest = need("video"), need("timing_source"), need("rig_digest")
+    rate, readout = num("frame_rate_hz"), num("readout_s")
+    exposure = None if exp == "" else num("exposure_s")
+    try:  # the values are numbers now; what TrackMeta still rejects is out of range
         return TrackMeta(
-            video=need("video"),
-            timing_source=need("timing_source"),
-            frame_rate_hz=num("frame_rate_hz"),
-            readout_s=num("readout_s"),
-            exposure_s=None if exp == "" else num("exposure_s"),
-            rig_digest=need("rig_digest"),
+            video=video,
+            timing_source=timing,
+            frame_rate_hz=rate,
+            readout_s=readout,
+            exposure_s=exposure,
+            rig_digest=digest,
             image_size=(int(m.group(1)), int(m.group(2))),
             warnings=tuple(warnings),
             polarity=header.get("polarity", ""),

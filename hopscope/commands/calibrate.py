@@ -92,6 +92,11 @@ def register(parser: argparse.ArgumentParser) -> None:
         help=f"expected local gravity, m/s² (default {STANDARD_GRAVITY_MPS2})",
     )
     parser.add_argument(
+        "--keep-failed-drop",
+        action="store_true",
+        help="write the rig even when it fails its own drop check (it is marked, and later commands warn)",
+    )
+    parser.add_argument(
         "--parallax-mm",
         type=finite_float,
         default=0.0,
@@ -139,6 +144,7 @@ def run(args: argparse.Namespace) -> int:
         drop_fps=args.drop_fps,
         drop_readout_s=ms_to_s(args.drop_readout_ms),
         g_expected_mps2=args.g_expected,
+        keep_failed_drop=args.keep_failed_drop,
         plane_z_m=mm_to_m(args.parallax_mm),
         plane_z_sigma_m=mm_to_m(args.parallax_sigma_mm),
         ensemble_size=args.ensemble,
@@ -193,22 +199,21 @@ def summary_rows(result: CalibrationRun) -> list[tuple[str, str]]:
         rows.append(("flight plane", f"{m_to_mm(rig.plane_z_m):.1f} mm in front of the board (parallax)"))
     d = rig.drop_check
     if d is not None:
-        if d.get("verdict") == "failed":
-            rows.append(("drop check", f"failed: {d.get('reason')}"))
+        if d.g_measured_mps2 is None or d.tilt_deg is None:
+            rows.append(("drop check", f"failed: {d.reason}"))
         else:
-            g = d["g_measured_mps2"]
-            t = d["tilt_deg"]
+            g, t = d.g_measured_mps2, d.tilt_deg
+            kept = f", likely cause: {d.likely_cause} (kept by --keep-failed-drop)" if d.failed else ""
             rows.append(
                 (
                     "drop check",
-                    f"g = {g['value']:.4f} ± {g['stderr']:.4f} m/s² (expected {d['g_expected_mps2']:.4f}): "
-                    f"{d['verdict']}",
+                    f"g = {g.value:.4f} ± {g.stderr:.4f} m/s² (expected {d.g_expected_mps2:.4f}): {d.verdict}{kept}",
                 )
             )
             rows.append(
                 (
                     "level",
-                    f"tilt {t['value']:+.3f} ± {t['stderr']:.3f}°, {'levelled' if d['levelled'] else 'board taken as level'}",
+                    f"tilt {t.value:+.3f} ± {t.stderr:.3f}°, {'levelled' if d.levelled else 'board taken as level'}",
                 )
             )
     rows.append(("rig digest", rig.digest[:16]))

@@ -320,14 +320,9 @@ def _calibration_rows(inputs: ReportInputs) -> list[tuple[str, str]]:
             x0, x1, y0, y1 = rig.coverage_m
             rows.append(("plane covered by references", f"x {x0:.2f}..{x1:.2f} m, y {y0:.2f}..{y1:.2f} m"))
         if rig.drop_check:
-            g = rig.drop_check.get("g_measured_mps2") or {}
-            rows.append(
-                (
-                    "drop check",
-                    f"g = {g.get('value', float('nan')):.4g} ± {g.get('stderr', float('nan')):.2g} m/s² "
-                    f"({rig.drop_check.get('verdict', '')})",
-                )
-            )
+            g = rig.drop_check.g_measured_mps2
+            gv, gs = (float("nan"), float("nan")) if g is None else (g.value, g.stderr)
+            rows.append(("drop check", f"g = {gv:.4g} ± {gs:.2g} m/s² ({rig.drop_check.verdict})"))
         rows.append(("rig digest", rig.digest[:16]))
     for path, tr in inputs.tracks:
         m = tr.meta

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 
@@ -10,6 +11,7 @@ import pytest
 from calib_synth import fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
 from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
+from hopscope.calibration.dropcheck import Measured
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 #: The issue's acceptance: the drop check recovers g within 0.5 % on a rendered drop.
@@ -77,19 +79,22 @@ def test_ball_is_found_at_its_true_positions(rendered_drop):
 def test_rendered_drop_recovers_g(rendered_drop):
     rig, path, _ = rendered_drop
     check, warns = check_drop(rig, path)
-    assert check["verdict"] == "consistent", warns
-    g = check["g_measured_mps2"]
-    assert abs(g["value"] - G) / G < G_RTOL_RENDERED
-    assert 0 < g["stderr"] < G_RTOL_RENDERED * G
+    assert check.verdict == "consistent", warns
+    g = check.g_measured_mps2
+    assert abs(g.value - G) / G < G_RTOL_RENDERED
+    assert 0 < g.stderr < G_RTOL_RENDERED * G
     assert warns == ()
+    assert check.clean_parabola and not check.failed and check.likely_cause == ""
 
 
 def test_wrong_frame_rate_is_flagged(rendered_drop):
     rig, path, _ = rendered_drop
     check, warns = check_drop(rig, path, fps=FPS * 1.1)
-    assert check["verdict"] == "inconsistent"
-    assert check["timing"] == "--fps override"
-    assert check["g_measured_mps2"]["value"] == pytest.approx(G * 1.1**2, rel=0.01)
+    assert check.verdict == "inconsistent" and check.failed
+    assert check.timing == "--fps override"
+    assert check.g_measured_mps2.value == pytest.approx(G * 1.1**2, rel=0.01)
+    # a clean parabola at a rate that a common camera rate (500 fps) explains: the frame rate is blamed
+    assert check.clean_parabola and check.likely_cause == "frame rate"
     assert len(warns) == 1 and "frame rate" in warns[0] and "scale" in warns[0]
     assert re.search(r"true frame rate of (\d+(\.\d+)?) fps instead of 550", warns[0])
     assert float(re.search(r"true frame rate of (\d+(\.\d+)?) fps", warns[0]).group(1)) == pytest.approx(
@@ -102,40 +107,38 @@ def test_tilted_board_is_levelled(tmp_path):
     tilt = math.radians(2.0)
     rig, path, _ = _drop_clip(tmp_path, np.random.default_rng(1), tilt_rad=tilt)
     check, warns = check_drop(rig, path)
-    assert check["tilt_deg"]["value"] == pytest.approx(2.0, abs=0.1)
-    import dataclasses
-
+    assert check.tilt_deg.value == pytest.approx(2.0, abs=0.1)
     from hopscope.calibration.rig import CameraState
 
     member = CameraState(rig.camera_matrix, rig.dist_coeffs, rig.rotation, rig.translation, rig.plane_z_m)
     with_members = dataclasses.replace(rig, ensemble=(member,) * 64)
     levelled = apply_level(with_members, check, warns, rng=3)
-    assert levelled.drop_check["levelled"] is True
+    assert levelled.drop_check.levelled is True
     # each member carries its own draw of the tilt: a turn δ about the origin moves a point at x by δ·x in
     # y, so the members' spread in y there is σ_tilt·x
     x_far = 3.0
     uv = levelled.world_to_pixel(np.array([[x_far, 0.3]]))
     dy = levelled.ensemble_pixel_to_world(uv)[:, 0, 1] - levelled.pixel_to_world(uv)[0, 1]
-    assert np.std(dy) == pytest.approx(math.radians(check["tilt_deg"]["stderr"]) * x_far, rel=0.35)
+    assert np.std(dy) == pytest.approx(math.radians(check.tilt_deg.stderr) * x_far, rel=0.35)
     again, _ = check_drop(levelled, path)
-    assert abs(again["tilt_deg"]["value"]) < 3 * again["tilt_deg"]["stderr"] + 0.02
+    assert abs(again.tilt_deg.value) < 3 * again.tilt_deg.stderr + 0.02
     # a level board stays as it is
-    flat = apply_level(rig, {**check, "tilt_deg": {"value": 0.001, "stderr": 0.01}})
-    assert flat.drop_check["levelled"] is False
+    flat = apply_level(rig, dataclasses.replace(check, tilt_deg=Measured(0.001, 0.01)))
+    assert flat.drop_check.levelled is False
     np.testing.assert_array_equal(flat.rotation, rig.rotation)
 
 
 def test_clip_without_ball_fails_with_reason(tmp_path):
     rig, path, _ = _drop_clip(tmp_path, np.random.default_rng(2), ball=False, n=20, lead=0)
     check, warns = check_drop(rig, path)
-    assert check["verdict"] == "failed" and "found in only" in check["reason"]
+    assert check.verdict == "failed" and "found in only" in check.reason
     assert len(warns) == 1 and "drop check failed" in warns[0]
 
 
 def test_unreadable_clip_is_an_os_error(tmp_path):
     bad = tmp_path / "drop.mp4"
     bad.write_bytes(b"not a video at all")
-    with pytest.raises(OSError, match=r"drop\.mp4: cannot read the drop clip"):
+    with pytest.raises(ValueError, match=r"drop\.mp4: not a readable video"):
         find_ball(bad)
 
 

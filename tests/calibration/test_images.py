@@ -74,9 +74,9 @@ def test_parse_plane_arg(tmp_path):
     assert parse_plane_arg("p.png") == (parse_plane_arg("p.png")[0], 0.0)
     path, off = parse_plane_arg("far/p.png:12.5")
     assert str(path) == "far/p.png" and off == 12.5
-    with pytest.raises(ValueError, match=r"--plane p.png:abc: the offset 'abc' is not a number"):
+    with pytest.raises(ValueError, match=r"--plane p.png:abc: the offset in metres: not a number: 'abc'"):
         parse_plane_arg("p.png:abc")
-    with pytest.raises(ValueError, match="not a finite number"):
+    with pytest.raises(ValueError, match="the offset in metres: non-finite value"):
         parse_plane_arg("p.png:nan")
     odd = tmp_path / "a:b.png"  # an existing file whose name holds a colon is taken whole
     odd.write_bytes(b"x")

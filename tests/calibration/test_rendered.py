@@ -129,11 +129,11 @@ def test_rendered_drop_recovers_g_and_wrong_rate_is_flagged(close_scene, drop_cl
     _, _, run = close_scene
     g_true = drop_clip.truth["drop"]["g_mps2"]
     check, warns = check_drop(run.rig, drop_clip.drop_clip_path)
-    assert check["verdict"] == "consistent", check
-    assert abs(check["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
-    assert apply_level(run.rig, check, warns).drop_check["levelled"] is False  # the board was level
+    assert check.verdict == "consistent", check
+    assert abs(check.g_measured_mps2.value - g_true) / g_true < G_RTOL
+    assert apply_level(run.rig, check, warns).drop_check.levelled is False  # the board was level
     wrong, warns = check_drop(run.rig, drop_clip.drop_clip_path, fps=600.0)
-    assert wrong["verdict"] == "inconsistent"
+    assert wrong.verdict == "inconsistent"
     assert any("frame rate" in w for w in warns)
 
 
@@ -165,9 +165,9 @@ def test_long_lane_with_three_placements_and_drop(tmp_path_factory):
     # the drop (with a moving distractor in the clip): g within 0.5 %, a level board left level
     d = rig.drop_check
     g_true = scene.truth["drop"]["g_mps2"]
-    assert d["verdict"] == "consistent", d
-    assert abs(d["g_measured_mps2"]["value"] - g_true) / g_true < G_RTOL
-    assert d["levelled"] is False
+    assert d.verdict == "consistent", d
+    assert abs(d.g_measured_mps2.value - g_true) / g_true < G_RTOL
+    assert d.levelled is False
     np.testing.assert_allclose(rig.rotation, run.rig.rotation)
 
 

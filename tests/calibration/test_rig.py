@@ -10,6 +10,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from hopscope.calibration.dropcheck import DropCheck, Measured
 from hopscope.calibration.rig import SCHEMA, CameraState, Rig, read_rig, rig_from_json, rig_to_json
 
 ROUND_TRIP_TOL_PX = 1e-6
@@ -97,7 +98,17 @@ def test_json_round_trip_keeps_everything(close_rig, tmp_path):
         0.05,
         ensemble=(member,),
         coverage_m=(0.0, 2.4, -0.1, 0.7),
-        drop_check={"g_measured_mps2": {"value": 9.8, "stderr": 0.01}, "verdict": "ok"},
+        drop_check=DropCheck(
+            clip="drop.mp4",
+            timing="container timestamps",
+            fps=500.0,
+            frames=150,
+            g_expected_mps2=9.80665,
+            verdict="inconsistent",
+            g_measured_mps2=Measured(9.5, 0.01),
+            likely_cause="scale",
+            kept_by_user=True,
+        ),
         provenance={"views_used": 12},
         warnings=("poor coverage",),
     )
@@ -110,6 +121,29 @@ def test_json_round_trip_keeps_everything(close_rig, tmp_path):
     np.testing.assert_allclose(back.ensemble_pixel_to_world(uv), rig.ensemble_pixel_to_world(uv))
     assert back.ensemble_pixel_to_world(uv).shape == (1, 1, 2)
     assert back.drop_check == rig.drop_check and back.warnings == rig.warnings
+    assert back.drop_check.failed and "likely cause: scale" in back.drop_check_warning
+
+
+def test_rig_file_without_the_newer_drop_check_keys_reads(close_rig):
+    # a drop check as files written before the release search carry it (no release_frame, likely_cause,
+    # clean_parabola, kept_by_user)
+    old = {
+        "clip": "d.mkv", "timing": "container timestamps", "fps": 500.0, "frames": 160,
+        "g_expected_mps2": 9.80665, "levelled": False, "verdict": "consistent",
+        "g_measured_mps2": {"value": 9.81, "stderr": 0.02}, "g_ratio": 1.0003,
+        "tilt_deg": {"value": 0.01, "stderr": 0.05},
+        "tilt_stderr_parts_deg": {"fit": 0.04, "centroid_systematic": 0.03},
+        "fall_px": 300.0, "drag_per_m": None, "points": 150, "duration_s": 0.3, "residual_rms_m": 1e-4,
+    }  # fmt: skip
+    doc = json.loads(rig_to_json(close_rig))
+    doc["drop_check"] = old
+    back = rig_from_json(json.dumps(doc), "old.json")
+    assert back.drop_check.verdict == "consistent" and not back.drop_check.failed
+    assert back.drop_check.kept_by_user is False and back.drop_check_warning is None
+    assert back.drop_check.to_dict()["tilt_stderr_parts_deg"] == old["tilt_stderr_parts_deg"]
+    doc["drop_check"] = {**old, "verdict": "fine"}
+    with pytest.raises(ValueError, match=r"old\.json: .*drop_check\.verdict: expected one of"):
+        rig_from_json(json.dumps(doc), "old.json")
 
 
 def test_digest_changes_with_content(close_rig):

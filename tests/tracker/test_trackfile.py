@@ -198,6 +198,13 @@ def test_rejects_bad_header_value():
         track_from_csv("\n".join(lines), "t.csv")
 
 
+def test_header_value_that_is_no_number_is_named_once():
+    lines = [ln.replace("# readout_s: ", "# readout_s: fast") for ln in _lines()]
+    with pytest.raises(ValueError, match=r"^t\.csv: header: readout_s: not a number: 'fast") as err:
+        track_from_csv("\n".join(lines), "t.csv")
+    assert str(err.value).count("t.csv") == 1
+
+
 def test_read_track_missing_file(tmp_path):
     with pytest.raises(OSError):
         read_track(tmp_path / "nope.csv")
