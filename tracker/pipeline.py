@@ -23,11 +23,21 @@ from typing import Any
 import numpy as np
 
 from hopscope.calibration.rig import Rig
+from hopscope.shared.constants import DEFAULT_BB_DIAMETER_M, STANDARD_GRAVITY_MPS2
 
-from .associate import LinkOptions, LinkResult, link, scatter_ratio
+from .associate import SIGMA_FLOOR_PX, LinkOptions, link, scatter_ratio
 from .background import default_scale, windowed
 from .detect import THRESHOLD_SIGMA, find_candidates
 from .localise import Detection, localise
+from .select import (
+    SPEED_BAND_MPS,
+    BBSearch,
+    TrackJudgement,
+    describe_rejections,
+    judge_track,
+    lift_accel_max_mps2,
+    likely_time_scale,
+)
 from .trackfile import Track, TrackMeta
 from .video import (
     VideoFrame,
@@ -39,10 +49,6 @@ from .video import (
     regularise_times,
     timing_warnings,
 )
-
-#: Plausible BB speeds, m/s: outside this the timing (playback time) or the scale is probably wrong.
-#: Airsoft replicas shoot at roughly 60–170 m/s; 5 m/s is a slow drop.  # common practice, no published source
-SPEED_RANGE_MPS = (5.0, 250.0)
 
 #: Polarity options and their detection signs.
 POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
@@ -82,6 +88,8 @@ class TrackOptions:
     scale : detection block size, px (None: about 480 px wide).
     threshold_sigma : detection threshold in units of the local noise σ.
     link : association tuning.
+    bb_diameter_m : the BB's diameter, m (its expected image size at the flight plane).
+    speed_band_mps : (lowest, highest) speed of a BB, m/s; slower or faster tracks are not the BB.
     """
 
     fps_override: float | None = None
@@ -92,8 +100,16 @@ class TrackOptions:
     scale: int | None = None
     threshold_sigma: float = THRESHOLD_SIGMA
     link: LinkOptions = field(default_factory=LinkOptions)
+    bb_diameter_m: float = DEFAULT_BB_DIAMETER_M
+    speed_band_mps: tuple[float, float] = SPEED_BAND_MPS
+
+    @property
+    def search(self) -> BBSearch:
+        """What the BB looks like and how it may move (:class:`tracker.select.BBSearch`)."""
+        return BBSearch(diameter_m=self.bb_diameter_m, speed_band_mps=self.speed_band_mps)
 
     def __post_init__(self) -> None:
+        BBSearch(diameter_m=self.bb_diameter_m, speed_band_mps=self.speed_band_mps)  # validates them
         if self.fps_override is not None:
             check_frame_rate(self.fps_override, "--fps")
         if not (math.isfinite(self.readout_s) and self.readout_s >= 0):
@@ -125,6 +141,8 @@ class TrackSummary:
     polarity : ``"bright"`` or ``"dark"`` (chosen or given).
     shot_speeds_mps : per shot, speed at its first point (:func:`start_speed`), m/s.
     rejected_tracks : reasons for the tracks that were not accepted (a few).
+    rejected_track_count : candidate tracks turned down (too short or not smooth, or smooth but not a BB:
+        size, speed band, fall, drag, or of the other polarity).
     """
 
     frames_read: int
@@ -138,6 +156,7 @@ class TrackSummary:
     polarity: str
     shot_speeds_mps: tuple[float, ...]
     rejected_tracks: tuple[str, ...]
+    rejected_track_count: int = 0
 
 
 @dataclass(frozen=True)
@@ -272,27 +291,28 @@ def track_video(
                 f"exposure {opt.exposure_s * 1e3:g} ms is longer than the frame period {period * 1e3:.4g} ms"
             )
 
-    ok = list(range(len(dets)))
-    chosen, res, pol_name = _choose_polarity(dets, ok, want, opt, info, rig)
+    chosen = _select_tracks(dets, want, opt, info, rig, rate)
+    warns.extend(chosen.warnings)
+    pol_name = chosen.polarity
     in_shot = [-1] * len(dets)
     points: list[int] = []
     shot_of: list[int] = []
-    for s, tr in enumerate(res.tracks):
-        for j in tr:
-            gi = chosen[int(j)]
-            in_shot[gi] = s
-            points.append(gi)
+    for s, tr in enumerate(chosen.tracks):
+        for gi in tr:
+            in_shot[int(gi)] = s
+            points.append(int(gi))
             shot_of.append(s)
-    rejected_reasons = tuple(r for _, r in res.rejected[:5])
-    fitted = len(ok)
+    rejected_reasons = chosen.rejected
+    fitted = len(dets)
     base_summary: dict[str, Any] = dict(
         frames_read=n_frames,
         frame_rate_hz=rate,
         candidates=n_cand,
         fitted=fitted,
-        outliers=int(res.outliers.size),
+        outliers=chosen.outliers,
         polarity=pol_name,
         rejected_tracks=rejected_reasons,
+        rejected_track_count=chosen.n_rejected_tracks,
     )
     det_pairs = tuple((d, sgn) for d, sgn, _, _ in dets)
     if not points:
@@ -325,42 +345,113 @@ def track_video(
     return TrackResult(track, "", summary, tuple(warns), info, det_pairs, tuple(in_shot), still)
 
 
-def _choose_polarity(
+@dataclass(frozen=True)
+class _Selection:
+    """Tracks chosen as the BB's shots (indices into the detections) and what was turned down."""
+
+    tracks: tuple[np.ndarray, ...]
+    polarity: str
+    rejected: tuple[str, ...]
+    n_rejected_tracks: int
+    outliers: int
+    warnings: tuple[str, ...]
+
+
+def _select_tracks(
     dets: list[tuple[Detection, int, float, bool]],
-    ok: list[int],
     want: int,
     opt: TrackOptions,
     info: VideoInfo,
     rig: Rig,
-) -> tuple[list[int], LinkResult, str]:
-    """Link each polarity's detections; keep the polarity whose shots hold more points (auto)."""
+    timestamp_rate_hz: float,
+) -> _Selection:
+    """Link each polarity's detections, judge every smooth track as a BB (:mod:`tracker.select`), keep the BB's.
+
+    Every track the linker accepts, of either polarity, is compared with a BB: image size at the flight
+    plane, speed band, fall under gravity within a plausible lift, drag. Of the tracks that pass, those of
+    the polarity with more points are the shots. When none passes but some fail only in the way playback
+    timing makes them fail (too slow, falling too little for their speed), those are kept with a warning
+    naming the likely capture rate.
+    """
     diag = math.hypot(info.width, info.height)
     lopt = opt.link
     if lopt.max_first_step_px is None:  # not set: half the frame diagonal
         lopt = LinkOptions(**{**lopt.__dict__, "max_first_step_px": 0.5 * diag})
-    best: tuple[list[int], LinkResult, str] | None = None
-    for sign, name in ((1, "bright"), (-1, "dark")):
+    search = opt.search
+    judged: list[tuple[int, np.ndarray, TrackJudgement]] = []
+    rejected: list[str] = []
+    outliers = 0
+    for sign in (1, -1):
         if want and sign != want:
             continue
-        sel = [i for i in ok if dets[i][1] == sign]
-        if sel:
-            d = [dets[i][0] for i in sel]
-            uv = np.array([[x.u_px, x.v_px] for x in d])
-            res = link(
-                np.array([x.frame for x in d]),
-                np.array([dets[i][2] for i in sel]),
-                np.array([x.u_px for x in d]),
-                np.array([x.v_px for x in d]),
-                np.array([x.sigma_px for x in d]),
-                lopt,
-                world_xy=rig.pixel_to_world(uv),
+        sel = np.array([i for i, d in enumerate(dets) if d[1] == sign], dtype=np.int64)
+        if not sel.size:
+            continue
+        d = [dets[i][0] for i in sel]
+        uv = np.array([[x.u_px, x.v_px] for x in d])
+        xy = rig.pixel_to_world(uv)
+        t = np.array([dets[i][2] for i in sel])
+        sig = np.array([x.sigma_px for x in d])
+        res = link(np.array([x.frame for x in d]), t, uv[:, 0], uv[:, 1], sig, lopt, world_xy=xy)
+        rejected.extend(r for _, r in res.rejected)
+        outliers += int(res.outliers.size)
+        for tr in res.tracks:
+            tr = np.asarray(tr, dtype=np.int64)
+            ok = np.all(np.isfinite(xy[tr]), axis=1)
+            if ok.sum() < 3:
+                rejected.append("maps to no point of the flight plane")
+                continue
+            mpp = float(np.median(rig.metres_per_pixel(uv[tr][ok])))
+            j = judge_track(
+                t[tr][ok],
+                xy[tr][ok, 0],
+                xy[tr][ok, 1],
+                np.maximum(sig[tr][ok], SIGMA_FLOOR_PX) * mpp,
+                np.array([d[i].width_px for i in tr[ok]]),
+                mpp,
+                search,
             )
-        else:
-            res = LinkResult(tracks=())
-        if best is None or res.n_points > best[1].n_points:
-            best = (sel, res, name)
-    assert best is not None  # at least one polarity is searched
-    return best
+            judged.append((sign, sel[tr], j))
+    names = {1: "bright", -1: "dark"}
+    bb = [x for x in judged if x[2].is_bb]
+    warns: list[str] = []
+    pool = bb
+    if not bb:
+        pool = [x for x in judged if x[2].timing_suspect]
+    if not pool:
+        rejected.extend(x[2].reason for x in judged)
+        pol = names[want] if want else "bright"
+        return _Selection((), pol, describe_rejections(rejected), len(rejected), outliers, ())
+    points = {s: sum(x[1].size for x in pool if x[0] == s) for s in (1, -1)}
+    sign = max((1, -1), key=lambda s: points[s])
+    keep = [x for x in pool if x[0] == sign]
+    kept = {id(x) for x in keep}
+    for x in judged:
+        if id(x) in kept:
+            continue
+        rejected.append(
+            x[2].reason or f"a BB-like track of {names[x[0]]} polarity beside more {names[sign]} points"
+        )
+    if not bb:
+        for x in keep:
+            j = x[2]
+            k = likely_time_scale(j.speed_mps, j.accel_y_mps2, search, timestamp_rate_hz=timestamp_rate_hz)
+            rate = f"about {k * timestamp_rate_hz:.6g} fps" if k else "unknown"
+            warns.append(
+                f"a track moves like a BB's image but at {j.speed_mps:.3g} m/s and falls at "
+                f"{-j.accel_y_mps2:.3g} m/s² where a BB falls at g = {STANDARD_GRAVITY_MPS2:.4g} m/s² less at most "
+                f"{lift_accel_max_mps2(j.speed_mps, search.diameter_m):.3g} m/s² of lift: the times look "
+                f"scaled (playback timing of a slow-motion clip); likely capture rate {rate}: rerun with --fps"
+            )
+    keep.sort(key=lambda x: float(dets[int(x[1][0])][2]))
+    return _Selection(
+        tuple(x[1] for x in keep),
+        names[sign],
+        describe_rejections(rejected),
+        len(rejected),
+        outliers,
+        tuple(dict.fromkeys(warns)),
+    )
 
 
 def _build_track(
@@ -447,7 +538,7 @@ def _build_track(
         if m.sum() >= 2:
             sp = start_speed(ts[m], xs[m], ys[m])
             speeds.append(sp)
-            lo, hi = SPEED_RANGE_MPS
+            lo, hi = opt.speed_band_mps
             if not lo <= sp <= hi:
                 hint = (
                     "the timestamps may be playback time (slow motion: give the capture rate with --fps)"

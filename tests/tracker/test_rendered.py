@@ -30,6 +30,9 @@ SPEED_REL_TOL = 0.02
 #: A shot point further than this from the BB belongs to something else.
 BB_ONLY_TOL_PX = 0.5
 SEEDS = (1, 2, 3)
+#: A BB point with a distractor in the clip against the same point without it, in units of its σ (where
+#: the blob passes near the BB's fit window the window's content changes a little).
+SAME_POINT_SIGMAS = 3.0
 
 
 def _rig(truth) -> Rig:
@@ -180,3 +183,50 @@ def test_builtin_scenes(tmp_path_factory, name):
     np.testing.assert_allclose(rows[:, 4], 0.0, atol=TIME_TOL_S)
     v_true = truth["flight"]["first_in_view"]["speed_mps"]
     assert res.summary.shot_speeds_mps[0] == pytest.approx(v_true, rel=SPEED_REL_TOL)
+
+
+def _crossing_distractor(truth, *, dark: bool) -> ClutterSpec:
+    """A smooth blob twice the BB's image size crossing its path at a tenth of its image speed.
+
+    It moves down the image and crosses the BB's path 10 frames after the BB passed that point (the BB
+    and the blob never overlap), drifting steadily (no wobble: the wiggle test cannot refuse it).
+    """
+    vis = [f for f in truth["flight"]["frames"] if f["visible"]]
+    mid = vis[len(vis) // 2]
+    a, b = vis[len(vis) // 2 - 1], vis[len(vis) // 2 + 1]
+    bb_speed = math.hypot(b["u_px"] - a["u_px"], b["v_px"] - a["v_px"]) / (b["t_s"] - a["t_s"])
+    v_blob = 0.1 * bb_speed
+    t_cross = mid["t_s"] + 10 / truth["camera"]["fps"]
+    return ClutterSpec(
+        distractor=True,
+        start_px=(mid["u_px"], mid["v_px"] - v_blob * t_cross),
+        velocity_pxps=(0.0, v_blob),
+        wobble_px=0.0,
+        radius_px=2.0 * mid["radius_px"],
+        darkness=0.7 if dark else 0.0,
+        glow_dn=0.0 if dark else 90.0,
+    )
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("dark", [True, False], ids=["dark", "bright"])
+def test_slow_big_distractor_crossing_is_not_the_bb(tmp_path_factory, dark):
+    # lane-close with a blob twice the BB's size crossing its path at a tenth of its speed: the track holds
+    # the BB's points, the same ones as without the blob (so the fit is the one without it)
+    from hopscope.scenes import builtin_scene
+
+    spec = builtin_scene("lane-close")
+    plain, truth = _track(spec, 1, tmp_path_factory)
+    clutter = _crossing_distractor(truth, dark=dark)
+    res, truth2 = _track(dataclasses.replace(spec, clutter=clutter), 1, tmp_path_factory)
+    rows, n_vis = _compare(res, truth2)
+    assert res.summary.polarity == "bright"
+    assert res.track.shot_ids == (0,)
+    assert np.max(np.hypot(rows[:, 0], rows[:, 1])) < BB_ONLY_TOL_PX
+    assert res.track.n_points >= n_vis - 1
+    np.testing.assert_array_equal(res.track.frame, plain.track.frame)
+    shift = np.hypot(res.track.u_px - plain.track.u_px, res.track.v_px - plain.track.v_px)
+    assert np.all(shift <= SAME_POINT_SIGMAS * plain.track.sigma_px)
+    assert float(np.sqrt(np.mean(rows[:, :2] ** 2))) <= POSITION_RMS_TOL_PX
+    assert res.summary.rejected_track_count >= 1
+    assert any("outside the BB speed band" in r for r in res.summary.rejected_tracks)
