@@ -67,6 +67,9 @@ DEFAULT_TREND_DEGREE = 1
 PRIOR_ODDS_MIN = 100.0
 #: ... and lies within this many combined standard deviations of the prior.
 PRIOR_MATCH_Z = 3.0
+#: A window's alias follows the previous window's rate only when the nearest candidate is nearer than this
+#: fraction of the distance to the next one.
+CONTINUITY_FRACTION = 0.5
 #: Two clips agree on a rate when their candidates differ by at most this many combined σ.
 CLIP_MATCH_Z = 3.0
 #: Relative uncertainty allowed for a published lift relation applied to a BB (a 6 mm plastic sphere is not
@@ -573,7 +576,6 @@ def measure_spin(
         prior=prior,
         trend_degree=trend_degree,
         oversample=oversample,
-        branch=None,
     )
 
 
@@ -588,7 +590,6 @@ def _measure(
     prior: SpinPrior | None,
     trend_degree: int,
     oversample: int,
-    branch: tuple[int, int] | None,
 ) -> SpinEstimate:
     t, y = _series(t_s, brightness)
     mk = marking_named(marking)
@@ -665,7 +666,6 @@ def _measure(
     rates = tuple(float(2.0 * math.pi * f / c) for f in cands)
     base.update(candidates_radps=rates, candidate_attenuation=tuple(float(a) for a in att))
     base["aliased"] = len(rates) > 1
-    sigma_w = 2.0 * math.pi * sf / c
     if not rates:
         return _no_spin(
             base,
@@ -673,38 +673,35 @@ def _measure(
             f"{lo_w:.4g}..{hi_w:.4g} rad/s",
         )
 
-    def chosen(k: int, method: str, prior_source: str | None) -> SpinEstimate:
-        a = float(att[k])
-        return SpinEstimate(
-            **{
-                **base,
-                "rate_radps": rates[k],
-                "stderr_radps": sigma_w,
-                "method": method,
-                "modulation": mod_obs / a if a > 0 else None,
-                "prior": prior_source,
-                "reason": None,
-            }
-        )
-
+    est = _no_spin(base, "")
     if len(rates) == 1:
         how = "lomb-scargle" if f_hi < nyquist else "lomb-scargle, the only alias in the plausible band"
-        return chosen(0, how, None)
-    if branch is not None:  # a window of a series whose alias was fixed on the whole series
-        k_b, sign = branch
-        f_true = k_b * fs + sign * f_obs
-        j = int(np.argmin(np.abs(cands - f_true)))
-        return chosen(j, "lomb-scargle, alias of the whole series", None)
+        return _with_choice(est, 0, how, None)
     if prior is None:
         return _no_spin(
             base,
             f"aliased: flicker at {f_obs:.4g} Hz sampled at {fs:.6g} Hz fits {len(rates)} spin rates in the "
             "plausible band; give a prior (fitted lift) or a second clip at another frame rate",
         )
-    k, why = _pick_with_prior(np.array(rates), sigma_w, prior)
+    k, why = _pick_with_prior(np.array(rates), _candidate_sigma_radps(est), prior)
     if k is None:
         return _no_spin(base, f"aliased: {why}", prior=prior.source)
-    return chosen(k, f"lomb-scargle, alias chosen by prior ({prior.source})", prior.source)
+    return _with_choice(est, k, f"lomb-scargle, alias chosen by prior ({prior.source})", prior.source)
+
+
+def _with_choice(est: SpinEstimate, k: int, method: str, prior_source: str | None) -> SpinEstimate:
+    """``est`` (with candidates) reporting its candidate ``k`` as the rate."""
+    att = est.candidate_attenuation[k]
+    obs = est.observed_modulation
+    return dataclasses.replace(
+        est,
+        rate_radps=est.candidates_radps[k],
+        stderr_radps=_candidate_sigma_radps(est),
+        method=method,
+        modulation=obs / att if obs is not None and att > 0 else None,
+        prior=prior_source,
+        reason=None,
+    )
 
 
 def _pick_with_prior(rates: np.ndarray, sigma: float, prior: SpinPrior) -> tuple[int | None, str]:
@@ -831,19 +828,8 @@ def resolve_with_second_clip(first: SpinEstimate, second: SpinEstimate) -> SpinE
             f"{second.sample_rate_hz:.6g} Hz",
         )
     i, _ = matches[0]
-    att = first.candidate_attenuation[i]
-    obs = first.observed_modulation
-    return SpinEstimate(
-        **{
-            **base,
-            "rate_radps": float(a[i]),
-            "stderr_radps": sa,
-            "method": f"lomb-scargle, alias chosen by a second clip at {second.sample_rate_hz:.6g} Hz",
-            "prior": f"second clip at {second.sample_rate_hz:.6g} Hz",
-            "modulation": obs / att if obs is not None and att > 0 else None,
-            "reason": None,
-        }
-    )
+    how = f"second clip at {second.sample_rate_hz:.6g} Hz"
+    return _with_choice(first, i, f"lomb-scargle, alias chosen by a {how}", how)
 
 
 # ---------------------------------------------------------------------------------------------- along the flight
@@ -865,9 +851,12 @@ def spin_vs_time(
 ) -> SpinSeries:
     """Spin along the flight from sliding windows of the brightness series.
 
-    The whole series is measured first (:func:`measure_spin`, with ``prior`` when aliased); the alias it
-    settles on (k·f_s ± f_obs) is then used for every window, so a window never picks an alias of its own.
-    When the whole series reports no rate, the windows carry their candidates and no rate either.
+    Each window is measured on its own. When the flicker may be aliased, the alias is anchored once — on
+    the whole series' rate (:func:`measure_spin` with ``prior``) or, when the whole series gives none (its
+    flicker changes too much along a long, decaying flight), on the first window with candidates under
+    ``prior`` — and then followed from window to window (to the candidate nearest the straight-line
+    extrapolation of the previous two windows' rates), so no window picks an alias of its own. A window
+    whose flicker sits at a fold (near 0 or f_s/2 as seen) has no rate. Without an anchor the windows carry their candidates and no rate.
 
     Parameters
     ----------
@@ -893,20 +882,71 @@ def spin_vs_time(
         trend_degree=trend_degree,
         oversample=oversample,
     )
-    overall = _measure(t, y, prior=prior, branch=None, **opts)  # type: ignore[arg-type]
-    branch = None
-    if overall.rate_radps is not None and overall.flicker_hz is not None:
-        f_true = overall.rate_radps * overall.cycles_per_turn / (2.0 * math.pi)
-        k = int(round(f_true / overall.sample_rate_hz))
-        branch = (k, 1 if f_true - k * overall.sample_rate_hz >= 0 else -1)
-    windows = []
-    for start in range(0, t.size - window_points + 1, step):
-        sl = slice(start, start + window_points)
-        w = _measure(t[sl], y[sl], prior=None, branch=branch, **opts)  # type: ignore[arg-type]
-        if overall.rate_radps is None and w.rate_radps is not None:  # the whole series fixed no alias
-            w = _no_spin(_base_of(w), f"the whole series reports no spin ({overall.reason})")
-        windows.append(w)
-    return SpinSeries(overall, tuple(windows), window_points, step)
+    overall = _measure(t, y, prior=prior, **opts)  # type: ignore[arg-type]
+    raw = [
+        _measure(t[i : i + window_points], y[i : i + window_points], prior=None, **opts)  # type: ignore[arg-type]
+        for i in range(0, t.size - window_points + 1, step)
+    ]
+    return SpinSeries(overall, tuple(_follow_alias(raw, overall, prior)), window_points, step)
+
+
+def _follow_alias(
+    raw: list[SpinEstimate], overall: SpinEstimate, prior: SpinPrior | None
+) -> list[SpinEstimate]:
+    """Windows with their alias chosen: anchored on the whole series' rate (or the prior, on the first window
+    with candidates), then followed from window to window to the candidate nearest the rate the previous two
+    windows lead to (straight-line extrapolation, so a flicker passing a fold at k·f_s/2 keeps its branch)."""
+    if not any(w.aliased for w in raw):
+        return raw
+    out: list[SpinEstimate] = []
+    picks: list[tuple[float, float]] = []  # (time s, rate rad/s) of the windows with a rate so far
+    source = ""
+
+    def predicted(at_t_s: float) -> float | None:
+        if not picks:
+            return None
+        if len(picks) == 1:
+            return picks[-1][1]
+        (t1, r1), (t2, r2) = picks[-2], picks[-1]
+        return r2 + (r2 - r1) * (at_t_s - t2) / (t2 - t1)
+
+    for w in raw:
+        if w.rate_radps is not None:  # the only alias in the band
+            picks.append((w.at_t_s, w.rate_radps))
+            out.append(w)
+            continue
+        if not w.candidates_radps:
+            out.append(w)
+            continue
+        cands = np.array(w.candidates_radps)
+        ref = predicted(w.at_t_s)
+        if ref is None:
+            if overall.rate_radps is not None:
+                ref, source = overall.rate_radps, "the whole series' rate"
+            elif prior is not None:
+                k, why = _pick_with_prior(cands, _candidate_sigma_radps(w), prior)
+                if k is None:
+                    out.append(_no_spin(_base_of(w), f"aliased: {why}", prior=prior.source))
+                    continue
+                ref, source = float(cands[k]), f"prior ({prior.source})"
+            else:
+                out.append(w)  # aliased, no prior: the window's own reason says so
+                continue
+        dist = np.abs(cands - ref)
+        order = np.argsort(dist)
+        if cands.size > 1 and dist[order[0]] > CONTINUITY_FRACTION * dist[order[1]]:
+            out.append(
+                _no_spin(
+                    _base_of(w),
+                    f"aliased: candidates {cands[order[0]]:.4g} and {cands[order[1]]:.4g} rad/s are about "
+                    f"equally near the rate {ref:.4g} rad/s the previous windows lead to",
+                )
+            )
+            continue
+        k = int(order[0])
+        picks.append((w.at_t_s, float(cands[k])))
+        out.append(_with_choice(w, k, f"lomb-scargle, alias followed from {source}", w.prior))
+    return out
 
 
 def fit_spin_decay(
