@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .flight import FlightModel, LaunchState, Trajectory, derivatives, fly
+from .observe import ModelSpec, RowParams, flight_for
 
 DEFAULT_SAMPLE_S = 1e-3
 #: Longest flight flown, s (a BB reaches the ground or its range long before).
@@ -149,6 +150,16 @@ def fly_to(
     return FlownPath(t, state, reached, traj)
 
 
+def fly_shots_to(spec: ModelSpec, rows: RowParams, **options) -> FlownPath:
+    """:func:`fly_to` for rows of fit parameters (state at each row's start, law parameters).
+
+    ``options`` are those of :func:`fly_to` (``range_m``, ``ground_y_m``, ``duration_s``, ``sample_s``,
+    ``max_time_s``); row 0's path is sampled.
+    """
+    model, launch = flight_for(spec, rows)
+    return fly_to(model, launch, **options)
+
+
 def fly_back(
     model: FlightModel, launch: LaunchState, x_m: float, *, step_s: float = BACK_STEP_S
 ) -> np.ndarray:
@@ -197,4 +208,4 @@ def fly_back(
     return out
 
 
-__all__ = ["DEFAULT_SAMPLE_S", "MAX_FLIGHT_S", "FlownPath", "fly_back", "fly_to", "time_to_range"]
+__all__ = ["DEFAULT_SAMPLE_S", "MAX_FLIGHT_S", "FlownPath", "fly_back", "fly_shots_to", "fly_to", "time_to_range"]

@@ -76,12 +76,14 @@ def parse_chrono(text: str) -> tuple[float, float]:
 # ---------------------------------------------------------------------------------------------- BB, air
 
 
-def add_bb_options(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--mass-g", required=True, type=finite_float, metavar="M", help="BB mass, g")
+def add_bb_options(parser: argparse.ArgumentParser, *, required: bool = True) -> None:
+    """--mass-g and --diameter-mm. ``required=False`` (``simulate``, where a fit can give the BB): both
+    default to None, and the command fills in the diameter's default before :func:`bb_from_args`."""
+    parser.add_argument("--mass-g", required=required, type=finite_float, metavar="M", help="BB mass, g")
     parser.add_argument(
         "--diameter-mm",
         type=finite_float,
-        default=m_to_mm(DEFAULT_BB_DIAMETER_M),
+        default=m_to_mm(DEFAULT_BB_DIAMETER_M) if required else None,
         metavar="D",
         help=f"BB diameter, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g})",
     )

@@ -23,27 +23,24 @@ from hopscope.console import summary, warn
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.fitfile import read_fit
-from hopscope.fitting.flight import FlightModel, LaunchState, fly
-from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift, SaturatingLift
+from hopscope.fitting.flyto import MAX_FLIGHT_S, fly_shots_to
+from hopscope.fitting.laws import LinearLift, SaturatingLift
+from hopscope.fitting.observe import ModelSpec, RowParams
+from hopscope.options import add_air_options, add_bb_options, air_from_args, bb_from_args
 from hopscope.shared.constants import (
     DEFAULT_BB_DIAMETER_M,
-    DEFAULT_HUMIDITY_PCT,
-    DEFAULT_PRESSURE_HPA,
-    DEFAULT_TEMPERATURE_C,
     MAX_PLAUSIBLE_SPEED_MPS,
     MIN_PLAUSIBLE_SPEED_MPS,
 )
 from hopscope.shared.fileio import write_text_atomic
 from hopscope.shared.units import (
-    celsius_to_kelvin,
     deg_to_rad,
-    grams_to_kg,
-    hpa_to_pa,
+    fraction_to_percent,
+    kelvin_to_celsius,
     kg_to_grams,
     m_to_mm,
-    mm_to_m,
     mps_to_fps,
-    percent_to_fraction,
+    pa_to_hpa,
     rad_to_deg,
     radps_to_rpm,
 )
@@ -64,8 +61,6 @@ DEFAULT_RANGE_M = 60.0
 #: # common practice, no published source (a shoulder-height shot)
 DEFAULT_MUZZLE_HEIGHT_M = 1.5
 DEFAULT_SAMPLE_MS = 1.0
-#: Longest flight simulated, s (a BB reaches the ground or its range long before).
-MAX_FLIGHT_S = 30.0
 #: |C_L| above which the path carries a warning: the ceiling cl_max of the published saturating form.
 SATURATING_CL_CEILING = float(SaturatingLift().cl_max)
 PATH_SCHEMA = "hopscope.path/1"
@@ -80,13 +75,7 @@ def register(parser: argparse.ArgumentParser) -> None:
     src.add_argument(
         "--fit", metavar="FIT_JSON", help="take the shot, C_D, spin decay, air and BB from a fit.json"
     )
-    src.add_argument("--mass-g", type=float, metavar="M", help="BB mass, g")
-    src.add_argument(
-        "--diameter-mm",
-        type=float,
-        metavar="D",
-        help=f"BB diameter, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g})",
-    )
+    add_bb_options(src, required=False)
     src.add_argument("--speed-mps", type=float, metavar="V", help="exit speed, m/s")
     src.add_argument(
         "--elevation-deg", type=float, metavar="A", help="launch elevation above horizontal, degrees"
@@ -133,12 +122,7 @@ def register(parser: argparse.ArgumentParser) -> None:
         metavar="DT",
         help=f"time between CSV rows, ms (default {DEFAULT_SAMPLE_MS:g})",
     )
-    air = parser.add_argument_group("air (default 20 °C, 1013.25 hPa, 50 %; with --fit: the fit's density)")
-    air.add_argument("--temp-c", type=float, metavar="T", help="air temperature, °C")
-    air.add_argument(
-        "--pressure-hpa", type=float, metavar="P", help="air pressure (absolute, not sea-level), hPa"
-    )
-    air.add_argument("--humidity-pct", type=float, metavar="H", help="relative humidity, %%")
+    add_air_options(parser)  # with --fit and none of them given: the fit's air
     parser.add_argument("-o", "--output", required=True, metavar="PATH_CSV", help="the path CSV to write")
 
 
@@ -183,20 +167,6 @@ def _in_range(
     return float(value)
 
 
-def _check_mass_g(value: float) -> float:
-    _finite("--mass-g", value)
-    if value <= 0:
-        raise ValueError(f"--mass-g: BB mass must be positive, got {value:g} g")
-    return _in_range("--mass-g", value, 0.01, 10.0, "g")
-
-
-def _check_diameter_mm(value: float) -> float:
-    _finite("--diameter-mm", value)
-    if value <= 0:
-        raise ValueError(f"--diameter-mm: BB diameter must be positive, got {value:g} mm")
-    return _in_range("--diameter-mm", value, 1.0, 20.0, "mm")
-
-
 def _check_speed(option: str, value: float) -> float:
     return _in_range(
         option, value, MIN_PLAUSIBLE_SPEED_MPS, MAX_PLAUSIBLE_SPEED_MPS, "m/s", open_lo=True, open_hi=True
@@ -212,28 +182,15 @@ def _check_common(args: argparse.Namespace) -> None:
 
 
 def _air_from_args(args: argparse.Namespace) -> tuple[Air, str]:
-    given = [getattr(args, k) is not None for k in _AIR_OPTIONS]
-    t_c = (
-        DEFAULT_TEMPERATURE_C
-        if args.temp_c is None
-        else _in_range("--temp-c", args.temp_c, -50.0, 60.0, "°C")
-    )
-    p_hpa = (
-        DEFAULT_PRESSURE_HPA
-        if args.pressure_hpa is None
-        else _in_range("--pressure-hpa", args.pressure_hpa, 500.0, 1200.0, "hPa")
-    )
-    if args.humidity_pct is None:
-        h_pct = DEFAULT_HUMIDITY_PCT
-    else:
-        h_pct = _finite("--humidity-pct", args.humidity_pct)
-        if not 0.0 <= h_pct <= 100.0:
-            raise ValueError(f"--humidity-pct: relative humidity must lie in 0..100 %, got {h_pct:g}")
-    air = Air.from_conditions(celsius_to_kelvin(t_c), hpa_to_pa(p_hpa), percent_to_fraction(h_pct))
+    """The air from the shared air options, and a note for the header."""
+    air, _ = air_from_args(args)
+    note = f"CIPM-2007 from {kelvin_to_celsius(air.temperature_k):g} °C, {pa_to_hpa(air.pressure_pa):g} hPa, "
+    note += f"{fraction_to_percent(air.relative_humidity):g} % RH"
     defaulted = [
-        name for name, g in zip(("temperature", "pressure", "humidity"), given, strict=True) if not g
+        n
+        for n, k in zip(("temperature", "pressure", "humidity"), _AIR_OPTIONS, strict=True)
+        if getattr(args, k) is None
     ]
-    note = f"CIPM-2007 from {t_c:g} °C, {p_hpa:g} hPa, {h_pct:g} % RH"
     if defaulted:
         note += f" (default {', '.join(defaulted)})"
     return air, note
@@ -243,10 +200,9 @@ def _manual_inputs(args: argparse.Namespace) -> ShotInputs:
     for key in _MANUAL_OPTIONS:
         if getattr(args, key) is None:
             raise ValueError(f"--{key.replace('_', '-')}: required unless --fit is given")
-    mass_g = _check_mass_g(args.mass_g)
-    diameter_mm = (
-        m_to_mm(DEFAULT_BB_DIAMETER_M) if args.diameter_mm is None else _check_diameter_mm(args.diameter_mm)
-    )
+    if args.diameter_mm is None:
+        args.diameter_mm = m_to_mm(DEFAULT_BB_DIAMETER_M)
+    bb = bb_from_args(args)
     speed = _check_speed("--speed-mps", args.speed_mps)
     elevation = _in_range(
         "--elevation-deg", args.elevation_deg, -90.0, 90.0, "degrees", open_lo=True, open_hi=True
@@ -262,7 +218,6 @@ def _manual_inputs(args: argparse.Namespace) -> ShotInputs:
             )
         tau = float(args.spin_decay_s)
     air, note = _air_from_args(args)
-    bb = BB(grams_to_kg(mass_g), mm_to_m(diameter_mm))
     return ShotInputs(bb, air, note, speed, deg_to_rad(elevation), cd, cl, tau, "command line", ())
 
 
@@ -361,47 +316,33 @@ def simulate(
     shot: ShotInputs, *, range_m: float, muzzle_height_m: float, wind_mps, sample_s: float
 ) -> SimulatedPath:
     """Fly the shot from the origin until it reaches ``range_m`` downrange or the ground."""
-    lift = LinearLift(NOMINAL_LIFT_SLOPE)
-    model = FlightModel(
+    spec = ModelSpec(
         shot.bb,
         shot.air,
-        drag=ConstantDrag(shot.drag_coefficient),
-        lift=lift,
-        decay=ExponentialDecay(shot.spin_decay_s),
+        lift_k=NOMINAL_LIFT_SLOPE,
         wind_mps=(float(wind_mps[0]), float(wind_mps[1]), float(wind_mps[2])),
     )
-    v0 = np.array([math.cos(shot.elevation_rad), math.sin(shot.elevation_rad), 0.0]) * shot.speed_mps
-    air_speed0 = float(np.linalg.norm(v0 - np.asarray(model.wind_mps)))
-    spin0 = float(lift.spin_ratio_for(shot.lift_coefficient)) * air_speed0 / shot.bb.radius_m
-    launch = LaunchState.from_speed(shot.speed_mps, shot.elevation_rad, spin_radps=spin0)
-    ground = -float(muzzle_height_m)
-    # First guess of the flight time: range over the horizontal exit speed, doubled; extended if needed.
-    duration = min(
-        MAX_FLIGHT_S, max(0.1, 2.0 * range_m / max(shot.speed_mps * math.cos(shot.elevation_rad), 1.0))
+    rate = 0.0 if math.isinf(shot.spin_decay_s) else 1.0 / shot.spin_decay_s
+    one = np.ones(1)
+    rows = RowParams(
+        0.0 * one,
+        0.0 * one,
+        shot.speed_mps * one,
+        shot.elevation_rad * one,
+        shot.lift_coefficient * one,
+        shot.drag_coefficient * one,
+        rate * one,
     )
-    while True:
-        traj = fly(model, launch, duration)
-        t_range = float(traj.time_at_downrange(range_m)[0])
-        t_ground = float(traj.time_at_height(ground)[0])
-        if math.isfinite(t_range) or math.isfinite(t_ground):
-            break
-        if duration >= MAX_FLIGHT_S:
-            raise ValueError(
-                f"--range-m: the BB neither reached {range_m:g} m downrange nor the ground within {MAX_FLIGHT_S:g} s"
-            )
-        duration = min(MAX_FLIGHT_S, 2.0 * duration)
-    if math.isfinite(t_range) and not (math.isfinite(t_ground) and t_ground < t_range):
-        t_stop, reason = t_range, "range"
-    else:
-        t_stop, reason = t_ground, "ground"
-    t = np.arange(0.0, t_stop, sample_s)
-    t = np.append(t[t < t_stop - 1e-9], t_stop)
-    state = traj.sample(t)[0]
-    if reason == "range":
-        state[-1, 0] = range_m  # exact at the crossing (the bisection leaves ~1e-12 s)
-    else:
-        state[-1, 1] = ground
-    return SimulatedPath(t, state, spin0, reason, t_range if reason == "range" else math.nan, ground)
+    ground = -float(muzzle_height_m)
+    path = fly_shots_to(
+        spec, rows, range_m=range_m, ground_y_m=ground, sample_s=sample_s, max_time_s=MAX_FLIGHT_S
+    )
+    if path.reached == "time":
+        raise ValueError(
+            f"--range-m: the BB neither reached {range_m:g} m downrange nor the ground within {MAX_FLIGHT_S:g} s"
+        )
+    t_range = float(path.t_s[-1]) if path.reached == "range" else math.nan
+    return SimulatedPath(path.t_s, path.state, float(path.state[0, 6]), path.reached, t_range, ground)
 
 
 def _lift_coefficients(shot: ShotInputs, path: SimulatedPath, wind_mps) -> np.ndarray:

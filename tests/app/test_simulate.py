@@ -269,16 +269,12 @@ def _replace(argv, option, value):
 
 
 BAD_INPUT = [
-    ("--mass-g", "0", "--mass-g: BB mass must be positive"),
-    ("--mass-g", "-0.2", "--mass-g: BB mass must be positive"),
-    ("--mass-g", "nan", "--mass-g: must be a finite number"),
-    ("--mass-g", "inf", "--mass-g: must be a finite number"),
-    ("--diameter-mm", "0", "--diameter-mm: BB diameter must be positive"),
-    ("--diameter-mm", "-6", "--diameter-mm: BB diameter must be positive"),
-    ("--diameter-mm", "nan", "--diameter-mm: must be a finite number"),
-    ("--humidity-pct", "-1", "--humidity-pct: relative humidity must lie in 0..100 %"),
-    ("--humidity-pct", "100.5", "--humidity-pct: relative humidity must lie in 0..100 %"),
-    ("--humidity-pct", "nan", "--humidity-pct: must be a finite number"),
+    ("--mass-g", "0", "--mass-g: expected a positive mass in grams"),
+    ("--mass-g", "-0.2", "--mass-g: expected a positive mass in grams"),
+    ("--diameter-mm", "0", "--diameter-mm: expected a positive diameter in millimetres"),
+    ("--diameter-mm", "-6", "--diameter-mm: expected a positive diameter in millimetres"),
+    ("--humidity-pct", "-1", "--humidity-pct: relative_humidity must lie in 0..1"),
+    ("--humidity-pct", "100.5", "--humidity-pct: relative_humidity must lie in 0..1"),
     ("--speed-mps", "0", "--speed-mps: 0 m/s is outside"),
     ("--speed-mps", "-50", "--speed-mps: -50 m/s is outside"),
     ("--speed-mps", "300", "--speed-mps: 300 m/s is outside"),
@@ -291,8 +287,6 @@ BAD_INPUT = [
     ("--lift-coefficient", "nan", "--lift-coefficient: must be a finite number"),
     ("--spin-decay-s", "0", "--spin-decay-s: must be positive"),
     ("--spin-decay-s", "inf", "--spin-decay-s: must be a finite number"),
-    ("--temp-c", "nan", "--temp-c: must be a finite number"),
-    ("--pressure-hpa", "inf", "--pressure-hpa: must be a finite number"),
     ("--range-m", "0", "--range-m: 0 m is outside"),
     ("--range-m", "nan", "--range-m: must be a finite number"),
     ("--wind-mps", "inf", "--wind-mps: must be a finite number"),
@@ -312,6 +306,28 @@ def test_bad_input_is_one_line_exit_2_and_no_file(tmp_path, capsys, option, valu
     assert message in lines[0]
     assert "Traceback" not in err and out == ""
     assert not out_csv.exists() and list(tmp_path.iterdir()) == []
+
+
+#: Non-finite BB and air values are rejected by the shared options' types (argparse usage errors).
+USAGE_ERRORS = [
+    ("--mass-g", "nan", "--mass-g: expected a finite number"),
+    ("--mass-g", "inf", "--mass-g: expected a finite number"),
+    ("--diameter-mm", "nan", "--diameter-mm: expected a finite number"),
+    ("--humidity-pct", "nan", "--humidity-pct: expected a finite number"),
+    ("--temp-c", "nan", "--temp-c: expected a finite number"),
+    ("--pressure-hpa", "inf", "--pressure-hpa: expected a positive number"),
+]
+
+
+@pytest.mark.parametrize(("option", "value", "message"), USAGE_ERRORS)
+def test_non_finite_bb_and_air_are_usage_errors(tmp_path, capsys, option, value, message):
+    out_csv = tmp_path / "p.csv"
+    with pytest.raises(SystemExit) as exc:
+        main(["simulate", *_replace(BASE, option, value), "-o", str(out_csv)])
+    assert exc.value.code == 2
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert len(lines) == 1 and message in lines[0]
+    assert not out_csv.exists()
 
 
 def test_not_a_number_is_a_usage_error(tmp_path, capsys):
