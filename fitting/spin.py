@@ -44,7 +44,7 @@ import numpy as np
 from scipy.optimize import least_squares
 from scipy.special import gammaln
 
-from .laws import LinearLift, SaturatingLift
+from .laws import LinearLift, SaturatingLift, spin_ratio
 
 # ---------------------------------------------------------------------------------------------- settings
 
@@ -1027,3 +1027,173 @@ def fit_spin_decay(
         "(flight too short for this decay)"
     )
     return SpinDecay(per, x0, w0, w0_sig, lam, lam_sig, None, None, len(use), red, method, reason)
+
+
+# ---------------------------------------------------------------------------------------------- one shot
+
+
+@dataclass(frozen=True)
+class ShotSpin:
+    """The measured spin of one shot, as ``fit.json`` (``shots[i].spin_measured``) and the report carry it.
+
+    Attributes
+    ----------
+    rate_radps, stderr_radps : spin rate at ``at_t_s`` and its 1σ, rad/s; None when no spin is reported.
+    at_t_s : the time the rate refers to, s: the shot's first tracked point when a decay fit gives the rate
+        there, else the mean time of the samples (the whole series' estimate).
+    candidates_radps : the candidate rates of the whole series (more than one when aliased), rad/s.
+    marking, method : the marking assumed and how the rate was obtained.
+    reason : why no rate is reported (None when it is).
+    overall : the whole-series estimate; ``series`` the windows; ``decay`` their decay fit, or None with
+        ``decay_reason``.
+    """
+
+    rate_radps: float | None
+    stderr_radps: float | None
+    at_t_s: float
+    candidates_radps: tuple[float, ...]
+    marking: str
+    method: str
+    reason: str | None
+    overall: SpinEstimate
+    series: SpinSeries
+    decay: SpinDecay | None
+    decay_reason: str | None
+
+
+def measure_shot_spin(
+    t_s,
+    brightness,
+    *,
+    first_t_s: float | None = None,
+    window_points: int = 32,
+    distance_m_at=None,
+    marking: str = DEFAULT_MARKING,
+    exposure_s: float = 0.0,
+    rate_band_radps: tuple[float, float] = DEFAULT_RATE_BAND_RADPS,
+    max_false_alarm: float = DEFAULT_MAX_FALSE_ALARM,
+    prior: SpinPrior | None = None,
+) -> ShotSpin:
+    """Spin of one shot from its brightness series: the whole series, windows, and the decay where seen.
+
+    Parameters
+    ----------
+    t_s, brightness : the shot's detections (mid-exposure times, s; integrated brightness).
+    first_t_s : time of the shot's first tracked point, s (default the first sample's): a decay fit gives
+        the rate there.
+    window_points : samples per (non-overlapping) window of the decay fit.
+    distance_m_at : optional function of times (s, array) giving the distance flown (m), to fit the decay
+        per distance instead of per time.
+    Other parameters as for :func:`measure_spin`.
+    """
+    t, y = _series(t_s, brightness)
+    t_first = float(t[0]) if first_t_s is None and t.size else first_t_s
+    if t_first is None or not math.isfinite(t_first):
+        raise ValueError(f"first_t_s must be finite, got {first_t_s!r}")
+    window_points = max(window_points, MIN_POINTS + DEFAULT_TREND_DEGREE)
+    series = spin_vs_time(
+        t,
+        y,
+        window_points=window_points,
+        marking=marking,
+        exposure_s=exposure_s,
+        rate_band_radps=rate_band_radps,
+        max_false_alarm=max_false_alarm,
+        prior=prior,
+    )
+    overall = series.overall
+    decay: SpinDecay | None = None
+    decay_reason: str | None
+    measured = [w for w in series.windows if w.measured]
+    if len(measured) < MIN_DECAY_WINDOWS:
+        decay_reason = (
+            f"decay not measured: {len(measured)} window(s) of {window_points} samples with a rate, "
+            f"at least {MIN_DECAY_WINDOWS} needed"
+        )
+    else:
+        if distance_m_at is None:
+            decay = fit_spin_decay(series.windows, reference=t_first)
+        else:
+            at = np.array([w.at_t_s for w in series.windows])
+            dist = np.asarray(distance_m_at(at), dtype=float)
+            d0 = float(np.asarray(distance_m_at(np.array([t_first])), dtype=float)[0])
+            decay = fit_spin_decay(series.windows, reference=d0, distance_m=dist)
+        decay_reason = decay.reason
+    if decay is not None and decay.per == "time" and decay.scale is not None:
+        return ShotSpin(
+            decay.rate0_radps,
+            decay.rate0_stderr_radps,
+            t_first,
+            overall.candidates_radps,
+            overall.marking,
+            f"{measured[0].method}; rate at the first tracked point from the decay fit of "
+            f"{decay.n_windows} windows",
+            None,
+            overall,
+            series,
+            decay,
+            decay_reason,
+        )
+    rate, err, reason = overall.rate_radps, overall.stderr_radps, overall.reason
+    return ShotSpin(
+        rate,
+        err,
+        overall.at_t_s,
+        overall.candidates_radps,
+        overall.marking,
+        overall.method,
+        reason,
+        overall,
+        series,
+        decay,
+        decay_reason,
+    )
+
+
+def shot_spin_to_json(spin: ShotSpin) -> dict[str, Any]:
+    """``shots[i].spin_measured`` of ``fit.json`` (SI): ``rate_radps {value, stderr}``, ``at_t_s``,
+    ``candidates_radps``, ``marking``, ``method``, plus ``reason``, ``false_alarm_probability``,
+    ``flicker_hz`` and ``decay`` (``per``, ``reference``, ``rate0_radps``, ``decay_constant`` and
+    ``scale`` each ``{value, stderr}``, ``reason``; null when not fitted)."""
+    o = spin.overall
+    decay = None
+    if spin.decay is not None:
+        d = spin.decay
+        decay = {
+            "per": d.per,
+            "reference": d.reference,
+            "rate0_radps": {"value": d.rate0_radps, "stderr": d.rate0_stderr_radps},
+            "decay_constant": {"value": d.decay_constant, "stderr": d.decay_constant_stderr},
+            "scale": {"value": d.scale, "stderr": d.scale_stderr},
+            "n_windows": d.n_windows,
+            "reduced_chi2": d.reduced_chi2 if math.isfinite(d.reduced_chi2) else None,
+            "reason": d.reason,
+        }
+    return {
+        "rate_radps": {"value": spin.rate_radps, "stderr": spin.stderr_radps},
+        "at_t_s": spin.at_t_s,
+        "candidates_radps": list(spin.candidates_radps),
+        "marking": spin.marking,
+        "method": spin.method,
+        "reason": spin.reason,
+        "false_alarm_probability": o.false_alarm_probability,
+        "flicker_hz": o.flicker_hz,
+        "sample_rate_hz": o.sample_rate_hz,
+        "decay": decay,
+        "decay_reason": spin.decay_reason,
+    }
+
+
+def measured_spin_ratio(
+    rate_radps: float, rate_stderr_radps: float, *, speed_mps: float, speed_stderr_mps: float, radius_m: float
+) -> tuple[float, float]:
+    """Spin ratio S = r ω / u from a measured spin and the fitted speed at the same time, with its 1σ
+    (the two errors combined in quadrature, relative: σ_S/S = √((σ_ω/ω)² + (σ_u/u)²))."""
+    for name, value in (("rate_radps", rate_radps), ("speed_mps", speed_mps), ("radius_m", radius_m)):
+        if not (math.isfinite(value) and value > 0):
+            raise ValueError(f"{name} must be positive and finite, got {value!r}")
+    for name, value in (("rate_stderr_radps", rate_stderr_radps), ("speed_stderr_mps", speed_stderr_mps)):
+        if not (math.isfinite(value) and value >= 0):
+            raise ValueError(f"{name} must be finite and >= 0, got {value!r}")
+    s = float(spin_ratio(rate_radps, speed_mps, radius_m))
+    return s, s * math.hypot(rate_stderr_radps / rate_radps, speed_stderr_mps / speed_mps)

@@ -3,6 +3,7 @@ estimator on synthetic series of known rate, decay, noise, exposure and frame ra
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -21,8 +22,11 @@ from hopscope.fitting.spin import (
     false_alarm_probability,
     fit_spin_decay,
     lomb_scargle,
+    measure_shot_spin,
     measure_spin,
+    measured_spin_ratio,
     resolve_with_second_clip,
+    shot_spin_to_json,
     spin_prior_from_lift,
     spin_vs_time,
 )
@@ -371,3 +375,44 @@ def test_decay_fit_refuses_overlapping_or_too_few_windows():
         fit_spin_decay(spin_vs_time(t, b, window_points=60).windows[:2])
     with pytest.raises(ValueError, match="distance_m must have one value per window"):
         fit_spin_decay(spin_vs_time(t, b, window_points=60).windows, distance_m=[1.0, 2.0])
+
+
+# ---------------------------------------------------------------------------------------------- one shot
+
+
+def test_shot_spin_gives_the_rate_at_the_first_point_from_the_decay():
+    tau, truth0 = 0.12, TWO_PI * 950.0
+    t, b = flicker_series(np.random.default_rng(21), n=1500, rate_radps=truth0, tau_s=tau, noise=0.03)
+    first = float(t[0])
+    spin = measure_shot_spin(t, b, first_t_s=first, window_points=100)
+    assert spin.decay is not None and spin.decay.scale is not None
+    assert spin.at_t_s == first
+    assert spin.rate_radps is not None and spin.stderr_radps is not None
+    truth_first = truth0 * math.exp(-first / tau)
+    assert abs(spin.rate_radps / truth_first - 1.0) < RATE_REL_TOL
+    assert abs(spin.rate_radps - truth_first) < RATE_PULL_MAX * spin.stderr_radps
+    record = shot_spin_to_json(spin)
+    assert record["rate_radps"] == {"value": spin.rate_radps, "stderr": spin.stderr_radps}
+    assert record["at_t_s"] == first and record["marking"] == DEFAULT_MARKING
+    assert record["candidates_radps"] == list(spin.overall.candidates_radps)
+    assert record["decay"]["scale"]["value"] == pytest.approx(spin.decay.scale)
+    json.dumps(record, allow_nan=False)  # only finite numbers and nulls
+
+
+def test_short_shot_reports_the_whole_series_and_why_no_decay():
+    t, b = flicker_series(np.random.default_rng(22), n=32)
+    spin = measure_shot_spin(t, b)
+    assert spin.decay is None and spin.decay_reason is not None and "decay not measured" in spin.decay_reason
+    assert spin.rate_radps == spin.overall.rate_radps and spin.at_t_s == spin.overall.at_t_s
+    unmarked = shot_spin_to_json(measure_shot_spin(t, b, marking="none"))
+    assert unmarked["rate_radps"] == {"value": None, "stderr": None}
+    assert "unmarked" in unmarked["reason"]
+    json.dumps(unmarked, allow_nan=False)
+
+
+def test_measured_spin_ratio_and_its_sigma():
+    s, ss = measured_spin_ratio(6000.0, 60.0, speed_mps=90.0, speed_stderr_mps=0.9, radius_m=R_BB_M)
+    assert s == pytest.approx(R_BB_M * 6000.0 / 90.0, rel=1e-12)
+    assert ss == pytest.approx(s * math.hypot(0.01, 0.01), rel=1e-12)
+    with pytest.raises(ValueError, match="speed_mps must be positive"):
+        measured_spin_ratio(6000.0, 60.0, speed_mps=0.0, speed_stderr_mps=0.9, radius_m=R_BB_M)
