@@ -61,21 +61,11 @@ Rendering model and its limits are described in :mod:`hopscope.scenes.render`.
 
 from __future__ import annotations
 
-from .builtin import BUILTIN_SCENES, builtin_scene, small_scene
+from .board import CORNER_ORDER, board_corners, project_board_corners, render_board_image
 from .camera import SceneCamera
-from .render import (
-    ALL_PARTS,
-    CORNER_ORDER,
-    TRUTH_SCHEMA,
-    PreparedScene,
-    RenderedScene,
-    board_corners,
-    load_truth,
-    prepare_scene,
-    project_board_corners,
-    render_board_image,
-    render_scene,
-)
+from .catalogue import BUILTIN_SCENES, builtin_scene, small_scene
+from .playback import PlaybackTimedClip, write_playback_timed_copy
+from .render import ALL_PARTS, PreparedScene, RenderedScene, prepare_scene, render_scene
 from .spec import (
     BBSpec,
     BoardSpec,
@@ -88,9 +78,10 @@ from .spec import (
     LightingSpec,
     PlaneViewsSpec,
     SceneSpec,
-    load_scene,
-    spec_from_dict,
 )
+from .specfile import load_scene, spec_from_dict
+from .truth import TRUTH_SCHEMA, SceneTruth, load_truth
+from .variants import lane_spin_variant, with_crossing_distractor
 
 __all__ = [
     "ALL_PARTS",
@@ -107,10 +98,12 @@ __all__ = [
     "LensViewsSpec",
     "LightingSpec",
     "PlaneViewsSpec",
+    "PlaybackTimedClip",
     "PreparedScene",
     "RenderedScene",
     "SceneCamera",
     "SceneSpec",
+    "SceneTruth",
     "board_corners",
     "builtin_scene",
     "load_scene",
@@ -119,6 +112,9 @@ __all__ = [
     "project_board_corners",
     "render_board_image",
     "render_scene",
+    "lane_spin_variant",
     "small_scene",
     "spec_from_dict",
+    "with_crossing_distractor",
+    "write_playback_timed_copy",
 ]

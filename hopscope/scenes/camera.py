@@ -199,3 +199,8 @@ def rotation_about(axis, angle_rad: float) -> np.ndarray:
     a = a / np.linalg.norm(a)
     r, _ = cv2.Rodrigues(a * angle_rad)
     return r
+
+
+def plane_homography(rotation: np.ndarray, translation: np.ndarray) -> np.ndarray:
+    """H with H (bx, by, 1)ᵀ = Z (x_n, y_n, 1)ᵀ for points (bx, by, 0) of a plane at pose (R, t)."""
+    return np.column_stack([rotation[:, 0], rotation[:, 1], translation])

@@ -19,7 +19,7 @@ from hopscope.scenes import (
     render_scene,
     small_scene,
 )
-from hopscope.scenes.render import board_outline
+from hopscope.scenes.board import board_outline
 
 #: Frames of empty background a tracker's background model needs before the BB appears.
 MIN_LEAD_FRAMES = 15
@@ -70,9 +70,9 @@ def test_lane_long_has_three_placements_and_a_rolling_shutter():
     assert 3e-3 <= spec.camera.readout_s <= 4e-3
     assert spec.bb.kind == "tracer" and spec.lighting.kind == "dusk"
     cam = SceneCamera.from_spec(spec.camera)
-    from hopscope.scenes.render import _field_x_span
+    from hopscope.scenes.motion import field_x_span
 
-    x0, x1 = _field_x_span(cam)
+    x0, x1 = field_x_span(cam)
     assert 30.0 < x1 - x0 < 40.0
 
 
@@ -85,7 +85,10 @@ def test_lane_spin_is_a_fast_close_up_of_a_marked_bb():
 
 
 def test_unknown_scene_names_the_choices():
-    with pytest.raises(ValueError, match=r"unknown scene 'lane-x'; choose one of lane-close, lane-long, lane-spin"):
+    with pytest.raises(
+        ValueError,
+        match=r"unknown scene .lane-x.; choose one of lane-close, lane-long, lane-spin, lane-close-oneboard",
+    ):
         builtin_scene("lane-x")
 
 
@@ -107,9 +110,11 @@ def test_unknown_part_is_rejected(tmp_path):
 def test_noise_has_the_documented_variance():
     # shot noise σ² = DN/gain plus read noise², by construction; checked on a flat frame of the wall
     image = ImageModelSpec(noise=True, gain_e_per_dn=4.0, read_noise_dn=2.0, motion_blur=False)
-    spec = small_scene(image=image, lighting=dataclasses.replace(small_scene().lighting, texture_contrast=0.0,
-                                                                 gradient=0.0),
-                       camera=dataclasses.replace(small_scene().camera, psf_sigma_px=0.0))
+    spec = small_scene(
+        image=image,
+        lighting=dataclasses.replace(small_scene().lighting, texture_contrast=0.0, gradient=0.0),
+        camera=dataclasses.replace(small_scene().camera, psf_sigma_px=0.0),
+    )
     scene = prepare_scene(spec, rng=0)
     rng = np.random.default_rng(1)
     a = scene.flight_frame(0, rng=rng, bb=False).astype(float)
@@ -127,7 +132,9 @@ def test_distractor_moves_and_flicker_modulates_the_background():
         base,
         image=ImageModelSpec(noise=False, motion_blur=False),
         lighting=dataclasses.replace(base.lighting, flicker_amplitude=0.05),
-        clutter=ClutterSpec(distractor=True, start_px=(100.0, 80.0), velocity_pxps=(2000.0, 0.0), wobble_px=0.0),
+        clutter=ClutterSpec(
+            distractor=True, start_px=(100.0, 80.0), velocity_pxps=(2000.0, 0.0), wobble_px=0.0
+        ),
     )
     scene = prepare_scene(spec, rng=0)
     f0 = scene.flight_frame(0, quantise=False, bb=False)
@@ -146,7 +153,7 @@ def test_distractor_moves_and_flicker_modulates_the_background():
     assert (u5, v5) == pytest.approx((100.0 + 2000.0 * 5 / spec.camera.fps, 80.0), abs=DISTRACTOR_TOL_PX)
     # mains flicker: the mean level follows 1 + A sin(2π f t + φ)
     ratio = plain5.mean() / plain0.mean()
-    from hopscope.scenes.render import FLICKER_PHASE_RAD
+    from hopscope.scenes.lighting import FLICKER_PHASE_RAD
 
     def gain(t):
         return 1 + 0.05 * np.sin(2 * np.pi * spec.lighting.flicker_hz * t + FLICKER_PHASE_RAD)
@@ -162,8 +169,11 @@ def test_scene_round_trips_through_a_dict_and_toml(tmp_path):
         spec = builtin_scene(name)
         assert spec_from_dict(spec.to_dict()) == spec
     toml = tmp_path / "my.toml"
-    toml.write_text('name = "my-lane"\n[camera]\nfps = 1000.0\nexposure_s = 1e-4\n[board]\ncols = 9\nrows = 6\n'
-                    '[bb]\nkind = "tracer"\n', encoding="utf-8")
+    toml.write_text(
+        'name = "my-lane"\n[camera]\nfps = 1000.0\nexposure_s = 1e-4\n[board]\ncols = 9\nrows = 6\n'
+        '[bb]\nkind = "tracer"\n',
+        encoding="utf-8",
+    )
     spec = load_scene(toml)
     assert spec.name == "my-lane" and spec.camera.fps == 1000.0 and spec.board.cols == 9
     assert spec.bb.kind == "tracer" and spec.drop is None

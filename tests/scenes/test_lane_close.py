@@ -35,8 +35,10 @@ def test_lane_close_render_calibrates_and_shows_the_bb_where_the_truth_says(tmp_
     for view in truth["lens_views"] + truth["plane_views"]:
         img = cv2.imread(str(scene.out_dir / view["file"]), cv2.IMREAD_GRAYSCALE)
         ok, corners = cv2.findChessboardCornersSB(
-            img, (board.cols, board.rows),
-            flags=cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE | cv2.CALIB_CB_ACCURACY)
+            img,
+            (board.cols, board.rows),
+            flags=cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE | cv2.CALIB_CB_ACCURACY,
+        )
         assert ok, view["file"]
         rvec, _ = cv2.Rodrigues(np.array(view["rotation"]))
         true, _ = cv2.projectPoints(obj.astype(float), rvec, np.array(view["translation"]), k_true, d_true)
@@ -72,9 +74,14 @@ def test_lane_close_render_calibrates_and_shows_the_bb_where_the_truth_says(tmp_
         if not (f["visible"] and 8 < f["u_px"] < w - 9 and 8 < f["v_px"] < h - 9):
             continue
         r0, c0 = int(round(f["v_px"])) - 5, int(round(f["u_px"])) - 5
-        diff = np.clip(frames[f["frame"]][r0 : r0 + 11, c0 : c0 + 11] - background[r0 : r0 + 11, c0 : c0 + 11]
-                       - 3.0, 0.0, None)
+        diff = np.clip(
+            frames[f["frame"]][r0 : r0 + 11, c0 : c0 + 11] - background[r0 : r0 + 11, c0 : c0 + 11] - 3.0,
+            0.0,
+            None,
+        )
         rr, cc = np.mgrid[r0 : r0 + 11, c0 : c0 + 11]
-        errs.append(np.hypot((diff * cc).sum() / diff.sum() - f["u_px"], (diff * rr).sum() / diff.sum() - f["v_px"]))
+        errs.append(
+            np.hypot((diff * cc).sum() / diff.sum() - f["u_px"], (diff * rr).sum() / diff.sum() - f["v_px"])
+        )
     assert len(errs) >= 40
     assert np.sqrt(np.mean(np.square(errs))) < DECODED_CENTROID_RMS_TOL_PX

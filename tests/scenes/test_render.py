@@ -29,7 +29,7 @@ from hopscope.scenes import (
     render_scene,
     small_scene,
 )
-from hopscope.scenes.render import lens_view_poses
+from hopscope.scenes.poses import lens_view_poses
 
 #: Projected true BB centre vs the rendered BB's intensity centroid (frames without blur), px.
 CENTROID_TOL_PX = 0.1
@@ -58,8 +58,10 @@ FLAT = LightingSpec(wall_distance_m=0.5, texture_contrast=0.0, gradient=0.0)
 def _bb_centroid(frame: np.ndarray, background: np.ndarray, u: float, v: float, half: int = 8):
     """Intensity centroid of |frame − background| in a window around (u, v); returns (u, v)."""
     r0, c0 = int(round(v)) - half, int(round(u)) - half
-    win = np.abs(frame[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1].astype(float)
-                 - background[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1])
+    win = np.abs(
+        frame[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1].astype(float)
+        - background[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
+    )
     rr, cc = np.mgrid[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
     s = win.sum()
     return float((win * cc).sum() / s), float((win * rr).sum() / s)
@@ -67,8 +69,11 @@ def _bb_centroid(frame: np.ndarray, background: np.ndarray, u: float, v: float, 
 
 def _interior_frames(truth_frames, size, margin=10):
     w, h = size
-    return [f for f in truth_frames
-            if f["visible"] and margin < f["u_px"] < w - 1 - margin and margin < f["v_px"] < h - 1 - margin]
+    return [
+        f
+        for f in truth_frames
+        if f["visible"] and margin < f["u_px"] < w - 1 - margin and margin < f["v_px"] < h - 1 - margin
+    ]
 
 
 @pytest.mark.parametrize("kind", ["white", "tracer"])
@@ -97,8 +102,9 @@ def test_truth_frames_agree_with_projecting_the_truth_path():
 
 
 def test_ray_interpolation_round_trips_through_opencv():
-    cam = SceneCamera.from_spec(CameraSpec(image_size=(640, 360), focal_px=500.0,
-                                           dist_coeffs=(-0.25, 0.06, 1.2e-3, -1e-3, 0.0)))
+    cam = SceneCamera.from_spec(
+        CameraSpec(image_size=(640, 360), focal_px=500.0, dist_coeffs=(-0.25, 0.06, 1.2e-3, -1e-3, 0.0))
+    )
     rng = np.random.default_rng(4)
     u = np.sort(rng.uniform(-0.5, 639.5, 50))
     v = np.sort(rng.uniform(-0.5, 359.5, 40))
@@ -122,8 +128,10 @@ def test_sb_detector_corners_match_projected_truth_in_documented_order():
     for rot, tr in poses:
         img = render_board_image(cam, board, rot, tr, background=110.0)
         ok, corners = cv2.findChessboardCornersSB(
-            img, (board.cols, board.rows), flags=cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE
-            | cv2.CALIB_CB_ACCURACY)
+            img,
+            (board.cols, board.rows),
+            flags=cv2.CALIB_CB_NORMALIZE_IMAGE | cv2.CALIB_CB_EXHAUSTIVE | cv2.CALIB_CB_ACCURACY,
+        )
         assert ok
         true = project_board_corners(cam, board, rot, tr)
         err = np.linalg.norm(corners.reshape(-1, 2) - true, axis=1)
@@ -137,8 +145,9 @@ def test_classic_detector_with_subpixel_refinement_matches_truth_reversed():
         img = render_board_image(cam, board, rot, tr, background=110.0)
         ok, corners = cv2.findChessboardCorners(img, (board.cols, board.rows))
         assert ok
-        corners = cv2.cornerSubPix(img, corners, (5, 5), (-1, -1),
-                                   (cv2.TERM_CRITERIA_EPS + cv2.TERM_CRITERIA_COUNT, 60, 1e-4))
+        corners = cv2.cornerSubPix(
+            img, corners, (5, 5), (-1, -1), (cv2.TERM_CRITERIA_EPS + cv2.TERM_CRITERIA_COUNT, 60, 1e-4)
+        )
         true = project_board_corners(cam, board, rot, tr)
         err = np.linalg.norm(corners.reshape(-1, 2)[::-1] - true, axis=1)
         assert math.sqrt(np.mean(err**2)) < SUBPIX_CORNER_RMS_TOL_PX
@@ -203,25 +212,35 @@ def test_clip_is_readable_by_opencv_and_pyav_with_right_count_size_and_times(tmp
 def test_truth_file_is_complete_enough_to_refly_the_path(tmp_path):
     scene = render_scene(small_scene(), tmp_path, rng=0, parts=("flight",))
     truth = load_truth(scene.truth_path)
-    fl = truth["flight"]
-    air = Air(**{k: fl["air"][k] for k in ("temperature_k", "pressure_pa", "relative_humidity",
-                                           "density_kgm3", "viscosity_pas")})
-    model = FlightModel(BB(fl["bb"]["mass_kg"], fl["bb"]["diameter_m"]), air,
-                        ConstantDrag(fl["laws"]["drag_coefficient"]), LinearLift(fl["laws"]["lift_slope"]),
-                        ExponentialDecay(fl["laws"]["spin_decay_time_s"]), fl["gravity_mps2"])
-    la = fl["launch"]
-    launch = LaunchState(np.array([la["position_m"]]), np.array([la["velocity_mps"]]),
-                         np.array([la["spin_radps"]]), np.array([la["spin_axis"]]))
-    t = np.array(fl["path"]["t_s"])
+    assert truth == scene.truth
+    fl = truth.flight
+    assert fl is not None and len(fl.frames) == fl.n_frames
+    model = FlightModel(
+        BB(fl.mass_kg, fl.diameter_m),
+        Air(**dataclasses.asdict(fl.air)),
+        ConstantDrag(fl.laws.drag_coefficient),
+        LinearLift(fl.laws.lift_slope),
+        ExponentialDecay(fl.laws.spin_decay_time_s),
+        fl.gravity_mps2,
+    )
+    la = fl.launch
+    launch = LaunchState(
+        la.position_m[None, :], la.velocity_mps[None, :], np.array([la.spin_radps]), la.spin_axis[None, :]
+    )
+    t = fl.path.t_s
     assert np.max(np.diff(t)) <= 2e-4 + 1e-12
-    traj = fly(model, launch, float(t[-1] - la["t_s"]) + 1e-3, step_s=2e-4)
-    st = traj.sample(t - la["t_s"])[0]
-    assert np.max(np.abs(st[:, 0] - fl["path"]["x_m"])) < REFLY_TOL_M
-    assert np.max(np.abs(st[:, 1] - fl["path"]["y_m"])) < REFLY_TOL_M
+    traj = fly(model, launch, float(t[-1] - la.t_s) + 1e-3, step_s=2e-4)
+    st = traj.sample(t - la.t_s)[0]
+    assert np.max(np.abs(st[:, 0] - fl.path.x_m)) < REFLY_TOL_M
+    assert np.max(np.abs(st[:, 1] - fl.path.y_m)) < REFLY_TOL_M
     # C_L at launch is the linear law at the launch spin ratio
-    cl0 = fl["laws"]["lift_slope"] * 0.5 * fl["bb"]["diameter_m"] * la["spin_radps"] / la["speed_mps"]
-    assert cl0 == pytest.approx(fl["laws"]["lift_coefficient"]["launch"], rel=1e-12)
-    json.dumps(truth)  # plain JSON types only
+    cl0 = fl.laws.lift_slope * 0.5 * fl.diameter_m * la.spin_radps / la.speed_mps
+    assert cl0 == pytest.approx(fl.laws.lift_coefficient_launch, rel=1e-12)
+    # the typed view and the file's own layout say the same
+    assert la.elevation_deg == pytest.approx(truth["flight"]["launch"]["elevation_deg"], abs=1e-12)
+    assert np.array_equal(fl.frames.visible, [f["visible"] for f in truth["flight"]["frames"]])
+    assert truth.spec == small_scene()
+    json.loads(truth.to_json())  # plain JSON types only
 
 
 def test_load_truth_rejects_another_schema(tmp_path):
@@ -235,8 +254,9 @@ def test_rolling_shutter_shifts_the_bb_by_its_image_velocity_times_the_row_delay
     readout = 4.0e-4
     base = small_scene(lighting=FLAT)
     cam = dataclasses.replace(base.camera, readout_s=readout)
-    on = prepare_scene(dataclasses.replace(base, camera=cam, image=dataclasses.replace(CLEAN, rolling_shutter=True)),
-                       rng=0)
+    on = prepare_scene(
+        dataclasses.replace(base, camera=cam, image=dataclasses.replace(CLEAN, rolling_shutter=True)), rng=0
+    )
     off = prepare_scene(dataclasses.replace(base, camera=cam, image=CLEAN), rng=0)
     fps = base.camera.fps
     h = base.camera.image_size[1]
@@ -246,10 +266,20 @@ def test_rolling_shutter_shifts_the_bb_by_its_image_velocity_times_the_row_delay
     assert len(inner) >= 6
     for f in inner[1:-1]:
         k = f["frame"]
-        c_off = _bb_centroid(off.flight_frame(k, quantise=False), off.flight_frame(k, quantise=False, bb=False),
-                             f["u_px"], f["v_px"], half=16)
-        c_on = _bb_centroid(on.flight_frame(k, quantise=False), on.flight_frame(k, quantise=False, bb=False),
-                            f["u_px"], f["v_px"], half=16)
+        c_off = _bb_centroid(
+            off.flight_frame(k, quantise=False),
+            off.flight_frame(k, quantise=False, bb=False),
+            f["u_px"],
+            f["v_px"],
+            half=16,
+        )
+        c_on = _bb_centroid(
+            on.flight_frame(k, quantise=False),
+            on.flight_frame(k, quantise=False, bb=False),
+            f["u_px"],
+            f["v_px"],
+            half=16,
+        )
         # image velocity from the global-shutter truth of the neighbouring frames, px/s
         prev, nxt = frames_off[k - 1], frames_off[k + 1]
         vel = np.array([nxt["u_px"] - prev["u_px"], nxt["v_px"] - prev["v_px"]]) * fps / 2.0
@@ -259,8 +289,9 @@ def test_rolling_shutter_shifts_the_bb_by_its_image_velocity_times_the_row_delay
         # and truth.json's own frame record (mid-exposure time at the BB's row) lands on it
         g = frames_on[k]
         assert math.hypot(c_on[0] - g["u_px"], c_on[1] - g["v_px"]) < CENTROID_TOL_PX
-        assert g["t_mid_s"] == pytest.approx(k / fps + g["v_px"] * readout / h + base.camera.exposure_s / 2,
-                                             abs=1e-9)
+        assert g["t_mid_s"] == pytest.approx(
+            k / fps + g["v_px"] * readout / h + base.camera.exposure_s / 2, abs=1e-9
+        )
 
 
 def _second_moment_along(diff: np.ndarray, r0: int, c0: int, direction: np.ndarray) -> float:
@@ -290,9 +321,12 @@ def test_motion_blur_streak_length_is_speed_times_exposure():
         k = f["frame"]
         r0, c0 = int(round(f["v_px"])) - half, int(round(f["u_px"])) - half
         cut = (slice(r0, r0 + 2 * half + 1), slice(c0, c0 + 2 * half + 1))
-        d_blur = np.abs(blur.flight_frame(k, quantise=False) - blur.flight_frame(k, quantise=False, bb=False))[cut]
-        d_still = np.abs(still.flight_frame(k, quantise=False)
-                         - still.flight_frame(k, quantise=False, bb=False))[cut]
+        d_blur = np.abs(
+            blur.flight_frame(k, quantise=False) - blur.flight_frame(k, quantise=False, bb=False)
+        )[cut]
+        d_still = np.abs(
+            still.flight_frame(k, quantise=False) - still.flight_frame(k, quantise=False, bb=False)
+        )[cut]
         nxt = truth[k + 1]
         direction = np.array([nxt["u_px"] - f["u_px"], nxt["v_px"] - f["v_px"]])
         direction /= np.linalg.norm(direction)
@@ -301,14 +335,22 @@ def test_motion_blur_streak_length_is_speed_times_exposure():
         length = math.sqrt(12.0 * (var_b - var_s))
         assert length == pytest.approx(f["streak_len_px"], rel=STREAK_REL_TOL)
         # the blurred streak is centred on the mid-exposure position
-        cu, cv = _bb_centroid(blur.flight_frame(k, quantise=False), blur.flight_frame(k, quantise=False, bb=False),
-                              f["u_px"], f["v_px"], half=half)
+        cu, cv = _bb_centroid(
+            blur.flight_frame(k, quantise=False),
+            blur.flight_frame(k, quantise=False, bb=False),
+            f["u_px"],
+            f["v_px"],
+            half=half,
+        )
         assert math.hypot(cu - f["u_px"], cv - f["v_px"]) < CENTROID_TOL_PX
         if f is not central:
             continue
         # near the principal point (no distortion), the streak is speed × exposure × f/Z
-        speed = np.interp(f["t_mid_s"], blur.flight_motion.t0_s + blur.plan.trajectory.t_s,
-                          blur.plan.trajectory.speed_mps[0])
+        speed = np.interp(
+            f["t_mid_s"],
+            blur.flight_motion.t0_s + blur.plan.trajectory.t_s,
+            blur.plan.trajectory.speed_mps[0],
+        )
         z_cam = blur.camera.to_camera(np.array([[f["x_m"], f["y_m"], f["z_m"]]]))[0, 2]
         expected_px = speed * exposure * blur.camera.camera_matrix[0, 0] / z_cam
         assert f["streak_len_px"] == pytest.approx(expected_px, rel=CENTRAL_SCALE_REL_TOL)
@@ -327,8 +369,11 @@ def test_marked_bb_brightness_flickers_at_the_spin_frequency():
 
     base = builtin_scene("lane-spin")
     spec = dataclasses.replace(
-        base, image=CLEAN,
-        lighting=dataclasses.replace(base.lighting, texture_contrast=0.0, gradient=0.0, flicker_amplitude=0.0),
+        base,
+        image=CLEAN,
+        lighting=dataclasses.replace(
+            base.lighting, texture_contrast=0.0, gradient=0.0, flicker_amplitude=0.0
+        ),
     )
     scene = prepare_scene(spec, rng=0)
     frames = _interior_frames(scene.true_flight_frames(), spec.camera.image_size, margin=15)
@@ -336,8 +381,9 @@ def test_marked_bb_brightness_flickers_at_the_spin_frequency():
     t = np.array([f["t_mid_s"] for f in frames])
     bright = []
     for f in frames:
-        diff = scene.flight_frame(f["frame"], quantise=False) - scene.flight_frame(f["frame"], quantise=False,
-                                                                                    bb=False)
+        diff = scene.flight_frame(f["frame"], quantise=False) - scene.flight_frame(
+            f["frame"], quantise=False, bb=False
+        )
         r, c = int(round(f["v_px"])), int(round(f["u_px"]))
         bright.append(float(diff[r - 14 : r + 15, c - 14 : c + 15].sum()))
     y = np.array(bright) - np.mean(bright)
@@ -360,14 +406,19 @@ def test_rerender_with_fewer_views_leaves_no_stale_views(tmp_path):
 def test_drop_clip_truth_lands_on_the_rendered_bb_and_falls_under_gravity():
     from hopscope.scenes import DropSpec
 
-    spec = small_scene(image=CLEAN, lighting=FLAT, drop=DropSpec(release_m=(0.15, 0.05, 0.0), lead_frames=2,
-                                                                 n_frames=60))
+    spec = small_scene(
+        image=CLEAN, lighting=FLAT, drop=DropSpec(release_m=(0.15, 0.05, 0.0), lead_frames=2, n_frames=60)
+    )
     scene = prepare_scene(spec, rng=0)
     frames = _interior_frames(scene.true_drop_frames(), spec.camera.image_size)
     assert len(frames) >= 50
     for f in frames[::10]:
-        cu, cv = _bb_centroid(scene.drop_frame(f["frame"], quantise=False),
-                              scene.drop_frame(f["frame"], quantise=False, bb=False), f["u_px"], f["v_px"])
+        cu, cv = _bb_centroid(
+            scene.drop_frame(f["frame"], quantise=False),
+            scene.drop_frame(f["frame"], quantise=False, bb=False),
+            f["u_px"],
+            f["v_px"],
+        )
         assert math.hypot(cu - f["u_px"], cv - f["v_px"]) < CENTROID_TOL_PX
     # free fall from rest, drag negligible at < 0.3 m/s: y = y0 − g t²/2 (Galileo), to 0.1 %
     t0 = scene.drop_plan()[2]
@@ -378,8 +429,12 @@ def test_drop_clip_truth_lands_on_the_rendered_bb_and_falls_under_gravity():
 
 
 def test_load_truth_names_a_missing_flight_field(tmp_path):
-    scene = render_scene(small_scene(lens=dataclasses.replace(small_scene().lens, n_views=0)), tmp_path / "s",
-                         rng=0, parts=("flight",))
+    scene = render_scene(
+        small_scene(lens=dataclasses.replace(small_scene().lens, n_views=0)),
+        tmp_path / "s",
+        rng=0,
+        parts=("flight",),
+    )
     data = json.loads(scene.truth_path.read_text())
     del data["flight"]["launch"]
     p = tmp_path / "broken.json"

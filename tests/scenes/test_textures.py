@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from hopscope.scenes import BoardSpec
-from hopscope.scenes.render import _box_filtered_square_wave, board_reflectance
+from hopscope.scenes.board import _box_filtered_square_wave, board_reflectance
 
 #: Box-filtered value vs a brute-force mean over 20,001 points of the footprint.
 FILTER_TOL = 2e-3
