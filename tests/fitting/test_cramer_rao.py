@@ -23,7 +23,7 @@ from scipy.integrate import solve_ivp
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import fit_shots
-from hopscope.fitting.observe import ModelSpec, simulate_shot
+from hopscope.fitting.observe import ModelSpec, ShotData, simulate_shot
 
 #: The fitter's σ and the bound computed here agree to this fraction (the issue's 1 %).
 CRAMER_RAO_RTOL = 0.01
@@ -99,3 +99,67 @@ def test_fitter_sigma_equals_the_computed_cramer_rao_bound(n_points, fps, speed,
     bound = _cramer_rao_sigma(theta, t, SIGMA_M, rho=air.density_kgm3, area=bb.area_m2, mass=bb.mass_kg)
     got = np.array([e.stderr_noise for e in fitted])
     np.testing.assert_allclose(got, bound, rtol=CRAMER_RAO_RTOL)
+
+
+#: Seeds for the statistical check of the error bars (see the docstring below for the sizing).
+N_SEEDS = 400
+#: Band for the RMS of z = (estimate − truth) / reported σ over the seeds.
+Z_RMS_BAND = (0.88, 1.13)
+#: Largest mean of z allowed (an estimator bias in units of σ): five standard errors of the mean at N = 400.
+BIAS_MAX_SIGMA = 0.25
+#: The band must reject error bars this many times too large or too small.
+SIGMA_MISSCALE = 1.3
+
+
+@pytest.fixture(scope="module")
+def z_scores():
+    bb, air = BB(2.5e-4), Air.standard()
+    spec = ModelSpec(bb, air)
+    t = np.arange(40) / 2000.0
+    truth = dict(speed_mps=100.0, elevation_rad=0.01, lift_coefficient=0.2, drag_param=0.45)
+    exact = simulate_shot(spec, t_s=t, sigma_m=SIGMA_M, rng=None, decay_param=1.0 / TAU_S, **truth)
+    gen = np.random.default_rng(20261202)
+    z = []
+    for _ in range(N_SEEDS):
+        noise = gen.normal(size=(2, t.size)) * SIGMA_M
+        shot = ShotData(t, exact.x_m + noise[0], exact.y_m + noise[1], exact.sigma_m, None, "seed")
+        fit = fit_shots([shot], bb=bb, air=air)
+        s = fit.shots[0]
+        z.append(
+            [
+                (e.value - v) / e.stderr
+                for e, v in (
+                    (s.speed_mps, truth["speed_mps"]),
+                    (s.elevation_rad, truth["elevation_rad"]),
+                    (s.lift_coefficient, truth["lift_coefficient"]),
+                    (fit.drag_coefficient, truth["drag_param"]),
+                )
+            ]
+        )
+    return np.array(z)
+
+
+def _rms(z):
+    return np.sqrt(np.mean(np.square(z), axis=0))
+
+
+def test_error_bars_are_honest_over_many_seeds(z_scores):
+    """Speed, elevation, C_L and C_D: the RMS of (estimate − truth)/σ over 400 noise draws lies in 0.88–1.13.
+
+    Sizing: for honest σ the RMS of N standard-normal z has a standard error ≈ 1/√(2N) = 0.035 (N = 400),
+    so the band is ±3.4 standard errors around 1 (a false failure has probability ≈ 7e-4 per parameter).
+    Error bars 1.3× too large give an RMS of 0.77 (band edge 4 standard errors away), 1.3× too small an
+    RMS of 1.3 (3.7 standard errors away): either fails with probability > 0.9999. The seeds are fixed, so
+    the verdict is reproducible. This supersedes the single-seed "within 4σ" checks of the fits in
+    ``tests/fitting/test_estimate.py`` (``Z_TOL``), which pass for error bars several times too large.
+    """
+    rms = _rms(z_scores)
+    assert np.all(rms > Z_RMS_BAND[0]) and np.all(rms < Z_RMS_BAND[1]), rms
+    assert np.all(np.abs(np.mean(z_scores, axis=0)) < BIAS_MAX_SIGMA), np.mean(z_scores, axis=0)
+
+
+@pytest.mark.parametrize("scale", [SIGMA_MISSCALE, 1.0 / SIGMA_MISSCALE])
+def test_the_band_rejects_error_bars_off_by_thirty_percent(z_scores, scale):
+    # the same draws with every reported σ multiplied by ``scale``: the band above must fail them
+    rms = _rms(z_scores / scale)
+    assert np.all((rms < Z_RMS_BAND[0]) | (rms > Z_RMS_BAND[1])), rms
