@@ -4,6 +4,27 @@ exit codes (0 success, 2 bad input or usage, 1 anything unexpected)."""
 from __future__ import annotations
 
 import os
+import signal
+import sys
+import threading
+
+from .errors import EXIT_INTERRUPTED
+
+
+def _interrupted_while_starting(_signum, _frame) -> None:  # pragma: no cover - timing-dependent
+    # Ctrl-C before main() is running (imports take about a second): one line and exit 130, no traceback.
+    # Nothing has been written yet, so there is nothing to clean up.
+    os.write(2, b"hopscope: interrupted\n")
+    os._exit(EXIT_INTERRUPTED)
+
+
+def _on_interrupt(handler) -> None:
+    if threading.current_thread() is threading.main_thread():  # signals go to the main thread only
+        signal.signal(signal.SIGINT, handler)
+
+
+# First of all: the heavy imports below and in the commands take about a second.
+_on_interrupt(_interrupted_while_starting)
 
 # The numerical work is many small matrices: BLAS threads only oversubscribe the cores (a joint fit's SVD
 # took 50x longer on a loaded 2-core machine). Set before numpy is first imported; the user may override.
@@ -13,8 +34,9 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import argparse  # noqa: E402
 import importlib  # noqa: E402
 import pkgutil  # noqa: E402
-import sys  # noqa: E402
+import re  # noqa: E402
 import warnings  # noqa: E402
+from pathlib import Path  # noqa: E402
 
 from . import __version__  # noqa: E402
 from .console import quiet_libraries  # noqa: E402
@@ -58,20 +80,23 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     debug = "--debug" in argv
-    if not debug:
-        quiet_libraries()
-        warnings.simplefilter("ignore")
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if not getattr(args, "command", None):
-        parser.print_help()
-        return EXIT_BAD_INPUT
-    prog = f"hopscope {args.command}"
+    prog = "hopscope"
     try:
+        # from here on Ctrl-C raises KeyboardInterrupt, so half-written files and locks are cleaned up
+        _on_interrupt(signal.default_int_handler)
+        if not debug:
+            quiet_libraries()
+            warnings.simplefilter("ignore")
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "command", None):
+            parser.print_help()
+            return EXIT_BAD_INPUT
+        prog = f"hopscope {args.command}"
         return int(args._run(args) or 0)
     except KeyboardInterrupt:
         print(f"{prog}: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_INTERRUPTED
     except (ValueError, OSError) as exc:
         if debug:
             raise
@@ -87,13 +112,33 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_UNEXPECTED
 
 
+#: The temporary name :func:`hopscope.shared.fileio.atomic_path` gives an output: ``.STEM.XXXX.partialSUFFIX``.
+_PARTIAL = re.compile(r"^\.(?P<stem>.*)\.[^.]+\.partial(?P<suffix>.*)$")
+
+
+def _user_path(name: str | os.PathLike[str] | bytes | int | None) -> str | None:
+    """A path as the user gave it: the output's own name in place of its temporary file's."""
+    if name is None or isinstance(name, bytes | int):
+        return None
+    p = Path(name)
+    m = _PARTIAL.match(p.name)
+    return str(p.with_name(m["stem"] + m["suffix"])) if m else str(p)
+
+
 def _one_line(exc: BaseException) -> str:
+    if isinstance(exc, OSError) and exc.filename is not None:
+        path = _user_path(exc.filename)
+        temporary = path != str(exc.filename)
+        if temporary and (isinstance(exc, IsADirectoryError) or Path(str(path)).is_dir()):
+            return f"{path}: is a folder; give the name of the file to write"
+        text = exc.strerror or str(exc)
+        return " ".join(f"{path}: {text}".split())
     text = str(exc) or type(exc).__name__
-    if isinstance(exc, OSError) and exc.filename and str(exc.filename) not in text:
-        text = f"{exc.filename}: {exc.strerror or text}"
-    elif isinstance(exc, OSError) and exc.filename and exc.strerror:
-        text = f"{exc.filename}: {exc.strerror}"
-    return " ".join(text.split())
+    return " ".join(_PARTIAL_IN_TEXT.sub(lambda m: m["stem"] + m["suffix"], text).split())
+
+
+#: A temporary output name inside a message (from a library that wrote it into its text).
+_PARTIAL_IN_TEXT = re.compile(r"\.(?P<stem>[^\s/]*)\.[^\s./]+\.partial(?P<suffix>[^\s:'\"]*)")
 
 
 if __name__ == "__main__":  # pragma: no cover

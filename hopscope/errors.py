@@ -9,3 +9,5 @@ from __future__ import annotations
 EXIT_OK = 0
 EXIT_UNEXPECTED = 1
 EXIT_BAD_INPUT = 2
+#: After Ctrl-C: 128 + SIGINT, the shells' convention. # common practice, no published source
+EXIT_INTERRUPTED = 130

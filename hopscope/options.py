@@ -9,11 +9,14 @@ from __future__ import annotations
 
 import argparse
 import math
+from pathlib import Path
+from typing import TYPE_CHECKING
 
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import DEFAULT_LOSS, LOSSES, ChronoPrior
 from hopscope.fitting.laws import DECAY_LAWS, DRAG_LAWS, LIFT_LAWS
+from hopscope.fitting.predict import DEFAULT_RANGE_M
 from hopscope.shared.constants import (
     DEFAULT_BB_DIAMETER_M,
     DEFAULT_HUMIDITY_PCT,
@@ -30,31 +33,39 @@ from hopscope.shared.units import (
     percent_to_fraction,
 )
 
+if TYPE_CHECKING:  # the app's glue and the tracker are imported when used (simulate needs neither)
+    from hopscope.pipeline import FitSettings, RunRequest
+    from hopscope.tracker.pipeline import TrackOptions
+
 #: Chronograph uncertainty when --chrono-mps gives none: 1 % of the reading.
 #: # common practice, no published source
 DEFAULT_CHRONO_REL_SIGMA = 0.01
 
 
+def _number(text: str, convert, ok, expected: str):
+    """argparse type helper: ``convert(text)`` when it parses and passes ``ok``, else a usage error."""
+    try:
+        v = convert(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}") from None
+    if not ok(v):
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}")
+    return v
+
+
 def positive_float(text: str) -> float:
     """argparse type: a finite number > 0."""
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not (math.isfinite(v) and v > 0):
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-    return v
+    return _number(text, float, lambda v: math.isfinite(v) and v > 0, "a positive number")
 
 
 def finite_float(text: str) -> float:
     """argparse type: a finite number."""
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return v
+    return _number(text, float, math.isfinite, "a finite number")
+
+
+def count(text: str) -> int:
+    """argparse type: a whole number >= 0."""
+    return _number(text, int, lambda v: v >= 0, "a whole number >= 0")
 
 
 def parse_chrono(text: str) -> tuple[float, float]:
@@ -76,7 +87,7 @@ def parse_chrono(text: str) -> tuple[float, float]:
 # ---------------------------------------------------------------------------------------------- BB, air
 
 
-def add_bb_options(parser: argparse.ArgumentParser, *, required: bool = True) -> None:
+def add_bb_options(parser: argparse._ActionsContainer, *, required: bool = True) -> None:
     """--mass-g and --diameter-mm. ``required=False`` (``simulate``, where a fit can give the BB): both
     default to None, and the command fills in the diameter's default before :func:`bb_from_args`."""
     parser.add_argument("--mass-g", required=required, type=finite_float, metavar="M", help="BB mass, g")
@@ -90,6 +101,13 @@ def add_bb_options(parser: argparse.ArgumentParser, *, required: bool = True) ->
 
 
 def bb_from_args(args: argparse.Namespace) -> BB:
+    # checked in the user's units, so the message echoes what was typed (not kilograms)
+    if not args.mass_g > 0:
+        raise ValueError(f"--mass-g: expected a positive mass in grams, got {args.mass_g:g} g")
+    if not args.diameter_mm > 0:
+        raise ValueError(
+            f"--diameter-mm: expected a positive diameter in millimetres, got {args.diameter_mm:g} mm"
+        )
     try:
         return BB(grams_to_kg(args.mass_g), mm_to_m(args.diameter_mm))
     except ValueError as exc:
@@ -177,16 +195,20 @@ def add_timing_options(parser: argparse.ArgumentParser, *, polarities) -> None:
     """--fps, --readout-ms, --exposure-ms and --polarity (as for ``hopscope track``)."""
     timing = parser.add_argument_group("timing")
     timing.add_argument(
-        "--fps", type=float, default=None, help="capture frame rate, Hz: replaces the container's timestamps"
+        "--fps",
+        type=float,
+        default=None,
+        metavar="F",
+        help="capture frame rate, frames/s (Hz): replaces the container's timestamps",
     )
     timing.add_argument(
         "--readout-ms",
         type=float,
         default=0.0,
-        help="rolling-shutter readout time, top to bottom row (default 0)",
+        help="rolling-shutter readout time, top to bottom row, ms (default 0)",
     )
     timing.add_argument(
-        "--exposure-ms", type=float, default=None, help="exposure time: times become mid-exposure"
+        "--exposure-ms", type=float, default=None, help="exposure time, ms: times become mid-exposure"
     )
     parser.add_argument(
         "--polarity",
@@ -203,3 +225,86 @@ def timing_seconds(args: argparse.Namespace) -> tuple[float | None, float, float
         ms_to_s(args.readout_ms),
         None if args.exposure_ms is None else ms_to_s(args.exposure_ms),
     )
+
+
+def track_options(args: argparse.Namespace) -> TrackOptions:
+    """The tracker's options from the timing options (SI)."""
+    from hopscope.tracker.pipeline import TrackOptions
+
+    fps, readout_s, exposure_s = timing_seconds(args)
+    return TrackOptions(fps_override=fps, readout_s=readout_s, exposure_s=exposure_s, polarity=args.polarity)
+
+
+# ---------------------------------------------------------------------------------------------- commands
+
+
+def add_track_inputs(parser: argparse.ArgumentParser) -> None:
+    """Track files and the BB and air they flew in (``fit`` and ``profile``)."""
+    parser.add_argument("tracks", nargs="+", metavar="TRACK.csv", help="track files (hopscope.track/1)")
+    add_bb_options(parser)
+    add_air_options(parser)
+
+
+def add_fit_options(parser: argparse.ArgumentParser) -> None:
+    """The chronograph prior and the laws (``fit`` and ``run``)."""
+    add_chrono_options(parser)
+    add_law_options(parser)
+
+
+def fit_settings(args: argparse.Namespace) -> FitSettings:
+    """How to fit, from the BB, air, chronograph and law options."""
+    from hopscope.pipeline import FitSettings
+
+    air, notes = air_from_args(args)
+    return FitSettings(
+        bb_from_args(args),
+        air,
+        args.drag,
+        args.lift,
+        args.decay,
+        chrono_from_args(args),
+        args.loss,
+        tuple(notes),
+    )
+
+
+def add_run_options(parser: argparse.ArgumentParser) -> None:
+    """``hopscope run``'s options (the demo parses the command line it builds with them)."""
+    from hopscope.tracker.pipeline import POLARITIES
+
+    parser.add_argument(
+        "videos", nargs="+", metavar="VIDEO", help="clips, or folders of clips (tracked in name order)"
+    )
+    parser.add_argument("--rig", required=True, help="rig.json from 'hopscope calibrate'")
+    add_bb_options(parser)
+    add_air_options(parser)
+    add_timing_options(parser, polarities=POLARITIES)
+    add_fit_options(parser)
+    parser.add_argument(
+        "--range-m",
+        type=positive_float,
+        default=DEFAULT_RANGE_M,
+        metavar="R",
+        help=f"distance of the report's predicted path, m (default {DEFAULT_RANGE_M:g})",
+    )
+    parser.add_argument("--title", help="title of the report (default: the first clip's name)")
+    parser.add_argument(
+        "--out",
+        required=True,
+        metavar="DIR",
+        help="output folder (created if missing; the files of an earlier run into it are replaced)",
+    )
+
+
+def run_request(args: argparse.Namespace, *, title: str | None = None) -> RunRequest:
+    """A checked :class:`hopscope.pipeline.RunRequest` from ``hopscope run``'s options (before slow work)."""
+    from hopscope.inputs import expand_videos
+    from hopscope.pipeline import RunRequest
+
+    settings = fit_settings(args)
+    track = track_options(args)
+    videos = expand_videos(args.videos)
+    rig = Path(args.rig)
+    if not rig.is_file():
+        raise FileNotFoundError(f"--rig {rig}: no such rig file")
+    return RunRequest(videos, rig, settings, track, Path(args.out), args.range_m, title or args.title)

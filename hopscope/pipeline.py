@@ -21,24 +21,29 @@ from pathlib import Path
 import numpy as np
 
 from hopscope.calibration.grid import GridSpec
-from hopscope.calibration.images import VIDEO_SUFFIXES, Progress, no_progress
+from hopscope.calibration.images import Progress, no_progress
 from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
-from hopscope.calibration.rig import Rig, rig_to_json
+from hopscope.calibration.rig import Rig, read_rig, rig_to_json
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from hopscope.fitting.fitfile import fit_to_json
-from hopscope.fitting.observe import ShotData
 from hopscope.fitting.predict import predict_path
-from hopscope.shared.fileio import atomic_path, write_text_atomic
+from hopscope.shared.fileio import atomic_path, write_bytes_atomic, write_text_atomic
 from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
-from hopscope.tracker.trackfile import read_track, track_to_csv
+from hopscope.tracker.trackfile import track_to_csv
 
 from . import __version__
+from .console import progress as progress_bar
+from .folders import RunFolder, run_folder
+from .inputs import expand_videos, shots_from_track, shots_from_tracks
 from .report import load_report_inputs, write_report
 from .report.build import DEFAULT_RANGE_M, SPAN_RANGE_M
+
+# re-exported: their documented place (DEVELOPERS.md) and the tests' import
+__all__ = ["expand_videos", "shots_from_track"]
 
 #: Output names of a run in its folder (one clip; several clips get ``track_<stem>.csv`` and so on).
 TRACK_NAME = "track.csv"
@@ -96,6 +101,7 @@ class RunPlan:
     videos : the clips, in order.
     track_paths, overlay_paths : per clip.
     fit_path, report_path : the joint fit and the combined report.
+    rig_path : the rig's copy in the folder (the report links it, so the folder can move as a whole).
     """
 
     videos: tuple[Path, ...]
@@ -103,45 +109,79 @@ class RunPlan:
     overlay_paths: tuple[Path, ...]
     fit_path: Path
     report_path: Path
+    rig_path: Path
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """How to fit tracks: the BB, the air, the laws, the chronograph prior and the robust loss.
+
+    Attributes
+    ----------
+    bb, air : the BB and the air (SI inside).
+    drag, lift, decay : law names (:mod:`fitting.laws`).
+    chrono : a chronograph prior, or None.
+    loss : robust loss asked for (used only when a residual calls for it).
+    notes : warnings made before the fit (for example defaulted air conditions), shown first.
+    """
+
+    bb: BB
+    air: Air
+    drag: str = "constant"
+    lift: str = "linear"
+    decay: str = "exponential"
+    chrono: ChronoPrior | None = None
+    loss: str = DEFAULT_LOSS
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class RunRequest:
+    """Everything ``hopscope run`` needs, checked and in SI (built by :func:`hopscope.options.run_request`).
+
+    Attributes
+    ----------
+    videos : the clips (expanded, existing, not empty).
+    rig_path : the rig file.
+    fit : how to fit.
+    track : the tracker's options (timing, polarity).
+    out : the output folder.
+    range_m : distance of the report's predicted path, m.
+    title : the report's title (None: the first clip's name).
+    """
+
+    videos: tuple[Path, ...]
+    rig_path: Path
+    fit: FitSettings
+    track: TrackOptions
+    out: Path
+    range_m: float = DEFAULT_RANGE_M
+    title: str | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class RunOutcome:
+    """What a run made.
+
+    Attributes
+    ----------
+    plan : where each output went.
+    clips : the tracked clips.
+    fitted : the joint fit.
+    report_path : the report written.
+    written : every file the run wrote into the folder, in order.
+    removed : files of the folder's earlier run that this run removed.
+    """
+
+    plan: RunPlan
+    clips: tuple[TrackedClip, ...]
+    fitted: FittedTracks
+    report_path: Path
+    written: tuple[Path, ...]
+    removed: tuple[Path, ...] = ()
 
 
 # ============================================================================================ inputs
-
-
-def expand_videos(items: Sequence[str | os.PathLike[str]], *, option: str = "VIDEO") -> tuple[Path, ...]:
-    """Expand clip arguments: files as given, folders to their video files (sorted by name).
-
-    Raises
-    ------
-    FileNotFoundError
-        An item that does not exist.
-    ValueError
-        A folder without video files, an empty file, or the same clip twice.
-    """
-    out: list[Path] = []
-    for item in items:
-        p = Path(item)
-        if p.is_dir():
-            found = sorted(f for f in p.iterdir() if f.is_file() and f.suffix.lower() in VIDEO_SUFFIXES)
-            if not found:
-                raise ValueError(f"{p}: the folder holds no video files ({', '.join(VIDEO_SUFFIXES)})")
-            out += found
-        elif p.is_file():
-            out.append(p)
-        else:
-            raise FileNotFoundError(f"{p}: no such video file or folder ({option})")
-    for p in out:
-        if p.stat().st_size == 0:
-            raise ValueError(f"{p}: the video file is empty")
-    seen: dict[Path, Path] = {}
-    for p in out:
-        key = p.resolve()
-        if key in seen:
-            raise ValueError(f"{p}: the same clip is given twice ({option})")
-        seen[key] = p
-    if not out:
-        raise ValueError(f"{option}: no clips given")
-    return tuple(out)
 
 
 def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan:
@@ -167,7 +207,7 @@ def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan
             stems[v.stem] = v
         tracks = tuple(out / f"track_{v.stem}.csv" for v in videos)
         overlays = tuple(out / f"overlay_{v.stem}.png" for v in videos)
-    return RunPlan(videos, tracks, overlays, out / FIT_NAME, out / REPORT_NAME)
+    return RunPlan(videos, tracks, overlays, out / FIT_NAME, out / REPORT_NAME, out / RIG_NAME)
 
 
 # ============================================================================================ steps
@@ -288,60 +328,29 @@ def track_to_files(
     )
 
 
-def shots_from_track(path: str | os.PathLike[str]) -> tuple[list[ShotData], dict, list[str]]:
-    """ShotData for every shot of a track file (labelled ``name#shot``), its input record and its warnings."""
-    track = read_track(path)
-    name = Path(path).name
-    shots = []
-    for sid in track.shot_ids:
-        t = track.select_shot(sid)
-        offsets = t.cal_offsets_m() if t.n_ensemble else None
-        try:
-            shots.append(
-                ShotData(t.t_s, t.x_m, t.y_m, t.sigma_m, offsets, f"{name}#{sid}", t.meta.rig_digest)
-            )
-        except ValueError as exc:
-            raise ValueError(f"{path}: {exc}") from None
-    record = {"path": str(path), "rig_digest": track.meta.rig_digest, "shots": [s.label for s in shots]}
-    warns = [f"{name}: {w}" for w in track.meta.warnings]
-    return shots, record, warns
-
-
 def fit_track_files(
-    track_paths: Sequence[str | os.PathLike[str]],
-    fit_path: str | os.PathLike[str],
-    *,
-    bb: BB,
-    air: Air,
-    drag: str = "constant",
-    lift: str = "linear",
-    decay: str = "exponential",
-    chrono: ChronoPrior | None = None,
-    loss: str = DEFAULT_LOSS,
-    notes: Sequence[str] = (),
+    track_paths: Sequence[str | os.PathLike[str]], fit_path: str | os.PathLike[str], settings: FitSettings
 ) -> FittedTracks:
     """Fit all shots of the track files jointly (one BB type) and write ``fit.json``.
 
-    ``notes`` are warnings made before the fit (for example defaulted air conditions); they go first in
-    the fit's warnings, followed by the tracks' own warnings and the fitter's.
+    The fit's warnings are the settings' notes, then the tracks' own warnings (and one when different
+    rigs mapped them), then the fitter's.
 
     Raises
     ------
     OSError, ValueError
         A missing or malformed track file (named), fewer points than parameters, bad options.
     """
-    shots: list[ShotData] = []
-    records = []
-    pre = list(notes)
-    for path in track_paths:
-        s, rec, w = shots_from_track(str(path))
-        shots += s
-        records.append(rec)
-        pre += w
-    result = fit_shots(shots, bb=bb, air=air, drag=drag, lift=lift, decay=decay, chrono=chrono, loss=loss)
+    tracks = shots_from_tracks(track_paths)
+    f = settings
+    result = fit_shots(
+        list(tracks.shots), bb=f.bb, air=f.air, drag=f.drag, lift=f.lift, decay=f.decay, chrono=f.chrono,
+        loss=f.loss,
+    )  # fmt: skip
+    pre = (*f.notes, *tracks.warnings)
     if pre:
         result = replace(result, warnings=tuple(pre) + result.warnings)
-    write_text_atomic(fit_path, fit_to_json(result, inputs=records))
+    write_text_atomic(fit_path, fit_to_json(result, inputs=tracks.records))
     return FittedTracks(Path(fit_path), result, tuple(Path(p) for p in track_paths))
 
 
@@ -373,32 +382,6 @@ def overlay_with_fit(clip: TrackedClip, fit: FlightFit, rig: Rig) -> None:
         write_overlay(tmp, clip.result, str(clip.video), fitted_uv=mine)
 
 
-def report_to_file(
-    report_path: str | os.PathLike[str],
-    fit_path: str | os.PathLike[str],
-    *,
-    track_paths: Sequence[str | os.PathLike[str]] = (),
-    rig_path: str | os.PathLike[str] | None = None,
-    range_m: float = DEFAULT_RANGE_M,
-    links: Sequence[tuple[str, str]] = (),
-    title: str | None = None,
-    write_figures: bool = True,
-) -> Path:
-    """Write the HTML report of a fit (with its tracks and rig) atomically; returns its path.
-
-    With ``write_figures`` the report's figures are also written beside it (``figure_<name>.png``).
-    """
-    inputs = load_report_inputs(
-        fit_path,
-        track_paths=[str(p) for p in track_paths],
-        rig_path=rig_path,
-        range_m=range_m,
-        links=links,
-        title=title,
-    )
-    return write_report(report_path, inputs, figures_dir=Path(report_path).parent if write_figures else None)
-
-
 def sibling_links(report_path: Path, paths: Iterable[Path | None]) -> tuple[tuple[str, str], ...]:
     """(label, href) links from the report to files beside it (hrefs relative to the report's folder)."""
     base = report_path.parent.resolve()
@@ -412,3 +395,73 @@ def sibling_links(report_path: Path, paths: Iterable[Path | None]) -> tuple[tupl
             href = Path(p).resolve().as_uri()
         out.append((Path(p).name, Path(href).as_posix()))
     return tuple(out)
+
+
+# ============================================================================================ run
+
+
+def run_to_folder(
+    request: RunRequest,
+    *,
+    folder: RunFolder | None = None,
+    on_warning: Callable[[str], None] = lambda _m: None,
+) -> RunOutcome:
+    """Track every clip, fit them jointly, draw the overlays and write the report into ``request.out``.
+
+    The folder is held for the run (:func:`hopscope.folders.run_folder`: a lock, the earlier run's files
+    removed, a manifest of what this run wrote) unless the caller already holds it (``folder``). The rig
+    is copied into the folder, so the report's link to it survives moving the folder. ``on_warning`` gets
+    the tracker's warnings as they come (the fit carries them too).
+
+    Raises
+    ------
+    OSError, ValueError
+        Unreadable inputs, no BB in a clip, another run holding the folder.
+    """
+    rig = read_rig(request.rig_path)
+    plan = plan_run(request.videos, request.out)
+    if folder is None:
+        with run_folder(request.out, keep=(request.rig_path, *request.videos), on_warning=on_warning) as held:
+            return _run_in(request, rig, plan, held, on_warning)
+    return _run_in(request, rig, plan, folder, on_warning)
+
+
+def _run_in(request: RunRequest, rig: Rig, plan: RunPlan, folder: RunFolder, on_warning) -> RunOutcome:
+    n = len(plan.videos)
+    clips: list[TrackedClip] = []
+    for i, (video, track_path, overlay_path) in enumerate(
+        zip(plan.videos, plan.track_paths, plan.overlay_paths, strict=True)
+    ):
+        desc = "tracking" if n == 1 else f"tracking {i + 1}/{n}"
+
+        def bar(frames, total, desc=desc):
+            return progress_bar(frames, total=total, desc=desc, unit="frame")
+
+        def warn_clip(w: str, video: Path = video) -> None:
+            on_warning(f"{video.name}: {w}" if n > 1 else w)
+
+        clip = track_to_files(
+            video, rig, request.track, track_path=track_path, rig_name=str(request.rig_path), progress=bar,
+            on_warning=warn_clip,
+        )  # fmt: skip
+        folder.own(track_path)
+        # the overlay is drawn once, after the fit, with the fitted path in it
+        clips.append(replace(clip, overlay_path=overlay_path))
+    fitted = fit_track_files(plan.track_paths, plan.fit_path, request.fit)
+    folder.own(plan.fit_path)
+    for clip in clips:
+        overlay_with_fit(clip, fitted.result, rig)
+        folder.own(clip.overlay_path)
+    if request.rig_path.resolve() != plan.rig_path.resolve():  # the report links the folder's own copy
+        write_bytes_atomic(plan.rig_path, request.rig_path.read_bytes())
+        folder.own(plan.rig_path)
+    links = sibling_links(
+        plan.report_path, [*plan.overlay_paths, *plan.track_paths, plan.fit_path, plan.rig_path]
+    )
+    title = request.title or (plan.videos[0].stem if n == 1 else f"{n} clips")
+    inputs = load_report_inputs(
+        plan.fit_path, track_paths=plan.track_paths, rig_path=plan.rig_path, range_m=request.range_m,
+        links=links, title=title,
+    )  # fmt: skip
+    folder.own(*write_report(plan.report_path, inputs, figures_dir=plan.report_path.parent))
+    return RunOutcome(plan, tuple(clips), fitted, plan.report_path, folder.owned, folder.removed)

@@ -11,6 +11,18 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 PACKAGES = ["calibration", "tracker", "fitting", "shared", "hopscope", "tests"]
+#: Files not yet run through ``ruff format`` (their owners had changes in progress when the check came in):
+#: each owner formats theirs and takes it off this list. Every other file is checked.
+NOT_YET_FORMATTED = (
+    "calibration/grid.py",
+    "fitting/flyto.py",
+    "tests/bench/bench_render.py",
+    "tests/bench/corner_detectors.py",
+    "tests/scenes/test_builtin.py",
+    "tests/scenes/test_lane_close.py",
+    "tests/scenes/test_render.py",
+    "tracker/background.py",
+)
 
 
 def _run(cmd: list[str]) -> subprocess.CompletedProcess[str]:
@@ -22,6 +34,15 @@ def test_ruff_lint_is_clean():
     if ruff is None:  # installed with the test extras; absence is a broken environment, not a skip
         pytest.fail("ruff is not installed (pip install -e '.[test]')")
     res = _run([ruff, "check", *PACKAGES])
+    assert res.returncode == 0, res.stdout + res.stderr
+
+
+def test_ruff_format_is_clean():
+    ruff = shutil.which("ruff")
+    if ruff is None:
+        pytest.fail("ruff is not installed (pip install -e '.[test]')")
+    excluded = [arg for path in NOT_YET_FORMATTED for arg in ("--exclude", path)]
+    res = _run([ruff, "format", "--check", "--force-exclude", *excluded, *PACKAGES])
     assert res.returncode == 0, res.stdout + res.stderr
 
 
@@ -66,8 +87,12 @@ def test_install_has_one_import_name(tmp_path):
         "    print(name, spec.origin if spec else None)\n"
     )
     # Run outside the checkout, so only what the install put on sys.path can be found.
-    res = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    res = subprocess.run(
+        [sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, timeout=120
+    )
     assert res.returncode == 0, res.stderr
     for line in res.stdout.splitlines():
         name, origin = line.split(" ", 1)
-        assert origin == "None" or not origin.startswith(str(ROOT)), f"top-level {name!r} importable: {origin}"
+        assert origin == "None" or not origin.startswith(str(ROOT)), (
+            f"top-level {name!r} importable: {origin}"
+        )

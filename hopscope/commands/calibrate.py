@@ -16,13 +16,14 @@ import argparse
 from hopscope import __version__
 from hopscope.calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
 from hopscope.calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
-from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
+from hopscope.calibration.pipeline import calibrate_files
 from hopscope.calibration.rig import rig_to_json
 from hopscope.console import progress, summary, warn
-from hopscope.options import finite_float, positive_float
+from hopscope.options import count, finite_float, positive_float
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 from hopscope.shared.fileio import write_text_atomic
 from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s
+from hopscope.summaries import calibration_rows
 
 NAME = "calibrate"
 HELP = "calibrate the camera and the flight plane from grid images and write rig.json"
@@ -32,16 +33,6 @@ DESCRIPTION = (
     "offset downrange from the first placement), optionally check g, frame rate and level from a drop clip "
     "(--drop), and write rig.json with the calibration's uncertainty ensemble."
 )
-
-
-def _count(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"expected a count >= 0, got {text!r}")
-    return v
 
 
 def register(parser: argparse.ArgumentParser) -> None:
@@ -75,7 +66,7 @@ def register(parser: argparse.ArgumentParser) -> None:
         "--drop-fps",
         type=positive_float,
         metavar="F",
-        help="frame rate of the drop clip (overrides its timestamps)",
+        help="frame rate of the drop clip, frames/s (overrides its timestamps)",
     )
     parser.add_argument(
         "--drop-readout-ms",
@@ -119,7 +110,7 @@ def register(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--ensemble",
-        type=_count,
+        type=count,
         default=DEFAULT_ENSEMBLE_SIZE,
         metavar="N",
         help=f"members of the calibration-uncertainty ensemble (default {DEFAULT_ENSEMBLE_SIZE}; 0 for none)",
@@ -157,71 +148,5 @@ def run(args: argparse.Namespace) -> int:
     write_text_atomic(args.output, rig_to_json(result.rig))
     for w in result.rig.warnings:
         warn(w)
-    print(summary(f"rig written to {args.output}", summary_rows(result)))
+    print(summary(f"rig written to {args.output}", calibration_rows(result)))
     return 0
-
-
-def summary_rows(result: CalibrationRun) -> list[tuple[str, str]]:
-    """The one-screen summary: views, RMS, focal length ± σ, plane distance, scale, edge errors, drop."""
-    rig, lens, fig = result.rig, result.lens, result.figures
-    rows = [
-        ("views used / rejected", f"{len(lens.views_used)} / {len(lens.views_rejected)}"),
-    ]
-    for name, reason in lens.views_rejected[:6]:
-        rows.append(("  rejected", f"{name}: {reason}"))
-    if len(lens.views_rejected) > 6:
-        rows.append(("  rejected", f"... and {len(lens.views_rejected) - 6} more (see rig.json provenance)"))
-    rows += [
-        ("reprojection RMS", f"{lens.rms_px:.3f} px (frame coverage {lens.frame_coverage:.0%})"),
-        ("worst view", _worst_view(lens)),
-        ("focal length", f"{fig.focal_px:.2f} ± {fig.focal_std_px:.2f} px"),
-        ("principal point", f"({rig.camera_matrix[0, 2]:.1f}, {rig.camera_matrix[1, 2]:.1f}) px"),
-        ("plane distance", f"{fig.plane_distance_m:.3f} m"),
-        ("scale at centre", f"{fig.mm_per_px_centre:.3f} mm/px, field width {fig.field_width_m:.2f} m"),
-    ]
-    plane = rig.provenance.get("plane", {})
-    for p in plane.get("placements", []):
-        rows.append(("  placement", f"{p['image']} at {p['offset_m']:g} m: residual {p['rms_px']:.3f} px"))
-    x0, x1, y0, y1 = rig.coverage_m
-    rows.append(("plane references cover", f"x {x0:.2f}..{x1:.2f} m, y {y0:.2f}..{y1:.2f} m"))
-    if fig.edge_error_mm:
-        e = fig.edge_error_mm
-        rows.append(
-            (
-                "mapping error (1σ)",
-                f"left edge {e['left']:.2f} mm, right edge {e['right']:.2f} mm, corners {e['corners']:.2f} mm "
-                f"({len(rig.ensemble)} ensemble members)",
-            )
-        )
-    else:
-        rows.append(("mapping error", "not estimated (--ensemble 0)"))
-    if rig.plane_z_m:
-        rows.append(("flight plane", f"{m_to_mm(rig.plane_z_m):.1f} mm in front of the board (parallax)"))
-    d = rig.drop_check
-    if d is not None:
-        if d.g_measured_mps2 is None or d.tilt_deg is None:
-            rows.append(("drop check", f"failed: {d.reason}"))
-        else:
-            g, t = d.g_measured_mps2, d.tilt_deg
-            kept = f", likely cause: {d.likely_cause} (kept by --keep-failed-drop)" if d.failed else ""
-            rows.append(
-                (
-                    "drop check",
-                    f"g = {g.value:.4f} ± {g.stderr:.4f} m/s² (expected {d.g_expected_mps2:.4f}): {d.verdict}{kept}",
-                )
-            )
-            rows.append(
-                (
-                    "level",
-                    f"tilt {t.value:+.3f} ± {t.stderr:.3f}°, {'levelled' if d.levelled else 'board taken as level'}",
-                )
-            )
-    rows.append(("rig digest", rig.digest[:16]))
-    return rows
-
-
-def _worst_view(lens) -> str:
-    if not lens.per_view_rms_px:
-        return "-"
-    i = max(range(len(lens.per_view_rms_px)), key=lambda j: lens.per_view_rms_px[j])
-    return f"{lens.views_used[i]}: {lens.per_view_rms_px[i]:.3f} px"

@@ -17,18 +17,19 @@ from __future__ import annotations
 
 import argparse
 import math
+import shutil
 import time
 from collections.abc import Iterator
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from hopscope.commands import run as run_command
-from hopscope.commands.calibrate import summary_rows as calibration_rows
+from hopscope import options
 from hopscope.console import progress, summary, warn
+from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.fitting.estimate import Estimate
-from hopscope.pipeline import RIG_NAME, calibrate_scene
+from hopscope.folders import run_folder
+from hopscope.pipeline import RIG_NAME, calibrate_scene, run_to_folder
 from hopscope.scenes import builtin_scene, render_scene
 from hopscope.shared.units import (
     fraction_to_percent,
@@ -39,6 +40,7 @@ from hopscope.shared.units import (
     rad_to_deg,
     s_to_ms,
 )
+from hopscope.summaries import Comparison, calibration_rows, comparison_rows, show_run
 
 NAME = "demo"
 HELP = "render a built-in demo scene (invented data) and run the whole job on it: recovered vs true values"
@@ -58,36 +60,7 @@ DEFAULT_OUT = "hopscope-demo"
 PARALLAX_SIGMA_MM = 0.5
 
 
-@dataclass(frozen=True)
-class Comparison:
-    """One recovered quantity beside its true value (user units).
-
-    Attributes
-    ----------
-    name, unit : what and in which unit.
-    recovered, stderr : the fit's value and standard error (None when not determined).
-    truth : the scene's true value.
-    """
-
-    name: str
-    unit: str
-    recovered: float | None
-    stderr: float | None
-    truth: float
-
-    @property
-    def relative_error(self) -> float | None:
-        """(recovered − truth) / truth, or None."""
-        if self.recovered is None or self.truth == 0:
-            return None
-        return (self.recovered - self.truth) / self.truth
-
-    @property
-    def deviation_sigma(self) -> float | None:
-        """(recovered − truth) / σ, or None."""
-        if self.recovered is None or not self.stderr:
-            return None
-        return (self.recovered - self.truth) / self.stderr
+__all__ = ["Comparison"]  # the recovered-vs-true row, defined with its presenter
 
 
 def register(parser: argparse.ArgumentParser) -> None:
@@ -145,34 +118,27 @@ def run_argv(rendered, rig_path: Path, out: Path) -> list[str]:
     flight = rendered.truth["flight"]
     cam = rendered.truth["camera"]
     bb, air = flight["bb"], flight["air"]
-    argv = [
-        str(rendered.flight_clip_path),
-        "--rig",
-        str(rig_path),
-        "--mass-g",
-        repr(kg_to_grams(float(bb["mass_kg"]))),
-        "--diameter-mm",
-        repr(m_to_mm(float(bb["diameter_m"]))),
-        "--temp-c",
-        repr(kelvin_to_celsius(float(air["temperature_k"]))),
-        "--pressure-hpa",
-        repr(pa_to_hpa(float(air["pressure_pa"]))),
-        "--humidity-pct",
-        repr(fraction_to_percent(float(air["relative_humidity"]))),
-        "--readout-ms",
-        repr(s_to_ms(float(cam["readout_s"]))),
-        "--exposure-ms",
-        repr(s_to_ms(float(cam["exposure_s"]))),
-        "--out",
-        str(out),
-    ]
+    given = {
+        "--rig": str(rig_path),
+        "--mass-g": kg_to_grams(float(bb["mass_kg"])),
+        "--diameter-mm": m_to_mm(float(bb["diameter_m"])),
+        "--temp-c": kelvin_to_celsius(float(air["temperature_k"])),
+        "--pressure-hpa": pa_to_hpa(float(air["pressure_pa"])),
+        "--humidity-pct": fraction_to_percent(float(air["relative_humidity"])),
+        "--readout-ms": s_to_ms(float(cam["readout_s"])),
+        "--exposure-ms": s_to_ms(float(cam["exposure_s"])),
+        "--out": str(out),
+    }
+    argv = [str(rendered.flight_clip_path)]
+    for option, value in given.items():
+        argv += [option, value if isinstance(value, str) else repr(value)]
     return argv
 
 
 def parse_run_argv(argv: list[str]) -> argparse.Namespace:
     """Parse a ``hopscope run`` command line with the run command's own option definitions."""
     parser = argparse.ArgumentParser(prog="hopscope run", add_help=False)
-    run_command.register(parser)
+    options.add_run_options(parser)
     return parser.parse_args(argv)
 
 
@@ -212,53 +178,54 @@ def compare_with_truth(fit, truth: dict) -> list[Comparison]:
     ]
 
 
-def comparison_rows(rows: list[Comparison]) -> list[tuple[str, str]]:
-    """Lines of the recovered-vs-true table."""
-    out = []
-    for c in rows:
-        unit = f" {c.unit}" if c.unit else ""
-        if c.recovered is None:
-            out.append((c.name, f"not determined (true {c.truth:.6g}{unit})"))
-            continue
-        sig = "± ?" if c.stderr is None else f"± {c.stderr:.2g}"
-        rel = "" if c.relative_error is None else f", {100 * c.relative_error:+.3f} %"
-        dev = "" if c.deviation_sigma is None else f", {c.deviation_sigma:+.2f} σ"
-        out.append((c.name, f"{c.recovered:.6g} {sig}{unit}  true {c.truth:.6g}{unit}{rel}{dev}"))
-    return out
+def render_into(spec, folder: Path, *, seed: int):
+    """Render the scene into ``folder`` (a cache hit when it is complete); a render that fails or is
+    interrupted removes the folder again, so no half-rendered scene is left behind.
+
+    A scene folder is complete when it holds ``truth.json``: the renderer removes it before rendering and
+    writes it last (atomically).
+    """
+    bars = _StageBars()
+    try:
+        return render_scene(spec, folder, rng=seed, progress=bars)
+    except BaseException:
+        if not (folder / "truth.json").is_file():
+            shutil.rmtree(folder, ignore_errors=True)
+        raise
+    finally:
+        bars.close()
 
 
 def run(args: argparse.Namespace) -> int:
     wall0, cpu0 = time.perf_counter(), time.process_time()
     out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise ValueError(f"--out {out}: exists and is not a folder")
     spec = builtin_scene(args.scene)
-    out.mkdir(parents=True, exist_ok=True)
-    bars = _StageBars()
-    try:
-        rendered = render_scene(spec, out / f"scene-{args.scene}", rng=args.seed, progress=bars)
-    finally:
-        bars.close()
-    if rendered.flight_clip_path is None:  # pragma: no cover - the demo scenes all have a flight clip
-        raise ValueError(f"scene {args.scene}: has no flight clip")
-    t_render = time.perf_counter() - wall0
-    rig_path = out / RIG_NAME
-    cal = calibrate_scene(
-        rendered,
-        rig_path,
-        seed=args.seed,
-        parallax_mm=flight_line_offset_mm(rendered.truth),
-        parallax_sigma_mm=PARALLAX_SIGMA_MM,
-        progress=lambda items: progress(items, desc="lens views", unit="view"),
-    )
-    for w in cal.rig.warnings:
-        warn(w)
-    t_cal = time.perf_counter() - wall0 - t_render
-    print(summary(f"calibration ({args.scene}, demo data, invented): {rig_path}", calibration_rows(cal)))
-    run_args = parse_run_argv(run_argv(rendered, rig_path, out))
-    outcome = run_command.execute(run_args, title=f"hopscope demo: {args.scene} (demo data, invented)")
+    with run_folder(out, on_warning=warn) as folder:
+        rendered = render_into(spec, out / f"scene-{args.scene}", seed=args.seed)
+        if rendered.flight_clip_path is None:  # pragma: no cover - the demo scenes all have a flight clip
+            raise ValueError(f"scene {args.scene}: has no flight clip")
+        t_render = time.perf_counter() - wall0
+        rig_path = out / RIG_NAME
+        cal = calibrate_scene(
+            rendered,
+            rig_path,
+            seed=args.seed,
+            parallax_mm=flight_line_offset_mm(rendered.truth),
+            parallax_sigma_mm=PARALLAX_SIGMA_MM,
+            progress=lambda items: progress(items, desc="lens views", unit="view"),
+        )
+        folder.own(rig_path)
+        for w in cal.rig.warnings:
+            warn(w)
+        t_cal = time.perf_counter() - wall0 - t_render
+        print(summary(f"calibration ({args.scene}, demo data, invented): {rig_path}", calibration_rows(cal)))
+        request = options.run_request(
+            parse_run_argv(run_argv(rendered, rig_path, out)),
+            title=f"hopscope demo: {args.scene} (demo data, invented)",
+        )
+        outcome = run_to_folder(request, folder=folder, on_warning=warn)
     t_run = time.perf_counter() - wall0 - t_render - t_cal
-    code = run_command.report_outcome(outcome, title=f"hopscope demo: {args.scene}")
+    show_run(outcome, f"hopscope demo: {args.scene}")
     rows = comparison_rows(compare_with_truth(outcome.fitted.result, rendered.truth))
     rows.append(
         (
@@ -268,4 +235,4 @@ def run(args: argparse.Namespace) -> int:
         )
     )
     print(summary(f"recovered vs true ({args.scene}, demo data, invented)", rows))
-    return code
+    return EXIT_OK if outcome.fitted.result.converged else EXIT_UNEXPECTED

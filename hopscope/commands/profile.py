@@ -8,15 +8,14 @@ shot's lift coefficient, with uncertainties (:func:`fitting.profile.build_profil
 from __future__ import annotations
 
 import argparse
-import math
-from pathlib import Path
 
+from hopscope import options
+from hopscope.console import summary, warn
 from hopscope.fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
+from hopscope.folders import check_output_file
+from hopscope.inputs import shots_from_tracks
 from hopscope.shared.fileio import atomic_path
-
-from .. import options
-from ..console import summary, warn
-from ..pipeline import shots_from_track
+from hopscope.summaries import profile_rows
 
 NAME = "profile"
 HELP = "pool shots of one BB type into a drag/lift profile (C_D vs Reynolds number, C_L per shot)"
@@ -29,9 +28,7 @@ DESCRIPTION = (
 
 
 def register(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("tracks", nargs="+", metavar="TRACK.csv", help="track files (hopscope.track/1)")
-    options.add_bb_options(parser)
-    options.add_air_options(parser)
+    options.add_track_inputs(parser)
     parser.add_argument(
         "--bins",
         type=int,
@@ -55,18 +52,15 @@ def register(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    out = Path(args.output)
+    out = check_output_file(args.output)
     if out.suffix.lower() != ".json":
         raise ValueError(f"{out}: -o must name a .json file (the .csv is written beside it)")
     if args.bins < 1:
         raise ValueError(f"--bins: expected a positive number of bins, got {args.bins}")
     bb = options.bb_from_args(args)
     air, notes = options.air_from_args(args)
-    shots = []
-    for path in args.tracks:
-        s, _record, track_warnings = shots_from_track(path)
-        shots += s
-        notes += track_warnings
+    tracks = shots_from_tracks(args.tracks)
+    shots = list(tracks.shots)
     if len(shots) < 2:
         raise ValueError(f"{', '.join(args.tracks)}: a profile needs at least two shots, found {len(shots)}")
     prof = build_profile(
@@ -81,16 +75,8 @@ def run(args: argparse.Namespace) -> int:
     with atomic_path(out) as tmp_json, atomic_path(csv_path) as tmp_csv:
         tmp_json.write_text(profile_to_json(prof), encoding="utf-8")
         tmp_csv.write_text(profile_to_csv(prof), encoding="utf-8")
-    for w in (*notes, *prof.warnings):
+    for w in (*notes, *tracks.warnings, *prof.warnings):
         warn(w)
-    rows = [("shots", f"{len(shots)} from {len(args.tracks)} track file(s)")]
-    for b in prof.drag:
-        cd = "not determined" if b.cd is None else f"{b.cd:.4f} ± {b.cd_stderr or 0.0:.2g}"
-        rows.append((f"C_D, Re {b.re_lo:.3g}..{b.re_hi:.3g}", f"{cd} ({b.n_shots} shots)"))
-    tau = prof.spin_decay_time_s
-    rows.append(
-        ("spin decay τ", "not determined" if tau is None or not math.isfinite(tau) else f"{tau:.3g} s")
-    )
-    rows.append(("wrote", f"{out}, {csv_path}"))
+    rows = profile_rows(prof, n_shots=len(shots), n_files=len(args.tracks), written=(out, csv_path))
     print(summary("hopscope profile", rows))
     return 0

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 
-from ..console import summary, warn
-from ..report import load_report_inputs, write_report
-from ..report.build import DEFAULT_RANGE_M
+from hopscope.console import summary, warn
+from hopscope.folders import check_output_file
+from hopscope.report import load_report_inputs, write_report
+from hopscope.report.build import DEFAULT_RANGE_M
 
 NAME = "report"
 HELP = "write an HTML report (figures, parameter table, warnings, cautions) from fit.json"
@@ -42,9 +42,7 @@ def register(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    out = Path(args.output)
-    if out.is_dir():
-        raise ValueError(f"{out}: -o must name a file, not a folder")
+    out = check_output_file(args.output)
     inputs = load_report_inputs(
         args.fit, track_paths=args.tracks, rig_path=args.rig, range_m=args.range_m, title=args.title
     )

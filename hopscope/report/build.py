@@ -462,15 +462,17 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
 
 def write_report(
     out: str | os.PathLike[str], inputs: ReportInputs, *, figures_dir: str | os.PathLike[str] | None = None
-) -> Path:
-    """Render and write the report atomically; returns the path.
+) -> list[Path]:
+    """Render and write the report atomically; returns the paths written (the report first).
 
     With ``figures_dir`` the figures are also written there as ``figure_<name>.png`` (each atomically), for
     use outside the page; the page itself embeds them either way.
     """
     html, figs = _render(inputs)
+    written = [Path(out)]
     if figures_dir is not None:
         for key, png in figs:
-            write_bytes_atomic(Path(figures_dir) / f"figure_{key}.png", png)
+            written.append(Path(figures_dir) / f"figure_{key}.png")
+            write_bytes_atomic(written[-1], png)
     write_text_atomic(out, html)
-    return Path(out)
+    return written

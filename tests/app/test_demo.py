@@ -21,7 +21,7 @@ from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.fitfile import read_fit
-from hopscope.pipeline import fit_track_files
+from hopscope.pipeline import FitSettings, fit_track_files
 from hopscope.scenes import load_truth
 from hopscope.shared.units import celsius_to_kelvin, grams_to_kg, hpa_to_pa, mm_to_m, percent_to_fraction
 
@@ -146,7 +146,7 @@ def test_demo_fit_step_repeats_exactly(close, tmp_path):
         celsius_to_kelvin(args.temp_c), hpa_to_pa(args.pressure_hpa), percent_to_fraction(args.humidity_pct)
     )
     assert bb.mass_kg == pytest.approx(rendered_truth["flight"]["bb"]["mass_kg"], rel=1e-15)
-    fit_track_files([d / "track.csv"], tmp_path / "fit.json", bb=bb, air=air)
+    fit_track_files([d / "track.csv"], tmp_path / "fit.json", FitSettings(bb, air))
     assert json.loads((tmp_path / "fit.json").read_text()) == json.loads(close["fit_text"])
 
 

@@ -17,14 +17,15 @@ from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.fitfile import read_fit
 from hopscope.pipeline import (
+    FitSettings,
     calibrate_scene,
     expand_videos,
     fit_track_files,
     plan_run,
-    report_to_file,
     sibling_links,
     track_to_files,
 )
+from hopscope.report import load_report_inputs, write_report
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
 from hopscope.shared.units import mm_to_m
 from hopscope.tracker.pipeline import TrackOptions
@@ -181,8 +182,9 @@ def tracked(scene, tmp_path_factory):
 
 def test_fit_track_files_is_deterministic_and_keeps_notes_first(tracked, tmp_path):
     bb, air = BB(MASS_KG), Air.standard()
-    a = fit_track_files([tracked.track_path], tmp_path / "a.json", bb=bb, air=air, notes=("a note",))
-    b = fit_track_files([tracked.track_path], tmp_path / "b.json", bb=bb, air=air, notes=("a note",))
+    settings = FitSettings(bb, air, notes=("a note",))
+    a = fit_track_files([tracked.track_path], tmp_path / "a.json", settings)
+    b = fit_track_files([tracked.track_path], tmp_path / "b.json", settings)
     assert (tmp_path / "a.json").read_text() == (tmp_path / "b.json").read_text()
     assert a.result.warnings[0] == "a note"
     fit = read_fit(tmp_path / "a.json")
@@ -193,22 +195,26 @@ def test_fit_track_files_is_deterministic_and_keeps_notes_first(tracked, tmp_pat
 
 def test_fit_track_files_missing_track_writes_nothing(tmp_path):
     with pytest.raises(OSError, match=r"gone\.csv"):
-        fit_track_files([tmp_path / "gone.csv"], tmp_path / "fit.json", bb=BB(MASS_KG), air=Air.standard())
+        fit_track_files(
+            [tmp_path / "gone.csv"], tmp_path / "fit.json", FitSettings(BB(MASS_KG), Air.standard())
+        )
     assert list(tmp_path.iterdir()) == []
 
 
-def test_report_to_file_links_and_tables(scene, tracked, tmp_path):
-    fitted = fit_track_files([tracked.track_path], tmp_path / "fit.json", bb=BB(MASS_KG), air=Air.standard())
+def test_report_links_and_tables(scene, tracked, tmp_path):
+    settings = FitSettings(BB(MASS_KG), Air.standard())
+    fitted = fit_track_files([tracked.track_path], tmp_path / "fit.json", settings)
     links = (("overlay.png", "overlay.png"),)
-    path = report_to_file(
-        tmp_path / "report.html",
+    inputs = load_report_inputs(
         fitted.fit_path,
         track_paths=[tracked.track_path],
         rig_path=scene["rig_path"],
         links=links,
         title="pipeline test",
     )
-    html = path.read_text(encoding="utf-8")
+    written = write_report(tmp_path / "report.html", inputs, figures_dir=tmp_path)
+    assert written[0] == tmp_path / "report.html" and all(p.is_file() for p in written)
+    html = written[0].read_text(encoding="utf-8")
     assert 'href="overlay.png"' in html and "pipeline test" in html
     assert _partials(tmp_path) == []
 

@@ -19,6 +19,7 @@ from hopscope.calibration.rig import read_rig
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import read_fit
+from hopscope.folders import MANIFEST_NAME
 from hopscope.pipeline import calibrate_scene, fitted_paths_px, shots_from_track
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
 from hopscope.tracker.overlay import FIT_COLOUR
@@ -94,10 +95,12 @@ def test_run_one_clip_writes_everything(one_run):
     rc, out = one_run
     assert rc == EXIT_OK
     assert sorted(p.name for p in out.iterdir()) == [
+        MANIFEST_NAME,
         *ONE_SHOT_FIGURES,
         "fit.json",
         "overlay.png",
         "report.html",
+        "rig.json",
         "track.csv",
     ]
     for name in ONE_SHOT_FIGURES:
@@ -158,12 +161,14 @@ def test_run_folder_of_clips_fits_jointly(inputs, tmp_path):
     assert rc == EXIT_OK
     names = sorted(p.name for p in out.iterdir())
     assert names == [
+        MANIFEST_NAME,
         *ONE_SHOT_FIGURES,
         "figure_spread.png",
         "fit.json",
         "overlay_shot_a.png",
         "overlay_shot_b.png",
         "report.html",
+        "rig.json",
         "track_shot_a.csv",
         "track_shot_b.csv",
     ]
@@ -171,6 +176,14 @@ def test_run_folder_of_clips_fits_jointly(inputs, tmp_path):
     assert len(data["shots"]) == 2
     html = (out / "report.html").read_text(encoding="utf-8")
     assert 'href="overlay_shot_a.png"' in html and 'href="overlay_shot_b.png"' in html
+    # the same folder again, one clip: the earlier run's per-clip files and spread figure go, a file of
+    # the user's stays
+    (out / "notes.txt").write_text("mine")
+    assert _run(_base(inputs, out)) == EXIT_OK
+    assert sorted(p.name for p in out.iterdir()) == sorted(
+        [MANIFEST_NAME, *ONE_SHOT_FIGURES, "fit.json", "notes.txt", "overlay.png", "report.html", "rig.json",
+         "track.csv"]
+    )  # fmt: skip
 
 
 def test_run_and_demo_help(capsys):
