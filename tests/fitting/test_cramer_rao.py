@@ -143,6 +143,7 @@ def _rms(z):
     return np.sqrt(np.mean(np.square(z), axis=0))
 
 
+@pytest.mark.slow
 def test_error_bars_are_honest_over_many_seeds(z_scores):
     """Speed, elevation, C_L and C_D: the RMS of (estimate − truth)/σ over 400 noise draws lies in 0.88–1.13.
 
@@ -158,6 +159,7 @@ def test_error_bars_are_honest_over_many_seeds(z_scores):
     assert np.all(np.abs(np.mean(z_scores, axis=0)) < BIAS_MAX_SIGMA), np.mean(z_scores, axis=0)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("scale", [SIGMA_MISSCALE, 1.0 / SIGMA_MISSCALE])
 def test_the_band_rejects_error_bars_off_by_thirty_percent(z_scores, scale):
     # the same draws with every reported σ multiplied by ``scale``: the band above must fail them
