@@ -54,9 +54,12 @@ MIN_POINTS = 8
 #: A peak is reported as a spin only when its false-alarm probability is at most this.
 #: # common practice, no published source (the 1 % level is the usual choice in periodogram work)
 DEFAULT_MAX_FALSE_ALARM = 0.01
-#: Plausible spin band of a BB from a hop-up, rad/s (about 10 to 4000 rev/s).
-#: # common practice, no published source
-DEFAULT_RATE_BAND_RADPS = (2.0 * math.pi * 10.0, 2.0 * math.pi * 4000.0)
+#: Plausible spin band of a BB from a hop-up, rad/s (10 to 3000 rev/s: a spin ratio S = rω/u of 0.4 at
+#: 140 m/s is about 3000 rev/s for a 6 mm BB).  # common practice, no published source
+DEFAULT_RATE_BAND_RADPS = (2.0 * math.pi * 10.0, 2.0 * math.pi * 3000.0)
+#: Fewest flicker cycles (as sampled) a series must hold for its flicker to be searched: below two cycles
+#: a sinusoid and the slow brightness trend cannot be told apart.  # common practice, no published source
+MIN_CYCLES = 2.0
 #: Trial frequencies per periodogram peak width 1/T.
 #: VanderPlas (2018), "Understanding the Lomb-Scargle periodogram", ApJS 236:16, §7.1 (5–10). # from memory
 DEFAULT_OVERSAMPLE = 10
@@ -625,12 +628,13 @@ def _measure(
     f_lo = c * lo_w / (2.0 * math.pi)
     f_hi = c * hi_w / (2.0 * math.pi)
     nyquist = 0.5 * fs
-    search_lo = max(f_lo, 1.0 / span) if f_hi < nyquist else 1.0 / span
+    search_lo = max(f_lo, MIN_CYCLES / span) if f_hi < nyquist else MIN_CYCLES / span
     search_hi = min(f_hi, nyquist)
     if not search_lo < search_hi:
         return _no_spin(
             base,
-            f"series too short: {span * 1e3:.3g} ms holds less than one flicker cycle of the plausible band",
+            f"series too short: {span * 1e3:.3g} ms holds fewer than {MIN_CYCLES:g} flicker cycles of the "
+            "plausible band",
         )
 
     # slow trend out, then the search
