@@ -40,8 +40,8 @@ from .specfile import packaged_scene
 
 #: The close lane's 9×6 board of 50 mm squares (inner corners span 0.40 m × 0.25 m).
 ONE_BOARD = BoardSpec(cols=9, rows=6, square_m=0.05, margin_m=0.03)
-#: Camera distance giving a ~2.8 m field at 1280 px and f = 1000 px (w·Z/f), m.
-ONE_BOARD_CAMERA_Z_M = 2.19
+#: Camera distance giving a ~2.8 m field at 1280 px and f = 1000 px (w·Z/f less the barrel distortion), m.
+ONE_BOARD_CAMERA_Z_M = 2.02
 #: Board placements of the three-placement variant: left, centre (the world origin), right, m.
 THREE_PLACEMENTS_M = (0.0, -0.95, 0.95)
 
