@@ -57,3 +57,54 @@ class BB:
     def kinetic_energy_j(self, speed_mps: float) -> float:
         """Translational kinetic energy ½ m v², J."""
         return 0.5 * self.mass_kg * speed_mps * speed_mps
+
+
+#: Default standard uncertainty of a BB's mass, as a fraction of the nominal mass: 1 %, i.e. a bag's stated
+#: weight taken as good to ±2 % at about 95 % (k = 2).  # common practice, no published source
+DEFAULT_MASS_REL_SIGMA = 0.01
+
+#: Default standard uncertainty of a BB's diameter, m: 0.01 mm (a 5.95 mm BB good to ±0.02 mm at k = 2).
+#: # common practice, no published source
+DEFAULT_DIAMETER_SIGMA_M = 1e-5
+
+
+@dataclass(frozen=True)
+class BBTolerance:
+    """Standard uncertainties of a BB's mass and diameter (SI).
+
+    Attributes
+    ----------
+    mass_sigma_kg : standard uncertainty of the mass, kg (≥ 0).
+    diameter_sigma_m : standard uncertainty of the diameter, m (≥ 0).
+    origin : where they come from, e.g. ``"given"`` or ``"default"`` (carried into the output).
+
+    Notes
+    -----
+    A trajectory fixes the drag and lift *accelerations* q·C_D·u² and q·C_L·u², q = ½ρA/m ∝ d²/m, so at a
+    fixed measured path C_D and C_L (and the aerodynamic decay's torque slope) scale as m/d²: their
+    relative standard uncertainty from the BB is √((σ_m/m)² + (2σ_d/d)²). The kinetic energy ½mv² scales
+    as m (speed is measured kinematically). The predicted path does not depend on m or d at all.
+    """
+
+    mass_sigma_kg: float
+    diameter_sigma_m: float
+    origin: str = "given"
+
+    def __post_init__(self) -> None:
+        for name in ("mass_sigma_kg", "diameter_sigma_m"):
+            v = getattr(self, name)
+            if not (math.isfinite(v) and v >= 0):
+                raise ValueError(f"{name} must be a finite number >= 0, got {v!r}")
+
+    @classmethod
+    def default_for(cls, bb: BB) -> BBTolerance:
+        """The default tolerance (:data:`DEFAULT_MASS_REL_SIGMA`, :data:`DEFAULT_DIAMETER_SIGMA_M`)."""
+        return cls(DEFAULT_MASS_REL_SIGMA * bb.mass_kg, DEFAULT_DIAMETER_SIGMA_M, "default")
+
+    def mass_rel(self, bb: BB) -> float:
+        """σ_m / m."""
+        return self.mass_sigma_kg / bb.mass_kg
+
+    def aero_rel(self, bb: BB) -> float:
+        """Relative standard uncertainty of C_D and C_L from the BB, √((σ_m/m)² + (2σ_d/d)²)."""
+        return math.hypot(self.mass_sigma_kg / bb.mass_kg, 2.0 * self.diameter_sigma_m / bb.diameter_m)

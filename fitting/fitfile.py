@@ -9,7 +9,8 @@ determine the quantity)::
     warnings      [one line each]
     inputs        {"tracks": [{"path", "rig_digest", "shots": [labels]}], "chronograph": null or
                    {"speed_mps", "sigma_mps", "muzzle_x_m"}}
-    bb            {"mass_kg", "diameter_m"}
+    bb            {"mass_kg", "diameter_m"; with the BB tolerance in the error bars also "mass_sigma_kg",
+                   "diameter_sigma_m", "tolerance_origin"}
     air           {"temperature_k", "pressure_pa", "relative_humidity", "density_kgm3", "viscosity_pas"}
     model         {"drag", "lift", "decay", "lift_k", "sphere_correlation", "gravity_mps2", "wind_mps",
                    "loss" (of the final fit), "loss_requested", "f_scale_sigma", "method", "decay_fixed_value", "spin_note", "residuals"}
@@ -29,6 +30,10 @@ determine the quantity)::
                    BIC = robust_chi2 + k ln n over all n residuals)
     parameters    {"names", "values", "free", "covariance" (free × free), "correlation" (free × free),
                    "covariance_calibration" (free × free)}
+
+Estimates also carry ``stderr_bb`` and ``bb_share`` (the BB mass/diameter tolerance's part, null when not
+included). Muzzle state (``shots[i].muzzle``, ``group``) and ``energy_limit`` are added by
+:func:`fitting.decisionfile.add_decisions`.
 
 Residuals are observed − model. ``speed_mps`` is along the direction of flight; ``elevation_deg`` above
 horizontal. Stage I/O serialises to text; the app writes the file atomically.
@@ -86,6 +91,8 @@ def estimate_to_dict(e: Estimate | None, scale: float = 1.0) -> dict[str, float 
         "stderr_noise": sc(e.stderr_noise),
         "stderr_calibration": sc(e.stderr_calibration),
         "calibration_share": _num(e.calibration_share),
+        "stderr_bb": sc(e.stderr_bb),
+        "bb_share": _num(e.bb_share),
     }
 
 
@@ -102,7 +109,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
     inputs : one entry per track file, ``{"path": str, "rig_digest": str | None, "shots": [labels]}``.
     """
     spec = result.spec
-    air, bb = spec.air, spec.bb
+    air = spec.air
     note = SPIN_NOTE_LINEAR.format(k=spec.lift_k) if spec.lift == "linear" else SPIN_NOTE_SATURATING
     st = result.statistics
     shots = []
@@ -144,7 +151,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
         "reason": result.reason,
         "warnings": list(result.warnings),
         "inputs": {"tracks": [dict(i) for i in inputs], "chronograph": chrono},
-        "bb": {"mass_kg": bb.mass_kg, "diameter_m": bb.diameter_m},
+        "bb": _bb_dict(result),
         "air": {
             "temperature_k": air.temperature_k,
             "pressure_pa": air.pressure_pa,
@@ -201,6 +208,18 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
             "covariance_calibration": _matrix(result.covariance_calibration),
         },
     }
+
+
+def _bb_dict(result: FlightFit) -> dict[str, Any]:
+    bb, tol = result.spec.bb, result.bb_tolerance
+    out: dict[str, Any] = {"mass_kg": bb.mass_kg, "diameter_m": bb.diameter_m}
+    if tol is not None:
+        out.update(
+            mass_sigma_kg=tol.mass_sigma_kg,
+            diameter_sigma_m=tol.diameter_sigma_m,
+            tolerance_origin=tol.origin,
+        )
+    return out
 
 
 def fit_to_json(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) -> str:
@@ -263,7 +282,8 @@ class _Reader:
         cal = (
             self.number(e, "stderr_calibration", path, allow_null=True) if "stderr_calibration" in e else None
         )
-        return Estimate(value, stderr, noise, cal)
+        bb = self.number(e, "stderr_bb", path, allow_null=True) if "stderr_bb" in e else None
+        return Estimate(value, stderr, noise, cal, bb)
 
     def vector(self, obj, key, where, n: int | None = None) -> np.ndarray:
         v = self.get(obj, key, where)

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .bb import BBTolerance
 from .layout import ParamLayout
 from .observe import ModelSpec, RowParams
 
@@ -60,13 +61,23 @@ class Estimate:
     stderr: float | None
     stderr_noise: float | None = None
     stderr_calibration: float | None = None
+    #: the part due to the BB's mass and diameter tolerance (see :func:`fitting.bb.with_bb_share`), or None
+    stderr_bb: float | None = None
 
     @property
     def calibration_share(self) -> float | None:
         """Fraction of the variance due to the calibration (0..1), or None."""
-        if self.stderr is None or self.stderr_calibration is None or not self.stderr > 0:
+        return self._share(self.stderr_calibration)
+
+    @property
+    def bb_share(self) -> float | None:
+        """Fraction of the variance due to the BB's mass and diameter tolerance (0..1), or None."""
+        return self._share(self.stderr_bb)
+
+    def _share(self, part: float | None) -> float | None:
+        if self.stderr is None or part is None or not self.stderr > 0:
             return None
-        return float(min(1.0, (self.stderr_calibration / self.stderr) ** 2))
+        return float(min(1.0, (part / self.stderr) ** 2))
 
 
 @dataclass(frozen=True)
@@ -221,6 +232,8 @@ class FlightFit:
     loss: str = DEFAULT_LOSS
     f_scale_sigma: float = DEFAULT_F_SCALE
     loss_requested: str = DEFAULT_LOSS
+    #: the BB's mass and diameter tolerance when it is in the error bars (:func:`fitting.bbshare.apply_bb_tolerance`)
+    bb_tolerance: BBTolerance | None = None
 
     @property
     def layout(self) -> ParamLayout:
