@@ -11,13 +11,19 @@ Opposite doubts at the two edges (the flight line not parallel to the board) cha
 along the path, which reads as extra or missing deceleration: ΔC_D/C_D ≈ 2 ε′ / (q C_D) with ε′ the scale's
 gradient (1/m) and q = ρA/2m — about 1 % for ±0.5 mm at these distances. An equal doubt at both edges only
 rescales the field uniformly (by 2.6e-4) and moves C_D by that fraction.
+
+The file also holds the statistical replacement of the single-seed lens check (``SIGMA_EXPLAINS`` in
+``test_lens.py``): the reported σ of the intrinsics against their actual scatter over many calibrations.
 """
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
+from calib_synth import IMAGE_SIZE, TRUE_K, synthetic_lens_views
 
+from hopscope.calibration.grid import GridSpec
+from hopscope.calibration.lens import calibrate_lens
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import fit_shots
@@ -97,3 +103,44 @@ def test_an_equal_doubt_at_both_edges_hardly_moves_cd(lane):
     base = _cd(shot, bb, air)
     moved = _cd(_mapped(shot, distance, foot, edges, DOUBT_M, DOUBT_M), bb, air)
     assert abs(moved / base - 1.0) < UNIFORM_SHIFT_MAX
+
+
+# ------------------------------------------------------------------------------------------ lens σ, many seeds
+
+#: Calibrations, each from 12 fresh synthetic views (new poses and noise) of a 9×6 board.
+LENS_SEEDS = 400
+#: Band for the RMS of z = (estimate − truth)/reported σ; sized as in tests/fitting/test_cramer_rao.py:
+#: standard error 1/√(2·400) = 0.035, so ±3.4 standard errors; σ 1.3× too large (RMS 0.77) or too small
+#: (RMS 1.3) fails with probability > 0.9999.
+LENS_Z_RMS_BAND = (0.88, 1.13)
+LENS_MISSCALE = 1.3
+
+
+@pytest.fixture(scope="module")
+def lens_z():
+    spec = GridSpec(9, 6, 0.04)
+    z = []
+    for seed in range(LENS_SEEDS):
+        cal = calibrate_lens(synthetic_lens_views(spec, 12, np.random.default_rng(5000 + seed)), IMAGE_SIZE)
+        k, sd = cal.camera_matrix, cal.intrinsics_std
+        z.append(
+            [
+                (k[0, 0] - TRUE_K[0, 0]) / sd["fx"],
+                (k[1, 1] - TRUE_K[1, 1]) / sd["fy"],
+                (k[0, 2] - TRUE_K[0, 2]) / sd["cx"],
+                (k[1, 2] - TRUE_K[1, 2]) / sd["cy"],
+            ]
+        )
+    return np.array(z)
+
+
+@pytest.mark.slow
+def test_lens_intrinsics_sigma_is_honest_over_many_calibrations(lens_z):
+    # Zhang (2000), IEEE TPAMI 22:1330, through OpenCV's calibrateCameraExtended (its standard deviations of
+    # the intrinsics): over 400 independent calibrations the reported σ of fx, fy, cx, cy match the actual
+    # scatter. Supersedes the single-seed SIGMA_EXPLAINS = 4 check of test_lens.py.
+    rms = np.sqrt(np.mean(np.square(lens_z), axis=0))
+    assert np.all((rms > LENS_Z_RMS_BAND[0]) & (rms < LENS_Z_RMS_BAND[1])), rms
+    for scale in (LENS_MISSCALE, 1.0 / LENS_MISSCALE):  # the band rejects σ 30 % off either way
+        off = rms / scale
+        assert np.all((off < LENS_Z_RMS_BAND[0]) | (off > LENS_Z_RMS_BAND[1])), (scale, off)
