@@ -268,3 +268,63 @@ def with_crossing_distractor(
         description=f"{spec.description}; a {polarity} blob crossing the BB's path",
         clutter=clutter,
     )
+
+
+# ============================================================================================ perturbed truths
+
+
+@dataclasses.dataclass(frozen=True)
+class Perturbation:
+    """How far :func:`perturbed_scene` moves a scene's truth (uniform draws, each side of the base value).
+
+    Attributes
+    ----------
+    speed_rel : relative change of the launch speed.
+    elevation_deg : change of the launch elevation, degrees.
+    lift_rel : relative change of C_L at launch (so of the spin).
+    decay_factor : the spin-decay time is multiplied by a log-uniform factor in [1/f, f].
+    camera_shift_m : shift of the camera centre and of its aim point in x and y, m.
+    roll_deg : change of the camera's roll, degrees.
+    """
+
+    speed_rel: float = 0.08
+    elevation_deg: float = 0.3
+    lift_rel: float = 0.4
+    decay_factor: float = 2.0
+    camera_shift_m: float = 0.02
+    roll_deg: float = 0.3
+
+
+def perturbed_scene(
+    spec: SceneSpec, rng: int | np.random.Generator, perturbation: Perturbation = Perturbation()
+) -> SceneSpec:
+    """``spec`` with its shot (speed, elevation, lift, decay) and camera pose drawn around the base values.
+
+    For error-bar coverage over many truths: each draw is a new, equally valid scene (demo data, invented).
+    The name gains no suffix; the digest (and so the render cache) differs with the draw.
+    """
+    gen = np.random.default_rng(rng)
+    p = perturbation
+    f = spec.flight
+    c = spec.camera
+
+    def u(half: float) -> float:
+        return float(gen.uniform(-half, half))
+
+    decay = f.spin_decay_time_s * math.exp(u(math.log(p.decay_factor)))
+    flight = dataclasses.replace(
+        f,
+        speed_mps=f.speed_mps * (1.0 + u(p.speed_rel)),
+        elevation_deg=f.elevation_deg + u(p.elevation_deg),
+        lift_coefficient=f.lift_coefficient * (1.0 + u(p.lift_rel)),
+        spin_decay_time_s=decay,
+    )
+    shift = (u(p.camera_shift_m), u(p.camera_shift_m))
+    aim = (u(p.camera_shift_m), u(p.camera_shift_m))
+    camera = dataclasses.replace(
+        c,
+        position_m=(c.position_m[0] + shift[0], c.position_m[1] + shift[1], c.position_m[2]),
+        look_at_m=(c.look_at_m[0] + aim[0], c.look_at_m[1] + aim[1], c.look_at_m[2]),
+        roll_deg=c.roll_deg + u(p.roll_deg),
+    )
+    return dataclasses.replace(spec, camera=camera, flight=flight)

@@ -278,3 +278,25 @@ def test_playback_timed_copy_has_the_same_frames_at_the_playback_times(tmp_path,
 def test_playback_copy_of_a_missing_file_names_it(tmp_path):
     with pytest.raises(OSError, match=r"missing\.mp4: cannot open video"):
         write_playback_timed_copy(tmp_path / "missing.mp4", tmp_path / "out.mp4", playback_fps=30.0)
+
+
+def test_perturbed_truths_stay_within_their_bounds_and_differ_by_seed():
+    from hopscope.scenes.variants import Perturbation, perturbed_scene
+
+    base = builtin_scene("lane-close")
+    p = Perturbation()
+    draws = [perturbed_scene(base, seed) for seed in range(20)]
+    assert perturbed_scene(base, 3) == draws[3]  # reproducible for a seed
+    assert len({d.digest(0) for d in draws}) == len(draws)
+    for d in draws:
+        f = d.flight
+        assert abs(f.speed_mps / base.flight.speed_mps - 1) <= p.speed_rel
+        assert abs(f.elevation_deg - base.flight.elevation_deg) <= p.elevation_deg
+        assert abs(f.lift_coefficient / base.flight.lift_coefficient - 1) <= p.lift_rel
+        assert 1 / p.decay_factor <= f.spin_decay_time_s / base.flight.spin_decay_time_s <= p.decay_factor
+        assert max(abs(a - b) for a, b in zip(d.camera.position_m, base.camera.position_m, strict=True)) <= (
+            p.camera_shift_m
+        )
+        assert (d.board, d.lens, d.plane, d.bb) == (base.board, base.lens, base.plane, base.bb)
+    speeds = np.array([d.flight.speed_mps for d in draws])
+    assert np.ptp(speeds) > p.speed_rel * base.flight.speed_mps  # the draws do spread
