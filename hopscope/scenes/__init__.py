@@ -1,16 +1,24 @@
 """Synthetic scenes with known truth: the renderer behind ``hopscope demo`` and the end-to-end tests.
 
-Demo data, invented: the built-in scenes are our own scenario (an indoor test lane and an outdoor dusk
-lane); no real equipment or measurements.
+Demo data, invented: the built-in scenes are our own scenario (an indoor test lane, an outdoor dusk lane,
+a spin close-up, and their variants); no real equipment or measurements.
 
 Public API
 ----------
-``SceneSpec`` (and its parts in :mod:`hopscope.scenes.spec`), ``builtin_scene(name)``, ``BUILTIN_SCENES``,
+``SceneSpec`` (and its parts in :mod:`hopscope.scenes.spec`), ``builtin_scene(name)``, ``BUILTIN_SCENES``
+(the lanes in ``builtin/*.toml`` and the variants of :mod:`hopscope.scenes.variants`),
 ``render_scene(spec, out_dir, *, rng=0, progress=None, parts=ALL_PARTS) -> RenderedScene``,
-``load_truth(path)``, ``load_scene(path)`` (TOML, tables named like the spec's parts) and
-``spec_from_dict(data)``, ``prepare_scene(spec, rng=...)`` (camera, flight and frames without files),
+``load_truth(path) -> SceneTruth`` (typed; ``truth[key]`` reads the file's own layout below),
+``load_scene(path)`` (TOML, tables named like the spec's parts) and ``spec_from_dict(data)``,
+``prepare_scene(spec, rng=...)`` (camera, flight and frames without files),
 ``render_board_image(camera, board, R, t, ...)``, ``project_board_corners(camera, board, R, t)``,
-``board_corners(board)``, ``SceneCamera``, ``small_scene(**changes)`` (a 320×240 scene for fast tests).
+``board_corners(board)``, ``SceneCamera``, ``small_scene(**changes)`` (a 320×240 scene for fast tests),
+``with_crossing_distractor(spec, polarity=...)``, ``lane_spin_variant(...)``,
+``write_playback_timed_copy(clip, out, playback_fps=...)`` (the same frames with slow-motion timestamps).
+
+Modules: ``spec``/``rules``/``specfile`` (what a scene is), ``camera``, ``board``, ``poses``, ``lighting``,
+``motion``, ``bbimage``, ``clutter``, ``context``/``clip`` (frames), ``sensor`` (noise, files), ``truth``,
+``render`` (the scene as files), ``catalogue``/``variants`` (built-in scenes), ``playback``.
 
 truth.json (schema ``hopscope.truth/1``)
 ----------------------------------------
@@ -38,7 +46,8 @@ frame k at k/fps); row r of frame k is exposed over [k/fps + r·readout/rows, ..
                       coordinates; the first placement (offset 0) has the scene camera's own pose
     drop              null, or {file, fps, n_frames, g_mps2, gravity_direction [0, -1, 0],
                       release {t_s, position_m}, model (text), path {...}, frames [...]} (same layout as
-                      the flight's path and frames)
+                      the flight's path and frames); with a holder also holder {frames (at rest before
+                      the release), x_m [2], y_m [2] (the bar's extent in the plane)}
     flight            {file, n_frames, fps,
                        bb {kind, mass_kg, diameter_m, mark_phase_rad},
                        air {temperature_k, pressure_pa, relative_humidity, density_kgm3, viscosity_pas},
