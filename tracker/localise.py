@@ -15,9 +15,11 @@ The spot is always fitted; the streak is fitted too when the blob is elongated, 
 the residual sum of squares by more than :data:`STREAK_GAIN_SIGMA2` noise variances.
 
 The uncertainty is the least-squares covariance σ²(JᵀJ)⁻¹ of the fit (J the model's Jacobian at the
-optimum), with σ the local noise: the robust spread (1.4826·MAD) of the residuals outside the blob. When
-the blob's own residuals are larger than that (photon noise on a bright BB, a shape the model does not
-follow) the covariance is the sandwich (JᵀJ)⁻¹ Jᵀ diag(σᵢ²) J (JᵀJ)⁻¹ with the larger σ inside the blob.
+optimum), with σ the local noise: the robust spread (1.4826·MAD) of the residuals outside the blob, never
+below the caller's floor (the quantisation of 8-bit video), times a factor for spatially correlated noise
+(:func:`correlation_factor`). A blob's residuals from a symmetric shape the model does not follow (a disk
+fitted by a Gaussian) do not move its centre and are not counted. No σ is below the Cramér–Rao bound of
+a spot with the fitted signal and width in that noise (:func:`spot_position_bound_px`).
 
 Conventions: pixel (u, v) = (col, row), the centre of the top-left pixel at (0, 0).
 
@@ -55,6 +57,11 @@ MIN_AMPLITUDE_SNR = 5.0
 #: A fitted width below this is a noise spike or a defective pixel, not a BB's image, px.
 MIN_WIDTH_PX = 0.45
 
+#: Least noise σ of a difference of 8-bit video, grey levels: rounding a frame to whole grey levels adds
+#: a uniform error of variance 1/12 (the quantisation noise of a uniform quantiser, e.g. Widrow & Kollár
+#: 2008, Quantization Noise, ch. 4).  # from memory
+QUANTISATION_NOISE_DN = 1.0 / math.sqrt(12.0)
+
 #: Sensor top code value: a blob reaching it is flagged ``saturated`` (8-bit video).
 SATURATION_LEVEL = 254.5
 
@@ -83,6 +90,7 @@ class Detection:
     snr : |amplitude| / its standard error.
     flags : tokens from :data:`tracker.trackfile.FLAG_TOKENS`.
     reason : empty for a good detection, else why it failed.
+    sigma_floor_px : the noise bound on σ_u and σ_v (:func:`spot_position_bound_px`), px; neither is below it.
     """
 
     frame: int
@@ -99,6 +107,7 @@ class Detection:
     snr: float
     flags: tuple[str, ...] = ()
     reason: str = ""
+    sigma_floor_px: float = float("nan")
 
     @property
     def ok(self) -> bool:
@@ -343,6 +352,7 @@ def localise(
     raw: np.ndarray | None = None,
     guess_uv: tuple[float, float] | None = None,
     max_streak_px: float | None = None,
+    noise_floor: float = 0.0,
 ) -> Detection:
     """Fit a spot (and, if elongated, a streak) to a background-subtracted window.
 
@@ -355,6 +365,8 @@ def localise(
     raw : the frame's grey levels in the window (to flag saturation), optional.
     guess_uv : coarse centre, full-image px, optional (else the window's signal centroid).
     max_streak_px : upper bound on L, px (default: the window's diagonal).
+    noise_floor : least noise σ of the difference image, grey levels (the quantisation of 8-bit video:
+        :data:`QUANTISATION_NOISE_DN`).
 
     Returns
     -------
@@ -417,13 +429,14 @@ def localise(
     p = best.x
     amp, s_fit, c_fit = float(p[2]), float(p[3]), float(p[-1])
     excess = (streak_model(p, x, y) if kind == "streak" else spot_model(p, gx, gy)) - c_fit
-    noise = _background_sigma(best.fun, excess, amp)
-    corr = correlation_factor(
-        best.fun.reshape(rows, cols), np.abs(excess.reshape(rows, cols)) < 0.02 * abs(amp)
-    )
+    noise = max(_background_sigma(best.fun, excess, amp, d), noise_floor)
+    inside = np.abs(excess) >= 0.02 * abs(amp)
+    corr = correlation_factor(best.fun.reshape(rows, cols), ~inside.reshape(rows, cols))
     sig2 = np.full(x.shape, noise * noise)
     cov = _covariance(best.jac, sig2) * corr
     su, sv, sa = (math.sqrt(max(float(cov[i, i]), 0.0)) for i in (0, 1, 2))
+    floor = spot_position_bound_px(abs(float(excess.sum())), s_fit, noise)
+    su, sv = max(su, floor), max(sv, floor)
     u = float(p[0]) + c0
     v = float(p[1]) + r0
     if not best.success:
@@ -460,7 +473,30 @@ def localise(
         noise=noise,
         snr=float(snr),
         flags=tuple(flags),
+        sigma_floor_px=floor,
     )
+
+
+def spot_position_bound_px(total: float, width_px: float, noise: float) -> float:
+    """Least standard error of a spot's centre per axis the image noise allows (Cramér–Rao bound), px.
+
+    For a spot of integrated signal N (grey levels × px) and Gaussian width s on pixels of side a = 1 px
+    with background noise b per pixel (grey levels), the background-limited bound is
+    var = 8π σ_a⁴ b² / (a² N²), σ_a² = s² + a²/12 (the second term of Thompson, Larson & Webb 2002; the
+    pixelation term of Mortensen et al. 2010). The spot's own photon noise only adds to it, and a streak
+    or a disk of the same signal is located no better, so no position σ may be smaller.
+
+    References
+    ----------
+    Thompson, R. E., Larson, D. R., Webb, W. W. (2002). Precise nanometer localization analysis for
+    individual fluorescent probes. Biophys. J. 82:2775–2783.
+    Mortensen, K. I., et al. (2010). Optimized localization analysis for single-molecule tracking and
+    super-resolution microscopy. Nat. Methods 7:377–381.
+    """
+    if not (total > 0 and math.isfinite(total)):
+        return float("inf")
+    sa2 = width_px * width_px + 1.0 / 12.0
+    return math.sqrt(8.0 * math.pi) * sa2 * noise / total
 
 
 def correlation_factor(resid: np.ndarray, outside: np.ndarray) -> float:
@@ -490,9 +526,50 @@ def correlation_factor(resid: np.ndarray, outside: np.ndarray) -> float:
     return float(min(max(f, 1.0), 9.0))
 
 
-def _background_sigma(resid: np.ndarray, excess: np.ndarray, amp: float) -> float:
-    """Robust σ of the residuals outside the blob (where the model is within 2 % of its offset)."""
+def _background_sigma(
+    resid: np.ndarray, excess: np.ndarray, amp: float, data: np.ndarray | None = None
+) -> float:
+    """Robust σ of the residuals outside the blob (where the model is within 2 % of its offset).
+
+    When the window's values ``data`` sit on a lattice of whole or half grey levels (8-bit video minus a
+    median background), the spread is taken from them with the median interpolated within its bin
+    (:func:`grouped_mad`): the plain median of quantised values is biased by up to half a step.
+    """
     outside = np.abs(excess) < 0.02 * abs(amp) if amp else np.ones(resid.shape, bool)
-    r = resid[outside] if int(outside.sum()) >= 12 else resid
+    if int(outside.sum()) < 12:
+        outside = np.ones(resid.shape, bool)
+    if data is not None:
+        step = _lattice_step(data[outside])
+        if step:
+            return max(MAD_TO_SIGMA * grouped_mad(data[outside], step), 1e-3)
+    r = resid[outside]
     mad = float(np.median(np.abs(r - np.median(r))))
     return max(MAD_TO_SIGMA * mad, 1e-3)
+
+
+def _lattice_step(values: np.ndarray) -> float:
+    """1 or 0.5 when every value is a whole (or half) grey level, else 0."""
+    for step in (1.0, 0.5):
+        q = values / step
+        if np.all(np.abs(q - np.round(q)) < 1e-4):
+            return step
+    return 0.0
+
+
+def grouped_mad(values: np.ndarray, step: float) -> float:
+    """Median absolute deviation of values quantised to ``step``, with the median interpolated in its bin.
+
+    Deviations from a central lattice value are whole multiples of ``step``; their median is placed within
+    its bin by the fraction of the counts needed to reach half (the grouped-data median, e.g. Spiegel &
+    Stephens, Schaum's Outline of Statistics, ch. 3), as :func:`tracker.background.noise_map` does.
+    """
+    v = np.sort(np.asarray(values, float).ravel())
+    centre = v[v.size // 2]  # a lattice value
+    a = np.round(np.abs(v - centre) / step)
+    m = float(np.median(a))
+    if m != round(m):  # even count straddling two bins: take the lower one
+        m = math.floor(m)
+    below = int(np.sum(a < m))
+    at = max(int(np.sum(a == m)), 1)
+    lo, width = (m - 0.5, 1.0) if m > 0 else (0.0, 0.5)
+    return step * (lo + width * (0.5 * a.size - below) / at)

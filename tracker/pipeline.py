@@ -28,7 +28,7 @@ from hopscope.shared.constants import DEFAULT_BB_DIAMETER_M, STANDARD_GRAVITY_MP
 from .associate import SIGMA_FLOOR_PX, LinkOptions, link, scatter_ratio
 from .background import default_scale, windowed
 from .detect import THRESHOLD_SIGMA, find_candidates
-from .localise import Detection, localise
+from .localise import QUANTISATION_NOISE_DN, Detection, localise
 from .select import (
     SPEED_BAND_MPS,
     BBSearch,
@@ -255,7 +255,15 @@ def track_video(
             r0, r1, c0, c1 = c.box
             diff = wf.diff_roi(r0, r1, c0, c1)
             raw = wf.frame.luma[r0:r1, c0:c1]
-            d = localise(diff, (r0, c0), frame=c.frame, sign=c.sign, raw=raw, guess_uv=(c.u_px, c.v_px))
+            d = localise(
+                diff,
+                (r0, c0),
+                frame=c.frame,
+                sign=c.sign,
+                raw=raw,
+                guess_uv=(c.u_px, c.v_px),
+                noise_floor=QUANTISATION_NOISE_DN,
+            )
             if d.ok:  # failed fits are only counted: memory stays bounded by the blobs that look like a BB
                 dets.append((d, c.sign, wf.frame.t_s, c.touches_edge))
     n_frames = len(times)
