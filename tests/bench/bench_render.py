@@ -1,7 +1,7 @@
-"""Benchmark: render the built-in lane-close scene from scratch (target < 30 s on the project machine).
+"""Benchmark: render a built-in scene from scratch (lane-close: target < 30 s on the project machine).
 
-Run: ``python tests/bench/bench_render.py [--scene NAME] [--keep DIR]``. Prints the time of each part and the
-frame counts. Not a test: speed goals live here, never in timed unit tests.
+Run: ``python tests/bench/bench_render.py [--scene NAME] [--keep DIR]`` (any of ``BUILTIN_SCENES``). Prints
+the time of each part and the frame counts. Not a test: speed goals live here, never in timed unit tests.
 """
 
 from __future__ import annotations
@@ -38,14 +38,18 @@ def main() -> None:
         print(f"{stage:12s} {t - prev:6.2f} s")
         prev = t
     truth = scene.truth
-    fl = truth["flight"]
-    n_vis = sum(f["visible"] for f in fl["frames"])
-    print(f"lens views   {len(truth['lens_views'])}")
-    print(f"plane views  {len(truth['plane_views'])}")
-    if truth["drop"]:
-        print(f"drop frames  {truth['drop']['n_frames']}")
-    print(f"flight       {fl['n_frames']} frames, BB in view in {n_vis}, {spec.camera.image_size[0]}x"
-          f"{spec.camera.image_size[1]} at {spec.camera.fps:g} fps")
+    print(f"lens views   {len(truth.lens_views)}")
+    print(f"plane views  {len(truth.plane_views)}")
+    if truth.drop is not None:
+        held = f", {truth.drop.holder.frames} in the holder" if truth.drop.holder is not None else ""
+        print(f"drop frames  {truth.drop.n_frames}{held}")
+    if truth.flight is not None:
+        fl = truth.flight
+        w, h = spec.camera.image_size
+        print(
+            f"flight       {fl.n_frames} frames, BB in view in {int(fl.frames.visible.sum())}, {w}x{h} at "
+            f"{spec.camera.fps:g} fps"
+        )
     target = TARGET_S.get(args.scene)
     verdict = "" if target is None else f" (target < {target:g} s: {'met' if total < target else 'MISSED'})"
     print(f"total render {total:6.2f} s{verdict}")
