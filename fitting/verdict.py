@@ -17,7 +17,9 @@ from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 from .air import Air
 from .bb import BB
-from .flyto import fly_to
+from .flight import fly
+from .flyto import fly_to, time_to_range
+from .forecast import DEFAULT_BAND_M, DEFAULT_MUZZLE_HEIGHT_M, launch_rows
 from .observe import flight_for
 from .predict import check_shot, fitted_model_of, shot_rows
 
@@ -135,3 +137,172 @@ def lift_profile(fit, *, shot: int = 0, range_m: float = 50.0, points: int = 200
     cl = np.asarray(model.lift.coefficient(s), dtype=float) * np.ones_like(u)
     ratio = model.bb.q_per_m(model.air.density_kgm3) * cl * u**2 / model.gravity_mps2
     return LiftProfile(st[:, 0], np.linalg.norm(st[:, 3:6], axis=1), cl, ratio)
+
+
+# ---------------------------------------------------------------------------------------------- from the path
+
+#: Engagement range over which the path is judged, m.  # common practice, no published source
+DEFAULT_ENGAGEMENT_M = 30.0
+#: Samples of the fit's covariance behind the verdict's probabilities.
+DEFAULT_VERDICT_SAMPLES = 100
+#: Time between path samples when judging, s (at 100 m/s 5 cm of range; exits are interpolated).
+JUDGE_SAMPLE_S = 5e-4
+#: Below this probability for the nominal path's category the verdict is "undetermined".
+MIN_VERDICT_PROBABILITY = 0.5
+
+PATH_CATEGORIES = ("under-hopped", "flat", "over-hopped")
+ADJUSTER = {
+    "under-hopped": "turn the hop-up adjuster toward more hop",
+    "flat": "leave the hop-up adjuster where it is",
+    "over-hopped": "turn the hop-up adjuster toward less hop",
+    "undetermined": "track a longer stretch of flight before turning the adjuster",
+}
+
+
+@dataclass(frozen=True)
+class PathVerdict:
+    """The hop verdict read off the predicted path, flown level from a muzzle height.
+
+    Attributes
+    ----------
+    label : the shot (or ``"group"``). category : "under-hopped" (the path leaves the band below the line
+        of sight within the engagement range), "over-hopped" (above), "flat" (stays inside), or
+        "undetermined" (no category has probability ≥ :data:`MIN_VERDICT_PROBABILITY` over the samples).
+    exit_m : where the nominal path leaves the band, m downrange (None: it stays inside).
+    probabilities : fraction of the parameter samples in each of :data:`PATH_CATEGORIES`.
+    adjuster : which way to turn the hop-up adjuster. engagement_m, band_m, muzzle_height_m : the convention.
+    headline, detail : text for people.
+    """
+
+    label: str
+    category: str
+    exit_m: float | None
+    probabilities: dict[str, float]
+    adjuster: str
+    engagement_m: float
+    band_m: float
+    muzzle_height_m: float
+    headline: str
+    detail: str
+
+
+def classify_path(
+    x_m: np.ndarray, dev_m: np.ndarray, *, engagement_m: float, band_m: float
+) -> tuple[str, float | None]:
+    """Category of one path (x downrange, dev = height − line of sight, m) and where it leaves the band."""
+    x = np.asarray(x_m, dtype=float)
+    dev = np.asarray(dev_m, dtype=float)
+    out = np.nonzero((np.abs(dev) > band_m) & (x <= engagement_m))[0]
+    if out.size == 0:
+        return "flat", None
+    j = int(out[0])
+    level = band_m if dev[j] > 0 else -band_m
+    if j == 0:
+        exit_x = float(x[0])
+    else:
+        w = (level - dev[j - 1]) / (dev[j] - dev[j - 1])
+        exit_x = float(x[j - 1] + w * (x[j] - x[j - 1]))
+    return ("over-hopped" if dev[j] > 0 else "under-hopped"), exit_x
+
+
+def _categories(
+    fm, thetas: np.ndarray, shot: int, *, muzzle_height_m: float, engagement_m: float, band_m: float
+) -> list[tuple[str, float | None]]:
+    rows = launch_rows(fm, thetas, shot, muzzle_height_m=muzzle_height_m, elevation_rad=0.0)
+    model, launch = flight_for(fm.spec, rows)
+    traj = fly(model, launch, time_to_range(model, launch, engagement_m))
+    t = np.arange(0.0, traj.t_s[-1], JUDGE_SAMPLE_S)
+    st = traj.sample(t)
+    out = []
+    for i in range(st.shape[0]):
+        x, y = st[i, :, 0], st[i, :, 1]
+        # the ground ends the path: below the ground counts as below the band
+        y = np.where(np.maximum.accumulate(y <= 0.0), -np.inf, y)
+        out.append(classify_path(x, y - muzzle_height_m, engagement_m=engagement_m, band_m=band_m))
+    return out
+
+
+def _verdict(label, cats, *, engagement_m, band_m, muzzle_height_m) -> PathVerdict:
+    nominal, exit_m = cats[0]
+    rest = [c for c, _ in cats[1:]] or [nominal]
+    probs = {c: rest.count(c) / len(rest) for c in PATH_CATEGORIES}
+    category = nominal if probs[nominal] >= MIN_VERDICT_PROBABILITY else "undetermined"
+    where = "" if exit_m is None else f", leaving it at {exit_m:.1f} m"
+    conv = f"flown level from {muzzle_height_m:g} m, judged within ±{band_m:g} m of the line of sight to {engagement_m:g} m"
+    heads = {
+        "under-hopped": "Under-hopped: the path drops out of the band",
+        "over-hopped": "Over-hopped: the path climbs out of the band",
+        "flat": "Flat: the path stays in the band",
+        "undetermined": "Hop setting undetermined",
+    }
+    detail = (
+        f"{conv}{where} (probability {probs[nominal]:.0%} over the fit's uncertainty); {ADJUSTER[category]}"
+    )
+    return PathVerdict(
+        label, category, exit_m, probs, ADJUSTER[category], engagement_m, band_m, muzzle_height_m,
+        heads[category], detail,
+    )  # fmt: skip
+
+
+def judge_hop_path(
+    fit,
+    *,
+    shot: int = 0,
+    engagement_m: float = DEFAULT_ENGAGEMENT_M,
+    band_m: float | None = None,
+    muzzle_height_m: float | None = None,
+    n_samples: int = DEFAULT_VERDICT_SAMPLES,
+    rng: int | np.random.Generator | None = None,
+) -> PathVerdict:
+    """Hop verdict of one fitted shot from its predicted path (see :class:`PathVerdict`).
+
+    Defaults: band ±:data:`fitting.forecast.DEFAULT_BAND_M`, muzzle height
+    :data:`fitting.forecast.DEFAULT_MUZZLE_HEIGHT_M`.
+    """
+    band = DEFAULT_BAND_M if band_m is None else band_m
+    height = DEFAULT_MUZZLE_HEIGHT_M if muzzle_height_m is None else muzzle_height_m
+    fm = fitted_model_of(fit)
+    check_shot(fm, shot)
+    _check_convention(engagement_m, band, height)
+    thetas = (
+        np.vstack([fm.theta[None, :], fm.sample_theta(n_samples, rng)]) if n_samples else fm.theta[None, :]
+    )
+    cats = _categories(fm, thetas, shot, muzzle_height_m=height, engagement_m=engagement_m, band_m=band)
+    return _verdict(fm.labels[shot], cats, engagement_m=engagement_m, band_m=band, muzzle_height_m=height)
+
+
+def judge_group_hop_path(
+    fit,
+    *,
+    engagement_m: float = DEFAULT_ENGAGEMENT_M,
+    band_m: float | None = None,
+    muzzle_height_m: float | None = None,
+    n_samples: int = DEFAULT_VERDICT_SAMPLES,
+    rng: int | np.random.Generator | None = None,
+) -> tuple[PathVerdict, tuple[PathVerdict, ...]]:
+    """The group's verdict (its mean shot: the mean of the shots' own parameters) and each shot's."""
+    band = DEFAULT_BAND_M if band_m is None else band_m
+    height = DEFAULT_MUZZLE_HEIGHT_M if muzzle_height_m is None else muzzle_height_m
+    fm = fitted_model_of(fit)
+    _check_convention(engagement_m, band, height)
+    gen = np.random.default_rng(rng)
+    per_shot = tuple(
+        judge_hop_path(fm, shot=i, engagement_m=engagement_m, band_m=band, muzzle_height_m=height,
+                       n_samples=n_samples, rng=gen)
+        for i in range(fm.n_shots)
+    )  # fmt: skip
+    lay = fm.layout
+    thetas = (
+        np.vstack([fm.theta[None, :], fm.sample_theta(n_samples, gen)]) if n_samples else fm.theta[None, :]
+    )
+    own = thetas[:, lay.own_block].reshape(thetas.shape[0], fm.n_shots, -1).mean(axis=1)
+    thetas[:, lay.own(0)] = own
+    cats = _categories(fm, thetas, 0, muzzle_height_m=height, engagement_m=engagement_m, band_m=band)
+    group = _verdict("group", cats, engagement_m=engagement_m, band_m=band, muzzle_height_m=height)
+    return group, per_shot
+
+
+def _check_convention(engagement_m: float, band_m: float, muzzle_height_m: float) -> None:
+    for name, v in (("engagement_m", engagement_m), ("band_m", band_m), ("muzzle_height_m", muzzle_height_m)):
+        if not (math.isfinite(v) and v > 0):
+            raise ValueError(f"{name} must be positive, got {v!r}")
