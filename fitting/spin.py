@@ -44,6 +44,8 @@ import numpy as np
 from scipy.optimize import least_squares
 from scipy.special import gammaln
 
+from hopscope.shared.constants import MAD_TO_SIGMA
+
 from .laws import LinearLift, SaturatingLift, spin_ratio
 
 # ---------------------------------------------------------------------------------------------- settings
@@ -82,6 +84,9 @@ DEFAULT_LIFT_LAW_REL_SIGMA = 0.25
 DECAY_RESOLVED_Z = 2.0
 #: Fewest windows a decay fit is made from.
 MIN_DECAY_WINDOWS = 3
+#: Samples further than this many robust σ from a fit are left out of one refit.
+#: # common practice, no published source
+OUTLIER_CLIP_SIGMA = 4.0
 #: Trial-frequency × sample products evaluated at once (memory bound of the periodogram).
 _CHUNK = 2_000_000
 
@@ -196,7 +201,8 @@ class SpinEstimate:
     stderr_radps : its 1σ standard error, rad/s (None with the rate).
     at_t_s : time the rate refers to (mean time of the samples used), s.
     span_s : (first, last) sample time, s.
-    n_points : samples used.
+    n_points : samples used; ``n_outliers`` samples left out as outliers (more than
+        :data:`OUTLIER_CLIP_SIGMA` robust σ from the first fit).
     sample_rate_hz : frame rate the samples lie on (1 / median spacing), Hz.
     flicker_hz, flicker_stderr_hz : the flicker frequency as observed (folded into 0..sample_rate/2 when
         the sampling cannot tell aliases apart), Hz, and its 1σ; None when no significant peak was found.
@@ -223,6 +229,7 @@ class SpinEstimate:
     at_t_s: float
     span_s: tuple[float, float]
     n_points: int
+    n_outliers: int
     sample_rate_hz: float
     flicker_hz: float | None
     flicker_stderr_hz: float | None
@@ -274,9 +281,9 @@ class SpinDecay:
     rate0_radps, rate0_stderr_radps : ω at x₀ and its 1σ, rad/s.
     decay_constant, decay_constant_stderr : λ and its 1σ (1/s or 1/m; ≈ 0 when the spin hardly decays).
     scale, scale_stderr : τ (s) or L (m) and its 1σ; None when λ is not resolved above zero (see reason).
-    n_windows : windows used.
-    reduced_chi2 : χ² per degree of freedom of the fit (the standard errors are scaled up by its root when
-        it exceeds 1).
+    n_windows : windows used (0 for the coherent fit of the whole series).
+    reduced_chi2 : χ² per degree of freedom of the windowed fit (the standard errors are scaled up by its
+        root when it exceeds 1); NaN for the coherent fit, whose noise level is its residual scatter.
     method : in words.
     reason : why no decay scale is reported (None when it is).
     """
@@ -491,7 +498,9 @@ def _no_spin(base: dict[str, Any], reason: str, **extra: Any) -> SpinEstimate:
 
 
 def _sinusoid_fit(t: np.ndarray, y: np.ndarray, f0: float, degree: int, span: float):
-    """Least squares y ≈ poly(t; degree) + a cos 2πft + b sin 2πft; returns f, σ_f, amplitude/level, ok."""
+    """Least squares y ≈ poly(t; degree) + a cos 2πft + b sin 2πft.
+
+    Returns (f Hz, σ_f Hz, amplitude / level, residuals), or None when the fit does not settle."""
     tc = t - t.mean()
     scale = 0.5 * span if span > 0 else 1.0
     x = tc / scale
@@ -529,7 +538,17 @@ def _sinusoid_fit(t: np.ndarray, y: np.ndarray, f0: float, degree: int, span: fl
     at_bound = min(f - lo[-1], hi[-1] - f) < 1e-9 * max(f, 1.0)
     if not (var_f > 0 and math.isfinite(var_f)) or at_bound or level == 0:
         return None
-    return f, math.sqrt(var_f), float(amp / abs(level))
+    return f, math.sqrt(var_f), float(amp / abs(level)), sol.fun
+
+
+def _inliers(residuals: np.ndarray) -> np.ndarray:
+    """Samples whose residual is within :data:`OUTLIER_CLIP_SIGMA` robust σ (1.4826 · MAD) of the median."""
+    r = np.asarray(residuals, dtype=float)
+    med = float(np.median(r))
+    sigma = MAD_TO_SIGMA * float(np.median(np.abs(r - med)))
+    if not sigma > 0:
+        return np.ones(r.shape, dtype=bool)
+    return np.abs(r - med) <= OUTLIER_CLIP_SIGMA * sigma
 
 
 def measure_spin(
@@ -611,6 +630,7 @@ def _measure(
         at_t_s=float(t.mean()) if n else math.nan,
         span_s=(float(t[0]), float(t[-1])) if n else (math.nan, math.nan),
         n_points=n,
+        n_outliers=0,
         sample_rate_hz=fs,
         marking=mk.name,
         cycles_per_turn=mk.cycles_per_turn,
@@ -657,9 +677,14 @@ def _measure(
             f"{fap:.2g} > {max_false_alarm:g}",
         )
     fit = _sinusoid_fit(t, y, float(grid[i]), trend_degree, span)
+    if fit is not None:  # one refit without outliers (a BB cut by the image edge, a glint)
+        keep = _inliers(fit[3])
+        if not np.all(keep) and keep.sum() >= MIN_POINTS + trend_degree:
+            fit = _sinusoid_fit(t[keep], y[keep], fit[0], trend_degree, span)
+            base.update(n_points=int(keep.sum()), n_outliers=int((~keep).sum()), at_t_s=float(t[keep].mean()))
     if fit is None:
         return _no_spin(base, f"the sinusoid fit at the peak ({grid[i]:.4g} Hz) did not settle")
-    f_obs, sf, mod_obs = fit
+    f_obs, sf, mod_obs, _ = fit
     base.update(flicker_hz=f_obs, flicker_stderr_hz=sf, observed_modulation=mod_obs)
 
     if f_hi < nyquist:
@@ -1033,6 +1058,157 @@ def fit_spin_decay(
     return SpinDecay(per, x0, w0, w0_sig, lam, lam_sig, None, None, len(use), red, method, reason)
 
 
+#: Grid of the coherent decay fit: rates at the mean time (± this many cycles over the span, this many steps)
+#: and decay constants (from −1/span to 4/span, at most this many steps).
+_COHERENT_RATE_CYCLES = 1.5
+_COHERENT_RATE_STEPS = 31
+_COHERENT_DECAY_STEPS_MAX = 200
+#: Largest phase change (rad) at the series' ends between neighbouring decay constants of the grid.
+_COHERENT_PHASE_STEP_RAD = 0.3
+
+
+def _decay_phase(t: np.ndarray, x: np.ndarray, x_m: float, lam: float, per_time: bool) -> np.ndarray:
+    """∫ e^(−λ (x(t) − x_m)) dt, s, up to a constant: closed form in time (x = t, from x_m), trapezoids in
+    distance (from the first sample)."""
+    if per_time:
+        d = x - x_m
+        if abs(lam) * float(np.max(np.abs(d))) < 1e-9:
+            return d
+        return -np.expm1(-lam * d) / lam
+    g = np.exp(-lam * (x - x_m))
+    return np.concatenate([[0.0], np.cumsum(0.5 * (g[1:] + g[:-1]) * np.diff(t))])
+
+
+def fit_spin_decay_coherent(
+    t_s,
+    brightness,
+    start: SpinEstimate,
+    *,
+    reference: float | None = None,
+    distance_m=None,
+    trend_degree: int = DEFAULT_TREND_DEGREE,
+) -> SpinDecay:
+    """Exponential spin decay from the whole brightness series at once (one phase-coherent model).
+
+    b(t) = poly(t) + a cos φ(t) + b sin φ(t), φ(t) = c ∫ ω dt, ω = ω_m e^(−λ (x − x_m)), with x the time
+    (s) or, with ``distance_m``, the distance flown (m) at each sample, x_m its mean and c the marking's
+    cycles per turn. A grid over (ω_m, λ) with the linear parameters solved at each node, then a
+    least-squares refinement of all; standard errors from the Jacobian with the residual scatter as the
+    noise. Where windows are too short to hold a flicker of their own (a short, fast-decaying flight) this
+    still sees the decay, since the flicker's phase drifts over the whole series.
+
+    Parameters
+    ----------
+    t_s, brightness : the series (as for :func:`measure_spin`).
+    start : the series' :func:`measure_spin` result with a rate; its alias is kept (the fit stays within
+        a cycle and a half over the span of it).
+    reference : x₀ for the reported ω₀ (s, or m); default the first sample's time (or distance).
+    distance_m : distance flown at each sample, m (same shape as ``t_s``); None fits per time.
+    trend_degree : degree of the slow brightness trend fitted with the flicker.
+    """
+    t, y = _series(t_s, brightness)
+    if start.rate_radps is None:
+        raise ValueError(f"start: needs an estimate with a rate, got none ({start.reason})")
+    per_time = distance_m is None
+    if per_time:
+        x = t
+    else:
+        _, x = _series(t, distance_m, v_name="distance_m")
+    n = t.size
+    p_lin = trend_degree + 3
+    if n < MIN_POINTS + trend_degree:
+        raise ValueError(
+            f"t_s: a coherent decay fit needs at least {MIN_POINTS + trend_degree} samples, got {n}"
+        )
+    c = start.cycles_per_turn
+    span = float(t[-1] - t[0])
+    x_m = float(x.mean())
+    tn = (t - t.mean()) / (0.5 * span)
+    poly = np.vander(tn, trend_degree + 1, increasing=True)
+    x_span = float(x.max() - x.min())
+    w_start = float(start.rate_radps)
+    dw = 2.0 * math.pi / c * _COHERENT_RATE_CYCLES / span
+    rates = w_start + np.linspace(-dw, dw, _COHERENT_RATE_STEPS)
+    lam_step = _COHERENT_PHASE_STEP_RAD / max(c * w_start * (0.5 * span) * (0.5 * x_span) / 2.0, 1e-300)
+    lam_lo, lam_hi = -1.0 / x_span, 4.0 / x_span
+    n_lam = int(min(_COHERENT_DECAY_STEPS_MAX, max(11, math.ceil((lam_hi - lam_lo) / lam_step))))
+    best = (math.inf, w_start, 0.0)
+    for lam in np.linspace(lam_lo, lam_hi, n_lam):
+        psi = _decay_phase(t, x, x_m, float(lam), per_time)
+        for w in rates:
+            ph = c * w * psi
+            a = np.column_stack([poly, np.cos(ph), np.sin(ph)])
+            coef, *_ = np.linalg.lstsq(a, y, rcond=None)
+            rss = float(np.sum((a @ coef - y) ** 2))
+            if rss < best[0]:
+                best = (rss, float(w), float(lam))
+
+    def refine(keep: np.ndarray, p0: np.ndarray | None):
+        tk, xk, yk, pk = t[keep], x[keep], y[keep], poly[keep]
+
+        def design(w: float, lam: float) -> np.ndarray:
+            ph = (
+                c * w * _decay_phase(tk, xk, x_m, lam, per_time)
+                if per_time
+                else c * w * _decay_phase(t, x, x_m, lam, per_time)[keep]
+            )
+            return np.column_stack([pk, np.cos(ph), np.sin(ph)])
+
+        if p0 is None:
+            coef0, *_ = np.linalg.lstsq(design(best[1], best[2]), yk, rcond=None)
+            p0 = np.r_[coef0, best[1], best[2]]
+        return least_squares(lambda p: design(p[-2], p[-1]) @ p[:-2] - yk, p0, x_scale="jac", method="lm")
+
+    keep = np.ones(n, dtype=bool)
+    sol = refine(keep, None)
+    inl = _inliers(sol.fun)
+    if not np.all(inl) and inl.sum() >= MIN_POINTS + trend_degree:  # one refit without outliers
+        keep = inl
+        sol = refine(keep, sol.x)
+    dof = int(keep.sum()) - (p_lin + 2)
+    cov = np.linalg.pinv(sol.jac.T @ sol.jac) * (float(np.sum(sol.fun**2)) / dof)
+    w_m, lam = float(sol.x[-2]), float(sol.x[-1])
+    var_w, var_l, cov_wl = float(cov[-2, -2]), float(cov[-1, -1]), float(cov[-2, -1])
+    if per_time:
+        x0 = float(t[0]) if reference is None else float(reference)
+    else:
+        x0 = float(x[0]) if reference is None else float(reference)
+    if not math.isfinite(x0):
+        raise ValueError(f"reference must be finite, got {reference!r}")
+    e = math.exp(-lam * (x0 - x_m))
+    w_ref = w_m * e
+    g = np.array([e, -w_ref * (x0 - x_m)])
+    var_ref = float(g @ np.array([[var_w, cov_wl], [cov_wl, var_l]]) @ g)
+    lam_sig = math.sqrt(max(var_l, 0.0))
+    per = "time" if per_time else "distance"
+    unit = "s" if per_time else "m"
+    method = f"coherent phase fit of {int(keep.sum())} samples, exponential in {per}" + (
+        f" ({n - int(keep.sum())} outliers left out)" if not np.all(keep) else ""
+    )
+    if lam > DECAY_RESOLVED_Z * lam_sig:
+        return SpinDecay(
+            per,
+            x0,
+            w_ref,
+            math.sqrt(max(var_ref, 0.0)),
+            lam,
+            lam_sig,
+            1.0 / lam,
+            lam_sig / lam**2,
+            0,
+            math.nan,
+            method,
+            None,
+        )
+    reason = (
+        f"decay not resolved: λ = {lam:.3g} ± {lam_sig:.2g} 1/{unit} is not {DECAY_RESOLVED_Z:g} σ above zero "
+        "(flight too short for this decay)"
+    )
+    return SpinDecay(
+        per, x0, w_ref, math.sqrt(max(var_ref, 0.0)), lam, lam_sig, None, None, 0, math.nan, method, reason
+    )
+
+
 # ---------------------------------------------------------------------------------------------- one shot
 
 
@@ -1080,6 +1256,11 @@ def measure_shot_spin(
 ) -> ShotSpin:
     """Spin of one shot from its brightness series: the whole series, windows, and the decay where seen.
 
+    The decay is fitted to the windowed rates (:func:`fit_spin_decay`) when at least
+    :data:`MIN_DECAY_WINDOWS` windows have a rate, else by one coherent fit of the whole series
+    (:func:`fit_spin_decay_coherent`). When the decay is resolved, the reported rate is the fit's rate at
+    the first tracked point; otherwise it is the whole series' rate at its mean time (``at_t_s`` says).
+
     Parameters
     ----------
     t_s, brightness : the shot's detections (mid-exposure times, s; integrated brightness).
@@ -1109,12 +1290,7 @@ def measure_shot_spin(
     decay: SpinDecay | None = None
     decay_reason: str | None
     measured = [w for w in series.windows if w.measured]
-    if len(measured) < MIN_DECAY_WINDOWS:
-        decay_reason = (
-            f"decay not measured: {len(measured)} window(s) of {window_points} samples with a rate, "
-            f"at least {MIN_DECAY_WINDOWS} needed"
-        )
-    else:
+    if len(measured) >= MIN_DECAY_WINDOWS:
         if distance_m_at is None:
             decay = fit_spin_decay(series.windows, reference=t_first)
         else:
@@ -1123,15 +1299,25 @@ def measure_shot_spin(
             d0 = float(np.asarray(distance_m_at(np.array([t_first])), dtype=float)[0])
             decay = fit_spin_decay(series.windows, reference=d0, distance_m=dist)
         decay_reason = decay.reason
-    if decay is not None and decay.per == "time" and decay.scale is not None:
+    elif overall.rate_radps is not None:  # windows too short for a flicker of their own: one coherent fit
+        if distance_m_at is None:
+            decay = fit_spin_decay_coherent(t, y, overall, reference=t_first)
+        else:
+            dist = np.asarray(distance_m_at(t), dtype=float)
+            d0 = float(np.asarray(distance_m_at(np.array([t_first])), dtype=float)[0])
+            decay = fit_spin_decay_coherent(t, y, overall, reference=d0, distance_m=dist)
+        decay_reason = decay.reason
+    else:
+        decay_reason = f"decay not measured: no spin rate ({overall.reason})"
+    if decay is not None and decay.scale is not None:
         return ShotSpin(
             decay.rate0_radps,
             decay.rate0_stderr_radps,
             t_first,
             overall.candidates_radps,
             overall.marking,
-            f"{measured[0].method}; rate at the first tracked point from the decay fit of "
-            f"{decay.n_windows} windows",
+            f"{overall.method if not measured else measured[0].method}; rate at the first tracked point "
+            f"from the decay fit ({decay.method})",
             None,
             overall,
             series,

@@ -22,6 +22,7 @@ from hopscope.fitting.spin import (
     exposure_attenuation,
     false_alarm_probability,
     fit_spin_decay,
+    fit_spin_decay_coherent,
     lomb_scargle,
     measure_shot_spin,
     measure_spin,
@@ -401,15 +402,66 @@ def test_shot_spin_gives_the_rate_at_the_first_point_from_the_decay():
     json.dumps(record, allow_nan=False)  # only finite numbers and nulls
 
 
-def test_short_shot_reports_the_whole_series_and_why_no_decay():
+def test_short_shot_without_decay_reports_the_whole_series_and_why():
     t, b = flicker_series(np.random.default_rng(22), n=32)
     spin = measure_shot_spin(t, b)
-    assert spin.decay is None and spin.decay_reason is not None and "decay not measured" in spin.decay_reason
+    assert spin.decay is not None and spin.decay.scale is None  # one coherent fit; no decay to see
+    assert spin.decay_reason is not None and "decay not resolved" in spin.decay_reason
     assert spin.rate_radps == spin.overall.rate_radps and spin.at_t_s == spin.overall.at_t_s
-    unmarked = shot_spin_to_json(measure_shot_spin(t, b, marking="none"))
+    unmarked_spin = measure_shot_spin(t, b, marking="none")
+    assert unmarked_spin.decay is None and unmarked_spin.decay_reason is not None
+    assert "decay not measured" in unmarked_spin.decay_reason
+    unmarked = shot_spin_to_json(unmarked_spin)
     assert unmarked["rate_radps"] == {"value": None, "stderr": None}
     assert "unmarked" in unmarked["reason"]
     json.dumps(unmarked, allow_nan=False)
+
+
+def short_decaying_series(seed: int, *, outlier: bool = False):
+    # like the lane-spin-decay scene: 86 frames at 10,000 fps, 900 rev/s decaying with τ = 20 ms
+    tau, truth0 = 0.02, TWO_PI * 900.0
+    t, b = flicker_series(np.random.default_rng(seed), n=86, rate_radps=truth0, tau_s=tau, noise=0.05)
+    if outlier:  # the first detection cut by the image edge
+        b[0] *= 0.5
+    return tau, truth0 * np.exp(-t[0] / tau), t, b
+
+
+def test_coherent_decay_on_a_short_flight_within_fifteen_percent():
+    for outlier in (False, True):
+        tau, truth_first, t, b = short_decaying_series(31, outlier=outlier)
+        spin = measure_shot_spin(t, b)  # 32-sample windows: too few for a windowed decay fit
+        assert spin.decay is not None and spin.decay.scale is not None
+        assert spin.decay.method.startswith("coherent phase fit")
+        assert ("outliers left out" in spin.decay.method) == outlier
+        assert abs(spin.decay.scale / tau - 1.0) < DECAY_REL_TOL
+        assert spin.rate_radps is not None and spin.stderr_radps is not None
+        assert abs(spin.rate_radps / truth_first - 1.0) < RATE_REL_TOL
+        assert spin.at_t_s == t[0]
+
+
+@pytest.mark.slow
+def test_coherent_decay_sigma_is_honest_over_seeds():
+    pulls = []
+    for seed in range(60):
+        tau, _, t, b = short_decaying_series(seed)
+        decay = fit_spin_decay_coherent(t, b, measure_spin(t, b))
+        pulls.append((decay.decay_constant - 1.0 / tau) / decay.decay_constant_stderr)
+    assert PULL_STD_BAND[0] <= float(np.std(pulls, ddof=1)) <= PULL_STD_BAND[1]
+    assert abs(float(np.mean(pulls))) < PULL_MEAN_MAX
+
+
+def test_coherent_decay_per_distance():
+    v0, kappa, length = 95.0, 0.08, 1.8  # spin falls by a third over the 86 frames
+    t = np.arange(86) / 10_000.0
+    fine = np.linspace(0.0, t[-1], 20_001)
+    sf = np.log1p(kappa * v0 * fine) / kappa
+    w = TWO_PI * 900.0 * np.exp(-sf / length)
+    phase = np.concatenate([[0.0], np.cumsum(0.5 * (w[1:] + w[:-1]) * np.diff(fine))])
+    rng = np.random.default_rng(17)
+    b = 1.0 + 0.3 * np.cos(np.interp(t, fine, phase) + 1.1) + 0.05 * rng.normal(size=t.size)
+    decay = fit_spin_decay_coherent(t, b, measure_spin(t, b), distance_m=np.log1p(kappa * v0 * t) / kappa)
+    assert decay.per == "distance" and decay.scale is not None
+    assert abs(decay.scale / length - 1.0) < DECAY_REL_TOL
 
 
 def test_measured_spin_ratio_and_its_sigma():
