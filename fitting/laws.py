@@ -5,6 +5,19 @@ they broadcast against the per-shot state arrays of the integrator.
 
 Sign conventions: the spin ratio S = r·ω/u is signed like ω (backspin about +z for a BB flying +x is
 positive, see :mod:`fitting.flight`), so a lift law that is odd in S turns topspin into downforce.
+
+Where the constants come from, and what they were checked against (tests/fitting/test_published_*.py):
+
+- sphere drag: published smooth-sphere correlations, compared with the Roos & Willmarth (1971) points at
+  Re 1.3e4–1.2e5 (Clift-Grace-Weber 6.5 % ± 1.4 % below them, Brown-Lawler 8.7 % ± 1.2 %) and with the
+  Lapple/Schlichting tables of Morsi & Alexander (1972); the ``sphere`` law fits a scale on top;
+- lift: no measurement of C_L(S) for a smooth sphere at BB Reynolds numbers (1e4–5e4) was found. The
+  linear law's slope is a convention (k = 1; only k·ω₀ is identifiable); the saturating law's constants
+  are a published ball-flight form read in a secondary source. Both give positive lift for backspin at
+  every S, as Muto, Tsubokura & Oshima (2012) report for a smooth sphere at subcritical Re;
+- spin decay: the only measurement found is for golf balls (Smits & Smith 1994, dimpled, Re 1e5–2.5e5):
+  :data:`GOLF_TORQUE_SLOPE` reproduces it. Its use for smooth 6 mm BBs is an assumption (README, error
+  budget).
 """
 
 from __future__ import annotations
@@ -74,6 +87,9 @@ def cd_clift_grace_weber(re: ArrayLike) -> np.ndarray:
     ----------
     Clift, Grace & Weber (1978), *Bubbles, Drops, and Particles*, Academic Press, Table 5.2; the same
     pieces as implemented in the ``fluids`` library (``fluids.drag.Clift``), against which it is tested.
+    Against measurements: 6.5 % (± 1.4 %) below the smooth-sphere points of Roos & Willmarth (1971),
+    "Some experimental results on sphere and disk drag", AIAA J. 9:285, over Re 1.3e4–1.2e5, most at the low
+    end (tests/fitting/test_published_drag.py); within 4 % of Almedeij (2008), Powder Technol. 186:218.
     """
     return _cgw_unchecked(_checked_reynolds(re))
 
@@ -106,7 +122,8 @@ def cd_brown_lawler(re: ArrayLike) -> np.ndarray:
     References
     ----------
     Brown & Lawler (2003), "Sphere drag and settling velocity revisited", J. Environ. Eng. 129(3):222-231,
-    eq. 19.
+    eq. 19. Against measurements: 8.7 % (± 1.2 %) below Roos & Willmarth (1971), AIAA J. 9:285, over
+    Re 1.3e4–1.2e5 (tests/fitting/test_published_drag.py).
     """
     return _bl_unchecked(_checked_reynolds(re))
 
@@ -178,7 +195,10 @@ class ConstantDrag:
     """C_D = cd + spin_drag · S² (``spin_drag`` 0 by default).
 
     The optional quadratic spin-drag term follows the observation that C_D rises with spin ratio
-    (Lyu et al. 2022; Elliott et al. 2024, Exp. Fluids) in its simplest even form.
+    (Lyu et al. 2022, baseballs; Elliott, Smith, Lyu & Smith 2024, "The combined influence of spin and
+    roughness frequency on sphere aerodynamics", Exp. Fluids 65:4, abstract read: lift on spheres comes with
+    increased drag) in its simplest even form. No coefficient for smooth spheres at BB Reynolds numbers was
+    found, so ``spin_drag`` is 0 unless given.
     """
 
     cd: ArrayLike
@@ -215,6 +235,25 @@ class SphereDrag:
         return self.scale * SPHERE_CORRELATIONS[self.correlation](re) + self.spin_drag * np.square(s)
 
 
+# ---------------------------------------------------------------------------------------------- constants
+
+#: Saturating lift law, C_L = 1.12 S / (0.583 + 2.333 S) written as cl_max·S/(s_half + S): cl_max =
+#: 1.12/2.333 ≈ 0.480 (dimensionless). The published form as reproduced in secondary sources on
+#: spinning-ball lift (read, secondary source; the primary was not identified). A ball-flight shape, not a
+#: smooth-sphere measurement at BB Reynolds numbers (none was found).
+SATURATING_CL_MAX = 1.12 / 2.333
+#: ... and s_half = 0.583/2.333 ≈ 0.250 (dimensionless spin ratio at half of cl_max), same source.
+SATURATING_S_HALF = 0.583 / 2.333
+
+#: Spin-down torque slope c of C_M = c·S (dimensionless), a golf-ball value: Smits & Smith (1994) in golf
+#: units, "spin-rate loss per second = 0.0004 × speed (mph) × spin" (read in a secondary source, see
+#: tests/data/published/golf_spin_decay.csv), is c = 0.019 for their 45.93 g, 42.7 mm ball in standard air
+#: with I = 0.4 m r²; 0.02 reproduces their worked example within 5 %. Dimpled ball, Re 1e5–2.5e5: no
+#: measurement for a smooth 6 mm sphere at Re 1e4–5e4 was found, so its use for BBs is an assumption
+#: (README, error budget). For a 0.25 g BB at 100 m/s it gives τ ≈ 3 s.
+GOLF_TORQUE_SLOPE = 0.02
+
+
 # ---------------------------------------------------------------------------------------------- lift laws
 
 
@@ -222,9 +261,12 @@ class SphereDrag:
 class LinearLift:
     """C_L = k · S (k dimensionless; odd in S, so topspin gives downforce).
 
-    Lift proportional to spin ratio at small S, as observed for spinning spheres and balls (e.g. Nathan
-    2008, Am. J. Phys. 76:119, Fig. 4, low-S slope; from memory). Under this law a trajectory fixes k·ω
-    only (see design: identifiability).
+    Lift growing with spin ratio at small S, as measured for spinning balls (Nathan 2008, "The effect of spin
+    on the flight of a baseball", Am. J. Phys. 76:119: S = 0.09–0.595 at Re 1.1e5–2.4e5, C_L not strongly
+    dependent on speed at fixed S; abstract read) and of one sign at subcritical Re for a smooth sphere
+    (Muto, Tsubokura & Oshima 2012, Phys. Fluids 24:014102, abstract read). The default k = 1 is a
+    convention, not a measured slope: a trajectory fixes k·ω only (see design: identifiability). No
+    measurement of the slope for a smooth sphere at BB Reynolds numbers was found.
     """
 
     k: ArrayLike = 1.0
@@ -242,13 +284,15 @@ class LinearLift:
 class SaturatingLift:
     """C_L = cl_max · S / (s_half + |S|): linear at small S, flattening toward ``cl_max`` at large S.
 
-    The defaults cl_max = 1.12/2.333 ≈ 0.480, s_half = 0.583/2.333 ≈ 0.250 are exactly the published form
-    C_L = 1.12 S / (0.583 + 2.333 S) for S > 0 (as reproduced in secondary sources on spinning-ball lift;
-    read, secondary), extended to S < 0 as an odd function. ``cl_max`` may be scaled per shot.
+    The defaults :data:`SATURATING_CL_MAX` and :data:`SATURATING_S_HALF` are exactly the published form
+    C_L = 1.12 S / (0.583 + 2.333 S) for S > 0, extended to S < 0 as an odd function; ``cl_max`` may be
+    scaled per shot. Over S = 0.05–0.45 it lies within 15 % of the baseball lift profile of Sawicki,
+    Hubbard & Stronge (2003, Am. J. Phys. 71:1152; numbers from memory) (tests/fitting/test_published_lift.py).
+    It is a ball-flight shape: no smooth-sphere measurement at BB Reynolds numbers was found to confirm it.
     """
 
-    cl_max: ArrayLike = 1.12 / 2.333
-    s_half: float = 0.583 / 2.333
+    cl_max: ArrayLike = SATURATING_CL_MAX
+    s_half: float = SATURATING_S_HALF
     name: str = "saturating"
 
     def __post_init__(self) -> None:
@@ -276,7 +320,10 @@ class ExponentialDecay:
     """dω/dt = −ω/τ: spin decays with a fixed time constant ``tau_s`` (s; ``inf`` means no decay).
 
     The simplest decay law, ω = ω₀ e^(−t/τ), as used for spin in ball-flight models (e.g. Nathan 2008,
-    Am. J. Phys. 76:119; from memory). ``tau_s`` must be positive (per-shot arrays allowed).
+    Am. J. Phys. 76:119; from memory). ``tau_s`` must be positive (per-shot arrays allowed). The measured
+    golf-ball spin-down (Smits & Smith 1994) is proportional to speed × spin, which a fixed τ follows only
+    while the speed changes little (over a close-up track); over a long flight :class:`AerodynamicDecay`
+    is the law that matches it (tests/fitting/test_published_decay.py).
     """
 
     tau_s: ArrayLike = math.inf
@@ -299,13 +346,19 @@ class AerodynamicDecay:
     exponentially with distance flown through the air, over the length L = 2I / (c ρ A r²)
     (= 0.8·mass / (c ρ A) for a uniform sphere). ``torque_slope`` must be finite and ≥ 0.
 
+    The default is :data:`GOLF_TORQUE_SLOPE`, a golf-ball value; see there for its source and what it
+    means for a BB.
+
     References
     ----------
-    Smits & Smith (1994), "A new aerodynamic model of a golf ball in flight", Science and Golf II, who
-    measured C_M ≈ 0.012 + 0.008 S; the proportional form as used by A. M. Nathan (read, secondary).
+    Smits & Smith (1994), "A new aerodynamic model of a golf ball in flight", Science and Golf II,
+    pp. 340-347 (not read); their spin-down as a rule in golf units and their ball's mass and radius are
+    transcribed, with where they were read, in tests/data/published/golf_spin_decay.csv. Nathan (2008),
+    "The effect of spin-down on the flight of a baseball" (note, §II.A, read): ω̇R²/v² is about linear in S
+    and independent of Re over (1.0-2.5)e5 — the proportional form C_M = c·S.
     """
 
-    torque_slope: ArrayLike = 0.02
+    torque_slope: ArrayLike = GOLF_TORQUE_SLOPE
     name: str = "aerodynamic"
 
     def __post_init__(self) -> None:
