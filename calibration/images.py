@@ -128,16 +128,26 @@ def sample_video_views(
     limit = VIDEO_MIN_RELATIVE_SHARPNESS * sharp.max()
     found: list[GridDetection] = []
     missed: list[GridDetection] = []
+    # the sampling looks with one fast detector; the kept frames are then detected with ``detector``
+    scout = "sb+subpix" if detector == "auto" else detector
+    images = dict(frames)
     for (i, f), s in zip(frames, sharp, strict=True):
         name = f"{path}#{i}"
         if s < limit:
             missed.append(GridDetection(name, None, "too blurred", float(s)))
             continue
-        det = detect_grid(f, spec, source=name, detector=detector)
+        det = detect_grid(f, spec, source=name, detector=scout)
         (found if det.found else missed).append(det)
+
+    def final(dets: list[GridDetection]) -> list[GridDetection]:
+        if scout == detector:
+            return dets
+        return [detect_grid(images[int(d.source.rpartition("#")[2])], spec, source=d.source, detector=detector)
+                for d in dets]  # fmt: skip
+
     if len(found) <= max_views:
-        return found + missed, size
-    desc = np.array([_descriptor(d.corners, spec, size) for d in found])  # type: ignore[arg-type]
+        return final(found) + missed, size
+    desc = np.array([_descriptor(d.corners, d.spec(spec), size) for d in found])  # type: ignore[arg-type]
     desc = (desc - desc.mean(axis=0)) / (desc.std(axis=0) + 1e-9)
     chosen = [int(np.argmax([d.sharpness for d in found]))]
     dmin = np.linalg.norm(desc - desc[chosen[0]], axis=1)
@@ -151,7 +161,7 @@ def sample_video_views(
         for i, d in enumerate(found)
         if i not in keep
     ]
-    return [found[i] for i in sorted(keep)] + extra + missed, size
+    return final([found[i] for i in sorted(keep)]) + extra + missed, size
 
 
 def detect_views(
@@ -218,17 +228,17 @@ def check_plane_items(items: Sequence[tuple[Path, float]]) -> None:
             raise FileNotFoundError(f"{path}: no such plane image (--plane)")
 
 
-def detect_plane_views(
+def detect_plane_grids(
     items: Sequence[tuple[Path, float]],
     spec: GridSpec,
     image_size: tuple[int, int],
     *,
     detector: str = DEFAULT_DETECTOR,
-) -> list[tuple[str, np.ndarray, float]]:
-    """Detect the grid (in reading order) in each plane image: (name, corners, offset m) per placement.
+) -> list[tuple[GridDetection, float]]:
+    """Detect the grid (in reading order, every candidate detector) in each plane image.
 
-    Raises ValueError naming the file when the board is not found, the image size differs from the
-    lens views', or the first placement's offset is not 0.
+    Returns (detection, offset m) per placement. Raises ValueError naming the file when the board is not
+    found, the image size differs from the lens views', or the first placement's offset is not 0.
     """
     check_plane_items(items)
     out = []
@@ -240,8 +250,22 @@ def detect_plane_views(
                 f"{path}: plane image size {size[0]}x{size[1]} differs from the lens views' "
                 f"{image_size[0]}x{image_size[1]}"
             )
-        det = detect_grid(img, spec, source=str(path), detector=detector, reading_order=True)
+        det = detect_grid(img, spec, source=str(path), detector=detector)
         if det.corners is None:
             raise ValueError(f"{path}: plane view without the board ({det.reason})")
-        out.append((str(path), det.corners, off))
+        out.append((det, off))
     return out
+
+
+def detect_plane_views(
+    items: Sequence[tuple[Path, float]],
+    spec: GridSpec,
+    image_size: tuple[int, int],
+    *,
+    detector: str = DEFAULT_DETECTOR,
+) -> list[tuple[str, np.ndarray, float]]:
+    """(name, corners, offset m) per placement (:func:`detect_plane_grids` with the provisional corners)."""
+    return [
+        (d.source, d.points(), off)
+        for d, off in detect_plane_grids(items, spec, image_size, detector=detector)
+    ]

@@ -99,6 +99,7 @@ class LensCalibration:
     corner_extent_px : (u_min, u_max, v_min, v_max) of all corners of the views used, px.
     warnings : warnings for the user.
     flags : the cv2.CALIB_* flags of the final fit (CALIB_FIX_K3 when k3 was dropped).
+    k3_rule : how k3 was chosen ("auto", "free" or "off"); resamples repeat it.
     """
 
     image_size: tuple[int, int]
@@ -113,6 +114,7 @@ class LensCalibration:
     corner_extent_px: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)
     warnings: tuple[str, ...] = field(default=())
     flags: int = 0
+    k3_rule: str = "auto"
 
 
 def frame_coverage(
@@ -149,13 +151,18 @@ def _calibrate(views: Sequence[ViewPoints], image_size, k0=None, d0=None, flags:
         ) from None
 
 
-def _calibrate_selecting_k3(views, image_size, k0, d0, flags: int):
-    """Calibrate with k3 free; refit with k3 = 0 when it is not significant (:data:`K3_SIGNIFICANCE`).
+def _calibrate_selecting_k3(views, image_size, k0, d0, flags: int, k3: str = "auto"):
+    """Calibrate with k3 free; with ``k3="auto"`` refit with k3 = 0 when it is not significant
+    (:data:`K3_SIGNIFICANCE`), ``"free"`` keeps it, ``"off"`` fixes it at 0 from the start.
     Returns (rms, K, dist, std of intrinsics, per-view RMS, flags used)."""
+    if k3 == "off":
+        flags |= cv2.CALIB_FIX_K3
+        rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k0, d0, flags=flags)
+        return rms, k, d, std_int, np.ravel(per_view), flags
     base = flags & ~cv2.CALIB_FIX_K3
     rms, k, d, _, _, std_int, _, per_view = _calibrate(views, image_size, k0, d0, flags=base)
-    k3, s3 = float(np.ravel(d)[4]), float(np.ravel(std_int)[8])
-    if not (abs(k3) > K3_SIGNIFICANCE * s3):
+    k3_value, s3 = float(np.ravel(d)[4]), float(np.ravel(std_int)[8])
+    if k3 == "auto" and not (abs(k3_value) > K3_SIGNIFICANCE * s3):
         fixed = base | cv2.CALIB_FIX_K3
         if d0 is not None:
             d0 = np.ravel(d0).copy()
@@ -172,6 +179,8 @@ def calibrate_lens(
     rejected: Sequence[tuple[str, str]] = (),
     min_views: int = MIN_LENS_VIEWS,
     flags: int = 0,
+    k3: str = "auto",
+    reject_outliers: bool = True,
 ) -> LensCalibration:
     """Zhang's calibration of intrinsics and distortion (k1, k2, p1, p2, k3) from corner lists.
 
@@ -181,7 +190,9 @@ def calibrate_lens(
     image_size : (w, h), px.
     rejected : (name, reason) of views already left out (grid not found), carried into the result.
     min_views : fewest usable views; fewer raises ValueError.
-    flags : extra cv2.CALIB_* flags (CALIB_FIX_K3 is decided by :data:`K3_SIGNIFICANCE`).
+    flags : extra cv2.CALIB_* flags (e.g. CALIB_FIX_ASPECT_RATIO; CALIB_FIX_K3 follows ``k3``).
+    k3 : "auto" (kept only when significant, :data:`K3_SIGNIFICANCE`), "free" or "off".
+    reject_outliers : drop views whose residual is an outlier (:data:`OUTLIER_FACTOR`) and refit.
 
     Returns
     -------
@@ -198,13 +209,16 @@ def calibrate_lens(
         raise ValueError(
             f"--views: only {len(views)} usable lens view(s) with the grid found, need at least {min_views}"
         )
-    rms, k, d, std_int, per_view, flags = _calibrate_selecting_k3(views, image_size, None, None, flags)
+    if k3 not in ("auto", "free", "off"):
+        raise ValueError(f"k3: expected 'auto', 'free' or 'off', got {k3!r}")
+    rms, k, d, std_int, per_view, used = _calibrate_selecting_k3(views, image_size, None, None, flags, k3)
     med = float(np.median(per_view))
     bad = [i for i, e in enumerate(per_view) if e > max(OUTLIER_FACTOR * med, OUTLIER_FLOOR_PX)]
-    if bad and len(views) - len(bad) >= min_views:
+    if reject_outliers and bad and len(views) - len(bad) >= min_views:
         rejected += [(views[i].source, f"reprojection error {per_view[i]:.2f} px is an outlier") for i in bad]
         views = [v for i, v in enumerate(views) if i not in set(bad)]
-        rms, k, d, std_int, per_view, flags = _calibrate_selecting_k3(views, image_size, None, None, flags)
+        rms, k, d, std_int, per_view, used = _calibrate_selecting_k3(views, image_size, None, None, flags, k3)
+    flags = used
     std = {n: float(s) for n, s in zip(INTRINSIC_NAMES, np.ravel(std_int), strict=False)}
     cover = frame_coverage([v.image_points for v in views], image_size)
     allpts = np.vstack([v.image_points for v in views])
@@ -250,6 +264,7 @@ def calibrate_lens(
         corner_extent_px=extent,
         warnings=tuple(warns),
         flags=flags,
+        k3_rule=k3,
     )
 
 
@@ -257,7 +272,7 @@ def recalibrate(views: Sequence[ViewPoints], start: LensCalibration) -> tuple[np
     """Re-run the calibration on ``views`` (e.g. a resample) starting from ``start``, with the same k3
     rule as :func:`calibrate_lens`; returns (K, dist)."""
     _, k, d, *_ = _calibrate_selecting_k3(
-        views, start.image_size, start.camera_matrix, start.dist_coeffs, start.flags
+        views, start.image_size, start.camera_matrix, start.dist_coeffs, start.flags, start.k3_rule
     )
     return np.array(k, float), np.ravel(d).astype(float)
 

@@ -21,18 +21,19 @@ import numpy as np
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
+from .corners import choose_by_evidence, view_points
 from .drop import apply_level, check_drop, drop_refusal
 from .grid import DEFAULT_DETECTOR, GridSpec
 from .images import (
     Progress,
     check_plane_items,
-    detect_plane_views,
+    detect_plane_grids,
     detect_views,
     expand_views,
     no_progress,
     parse_plane_arg,
 )
-from .lens import LensCalibration, ViewPoints, calibrate_lens
+from .lens import MIN_LENS_VIEWS, LensCalibration, calibrate_lens
 from .plane import Placement
 from .rig import Rig
 
@@ -105,17 +106,30 @@ def calibrate_files(
             f"--views: no {spec.cols}x{spec.rows} grid found in any of the {len(detections)} view(s) "
             f"(--grid counts inner corners, COLSxROWS)"
         )
+    if len(found) < MIN_LENS_VIEWS:  # before the plane views join the lens fit: they add no new angles
+        raise ValueError(
+            f"--views: only {len(found)} usable lens view(s) with the grid found, need at least {MIN_LENS_VIEWS}"
+        )
     rejected = [(d.source, d.reason) for d in detections if not d.found]
-    lens_views = [ViewPoints(d.source, d.corners, spec.board_points()) for d in found]  # type: ignore[arg-type]
+    plane_dets = detect_plane_grids(plane_items, spec, size, detector=detector)
+    # corners by evidence: each image keeps the detector that fits a provisional lens model best
+    found, chosen_planes, choice = choose_by_evidence(found, [d for d, _ in plane_dets], spec, size)
+    # joint refinement: the plane views are lens views too (their own poses in the lens fit)
+    seen = {d.source for d in found}
+    lens_views = [view_points(d, spec) for d in [*found, *(d for d in chosen_planes if d.source not in seen)]]
     placements = [
-        Placement(name, corners, off)
-        for name, corners, off in detect_plane_views(plane_items, spec, size, detector=detector)
+        Placement(d.source, d.points(), off, grid=d.grid)
+        for d, (_, off) in zip(chosen_planes, plane_dets, strict=True)
     ]
     lens = calibrate_lens(lens_views, size, rejected=rejected)
     prov: dict[str, Any] = {
         "inputs": {"views": list(views), "plane": list(planes), "drop": drop},
         "detector": detector,
-    }
+        "corners": {"chosen_by": "smallest RMS residual of each image's own pose under a provisional lens "
+                    "model" if choice.method else "the one detector asked for", "counts": choice.counts(),
+                    "per_image": choice.to_dict()},
+        "plane_views_in_lens_fit": True,
+    }  # fmt: skip
     if provenance:
         prov.update(provenance)
     rig = make_rig(

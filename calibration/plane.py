@@ -31,6 +31,14 @@ from .grid import GridSpec
 BAD_PLACEMENT_FACTOR = 4.0
 BAD_PLACEMENT_FLOOR_PX = 0.5
 
+#: The placements' spacing seen in the image (each board's own pose) may differ from the taped offsets by
+#: this fraction before the calibration stops: a wrong --square-mm scales the seen spacing, an offset typed
+#: in millimetres inflates the taped one. (A single board's pose puts its neighbour to well under 1 %
+#: [measured on lane renders].) # common practice, no published source
+SPACING_TOLERANCE = 0.03
+#: Seen/taped ratios in this range mean offsets typed in millimetres.
+MM_FOR_M_RATIO = (300.0, 3000.0)
+
 _REFINE_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 200, 1e-14)
 
 
@@ -43,11 +51,18 @@ class Placement:
     source : the plane image's name.
     image_points : (rows*cols, 2) corners (u, v) in reading order, px.
     offset_m : taped shift downrange from the first placement, m (first: 0).
+    grid : (cols, rows) corners along the image rows and down the columns as seen, or None for the
+        board as ``--grid`` gives it (a board standing turned by 90° is seen transposed).
     """
 
     source: str
     image_points: np.ndarray
     offset_m: float
+    grid: tuple[int, int] | None = None
+
+    def board(self, spec: GridSpec) -> GridSpec:
+        """``spec`` oriented as this placement stands."""
+        return spec if self.grid is None else spec.oriented(*self.grid)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "image_points", np.asarray(self.image_points, float).reshape(-1, 2))
@@ -79,7 +94,7 @@ class PlanePose:
 
 def placement_world_points(spec: GridSpec, placements: Sequence[Placement]) -> np.ndarray:
     """(M, 3) world positions of all placements' corners (each board shifted by its offset), m."""
-    return np.concatenate([spec.board_points(p.offset_m) for p in placements])
+    return np.concatenate([p.board(spec).board_points(p.offset_m) for p in placements])
 
 
 def solve_pose(
@@ -102,6 +117,19 @@ def solve_pose(
     rvec, tvec = cv2.solvePnPRefineLM(obj, img, k, d, rvec, tvec, criteria=_REFINE_CRITERIA)
     rot, _ = cv2.Rodrigues(rvec)
     return rot, tvec.ravel()
+
+
+def pose_residual_px(
+    world: np.ndarray, image: np.ndarray, camera_matrix: np.ndarray, dist_coeffs: np.ndarray
+) -> float:
+    """RMS reprojection residual (2-D distance, px) of coplanar points after their own best pose
+    (:func:`solve_pose`) under the lens model; inf when no pose is found."""
+    try:
+        rot, t = solve_pose(world, image, camera_matrix, dist_coeffs)
+    except (ValueError, cv2.error):
+        return float("inf")
+    err = _project(world, rot, t, camera_matrix, dist_coeffs) - np.asarray(image, float).reshape(-1, 2)
+    return float(np.sqrt(np.mean(np.sum(err**2, axis=1))))
 
 
 def solve_plane(
@@ -132,12 +160,16 @@ def solve_plane(
     """
     if not placements:
         raise ValueError("--plane: need at least one plane image")
+    check_spacing(placements, spec, camera_matrix, dist_coeffs)
     world = placement_world_points(spec, placements)
     image = np.concatenate([p.image_points for p in placements])
     rot, t = solve_pose(world, image, camera_matrix, dist_coeffs)
     centre = -rot.T @ t
     if centre[2] <= 0:
-        raise ValueError(f"{placements[0].source}: the board faces away from the camera (seen from behind?)")
+        raise ValueError(
+            f"{placements[0].source}: no single plane fits the placements (the camera would stand behind the "
+            "board): check the offsets (metres downrange from the first) and --square-mm"
+        )
     proj = _project(world, rot, t, camera_matrix, dist_coeffs)
     err = np.linalg.norm(proj - image, axis=1)
     per, warns, start = [], [], 0
@@ -153,9 +185,58 @@ def solve_plane(
                 f"({p.offset_m:g} m), its height and that it stands in the same plane"
             )
     x0 = min(p.offset_m for p in placements)
-    x1 = max(p.offset_m for p in placements) + (spec.cols - 1) * spec.square_m
-    cover = (x0, x1, -(spec.rows - 1) * spec.square_m, 0.0)
+    x1 = max(p.offset_m + (p.board(spec).cols - 1) * spec.square_m for p in placements)
+    cover = (x0, x1, -max(p.board(spec).rows - 1 for p in placements) * spec.square_m, 0.0)
     return PlanePose(rot, t, float(np.sqrt(np.mean(err**2))), tuple(per), cover, tuple(warns))
+
+
+def check_spacing(
+    placements: Sequence[Placement], spec: GridSpec, camera_matrix: np.ndarray, dist_coeffs: np.ndarray
+) -> tuple[float, ...]:
+    """Compare the placements' spacing seen in the image with their taped offsets.
+
+    Each board's own pose (its corners alone, through the lens) puts it in the camera frame; the seen
+    spacing is the shift of each board's first corner from the first placement's, along that board's rows.
+
+    Returns
+    -------
+    The ratios seen / taped of the placements after the first (empty for one placement).
+
+    Raises
+    ------
+    ValueError
+        A ratio off 1 by more than :data:`SPACING_TOLERANCE`, naming the placement and the likely cause:
+        offsets typed in millimetres (ratio near 1/1000) or a wrong square size or offset.
+    """
+    if len(placements) < 2:
+        return ()
+    poses = []
+    for p in placements:
+        rot, t = solve_pose(p.board(spec).board_points(), p.image_points, camera_matrix, dist_coeffs)
+        poses.append((rot, t))
+    rot0, t0 = poses[0]
+    ratios = []
+    for p, (_, t) in zip(placements[1:], poses[1:], strict=True):
+        taped = p.offset_m - placements[0].offset_m
+        seen = float((t - t0) @ rot0[:, 0])
+        if taped == 0:
+            raise ValueError(f"--plane {p.source}: offset {p.offset_m:g} m is the first placement's too")
+        ratio = seen / taped
+        ratios.append(ratio)
+        if abs(ratio - 1.0) <= SPACING_TOLERANCE:
+            continue
+        lo, hi = MM_FOR_M_RATIO
+        if lo <= 1.0 / max(abs(ratio), 1e-12) <= hi:
+            raise ValueError(
+                f"--plane {p.source}:{p.offset_m:g}: the board stands {seen:.3g} m from the first in the image, "
+                f"the offset says {taped:g} m: offsets are metres (typed in millimetres?)"
+            )
+        raise ValueError(
+            f"--plane {p.source}: the placements' spacing seen in the image ({seen:.4g} m) is {ratio:.3g}× "
+            f"the taped offset ({taped:g} m): the square size (--square-mm {spec.square_m * 1e3:g}) or this "
+            "offset is wrong"
+        )
+    return tuple(ratios)
 
 
 def _project(world, rot, t, k, d) -> np.ndarray:

@@ -72,7 +72,7 @@ def test_calibrate_writes_rig_and_summary(scene, tmp_path, capsys):
         "mapping error",
     ):
         assert label in cap.out
-    assert "12 / 1" in cap.out
+    assert f"{12 + len(scene.plane_views)} / 1" in cap.out  # the plane views are lens views too
 
 
 def _bad(scene, tmp_path, capsys, argv, match):
@@ -147,7 +147,7 @@ def test_offset_not_a_number(scene, tmp_path, capsys):
         tmp_path,
         capsys,
         {"planes": [f"{p}:0", f"{p}:ten"]},
-        "the offset 'ten' is not a number of metres",
+        "the offset in metres: not a number: 'ten'",
     )
 
 
@@ -168,10 +168,17 @@ def test_drop_check_is_carried_and_wrong_rate_warned(scene, tmp_path, capsys):
     out = tmp_path / "rig.json"
     true_fps = scene.truth["drop"]["fps"]
     extra = ["--ensemble", "0", "--drop", str(scene.drop_clip_path), "--drop-fps", str(true_fps / 4)]
+    # a rig failing its own drop check is refused with one line naming the likely cause
     code = cli.main(_args(scene, out, extra=extra))
+    cap = capsys.readouterr()
+    assert code == EXIT_BAD_INPUT and not out.exists()
+    assert len(cap.err.strip().splitlines()) == 1 and "likely cause: frame rate" in cap.err, cap.err
+    # ... unless the user asks to keep it: then it is written and marked
+    code = cli.main(_args(scene, out, extra=[*extra, "--keep-failed-drop"]))
     cap = capsys.readouterr()
     assert code == EXIT_OK, cap.err
     d = json.loads(out.read_text())["drop_check"]
+    assert d["kept_by_user"] is True and d["likely_cause"] == "frame rate"
     assert set(d) >= {"g_measured_mps2", "g_expected_mps2", "verdict"}
     assert set(d["g_measured_mps2"]) == {"value", "stderr"}
     assert d["verdict"] == "inconsistent"

@@ -170,7 +170,7 @@ def test_rolling_shutter_is_taken_out_of_the_drop(tmp_path):
     write_gray_video(path, frames, FPS)
     with_readout, _ = check_drop(rig, path, readout_s=readout)
     without, _ = check_drop(rig, path)
-    g_with = with_readout["g_measured_mps2"]["value"]
-    g_without = without["g_measured_mps2"]["value"]
+    g_with = with_readout.g_measured_mps2.value
+    g_without = without.g_measured_mps2.value
     assert abs(g_with - G) / G < G_RTOL_RENDERED
     assert abs(g_without - G) > 2 * abs(g_with - G)

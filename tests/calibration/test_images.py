@@ -32,7 +32,7 @@ def test_canonical_order_undoes_flips():
         np.testing.assert_array_equal(canonical_order(flipped.reshape(-1, 2), SPEC), want)
 
 
-def test_canonical_order_rejects_board_turned_90_degrees():
+def test_canonical_order_rejects_board_turned_90_degrees_for_a_fixed_order():
     pts = _grid_points(SPEC)[:, ::-1]  # rows now run down the image
     with pytest.raises(ValueError, match=r"rows run vertically .* --grid should be 4x5"):
         canonical_order(pts, SPEC)
@@ -122,7 +122,7 @@ def test_video_of_lens_views_is_sampled_and_calibrates(rendered_close, tmp_path)
     assert len(found) == len(imgs)
     assert all("#" in d.source for d in dets)
     assert sum("similar to another view" in d.reason for d in dets) == 3
-    lens = calibrate_lens([ViewPoints(d.source, d.corners, grid.board_points()) for d in found], size)
+    lens = calibrate_lens([ViewPoints(d.source, d.corners, d.spec(grid).board_points()) for d in found], size)
     f_true = scene.truth["camera"]["camera_matrix"][0][0]
     assert abs(lens.camera_matrix[0, 0] - f_true) / f_true < 2e-3
     assert expand_views([str(video)])[0].is_video
@@ -146,3 +146,41 @@ def test_detected_plane_corners_are_in_reading_order(rendered_close):
         np.array(c["dist_coeffs"]),
     )
     assert np.max(np.linalg.norm(det.corners - want.reshape(-1, 2), axis=1)) < 0.3
+
+
+def _board_image(squares=(7, 5), square_px=40, margin_px=60):
+    """A plain checkerboard picture (``squares`` columns × rows), slightly blurred."""
+    cols, rows = squares
+    h, w = rows * square_px + 2 * margin_px, cols * square_px + 2 * margin_px
+    img = np.full((h, w), 230, np.uint8)
+    for r in range(rows):
+        for c in range(cols):
+            if (r + c) % 2 == 0:
+                y, x = margin_px + r * square_px, margin_px + c * square_px
+                img[y : y + square_px, x : x + square_px] = 25
+    return cv2.GaussianBlur(img, (0, 0), 1.0)
+
+
+#: Corners of a drawn board are found to well under a pixel by every detector.
+DRAWN_CORNER_TOL_PX = 0.5
+
+
+def test_either_grid_order_is_found_and_put_in_reading_order():
+    # a 7x5-square board (6x4 inner corners) upright and turned by 90°: --grid 6x4 finds both, and the
+    # corners come in reading order with the counts as seen (6 along the rows upright, 4 when turned)
+    spec = GridSpec(6, 4, 0.03)
+    upright = _board_image()
+    turned = np.ascontiguousarray(np.rot90(upright))
+    a = detect_grid(upright, spec)
+    b = detect_grid(turned, spec)
+    assert a.found and b.found
+    assert a.grid == (6, 4) and b.grid == (4, 6)
+    assert b.spec(spec) == GridSpec(4, 6, 0.03)
+    for det in (a, b):
+        g = det.corners.reshape(det.grid[1], det.grid[0], 2)
+        assert np.all(np.diff(g[:, :, 0], axis=1) > 0) and np.all(np.diff(g[:, :, 1], axis=0) > 0)
+        # the inner corners sit on the square boundaries, 60 + k·40 px (minus the half-pixel centre)
+        u = det.corners[:, 0] + 0.5
+        assert np.max(np.abs((u - 60) / 40 - np.round((u - 60) / 40))) * 40 < DRAWN_CORNER_TOL_PX
+        methods = {c.method for c in det.candidates}
+        assert {"classic+subpix", "sb", "sb-accuracy"} <= methods

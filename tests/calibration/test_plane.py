@@ -172,3 +172,41 @@ def test_ensemble_spread_is_honest_over_repeats():
         z.append((nominal - truth.pixel_to_world(probe)) / sd)
     z_rms = float(np.sqrt(np.mean(np.square(z))))
     assert Z_RMS_BOUNDS[0] < z_rms < Z_RMS_BOUNDS[1], z_rms
+
+
+def test_offsets_typed_in_millimetres_are_named():
+    rng = np.random.default_rng(8)
+    truth = _truth(CLOSE_K, CLOSE_DIST, (1.5, -0.2, 3.5), (1.5, -0.25, 0.0))
+    placements = _placements(truth, BOARD, (0.0, 1.2), rng)
+    mm = [placements[0], Placement(placements[1].source, placements[1].image_points, 1200.0)]
+    with pytest.raises(
+        ValueError, match=r"plane1\.png:1200: .* offsets are metres \(typed in millimetres\?\)"
+    ):
+        solve_plane(mm, BOARD, CLOSE_K, CLOSE_DIST)
+
+
+def test_wrong_square_size_names_the_placements_scale():
+    rng = np.random.default_rng(9)
+    truth = _truth(CLOSE_K, CLOSE_DIST, (1.5, -0.2, 3.5), (1.5, -0.25, 0.0))
+    placements = _placements(truth, BOARD, (0.0, 1.2), rng)
+    half = GridSpec(BOARD.cols, BOARD.rows, BOARD.square_m / 2)  # --square-mm typed as half the size
+    with pytest.raises(ValueError, match=r"spacing seen in the image \(0\.6 m\) is 0\.5× .*--square-mm 50"):
+        solve_plane(placements, half, CLOSE_K, CLOSE_DIST)
+    # the right size: the seen spacing matches the tape to well under the tolerance
+    pose = solve_plane(placements, BOARD, CLOSE_K, CLOSE_DIST)
+    assert pose.rms_px < 0.15
+
+
+def test_board_standing_turned_90_degrees_gives_the_same_world_frame():
+    # --grid 11x6 given, the board stands with 6 corners along the image rows: the placement carries
+    # its own orientation and the world x still runs along the image rows
+    rng = np.random.default_rng(10)
+    truth = _truth(CLOSE_K, CLOSE_DIST, (0.5, -0.2, 2.0), (0.5, -0.25, 0.0))
+    upright = BOARD.transposed()
+    img = project(upright.board_points(), truth.rotation, truth.translation, CLOSE_K, CLOSE_DIST)
+    place = Placement(
+        "up.png", img + rng.normal(0, NOISE_PX, img.shape), 0.0, grid=(upright.cols, upright.rows)
+    )
+    pose = solve_plane([place], BOARD, CLOSE_K, CLOSE_DIST)
+    np.testing.assert_allclose(pose.rotation, truth.rotation, atol=2e-3)
+    assert pose.coverage_m[1] == pytest.approx((upright.cols - 1) * BOARD.square_m)

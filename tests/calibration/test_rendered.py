@@ -189,7 +189,8 @@ def test_plane_mapping_agrees_with_scikit_image_on_rendered_board(close_scene):
     rig = run.rig
     b = scene.truth["board"]
     grid = GridSpec(b["cols"], b["rows"], b["square_m"])
-    det = detect_grid(read_image(scene.plane_views[0][0]), grid, reading_order=True)
+    det = detect_grid(read_image(scene.plane_views[0][0]), grid)
+    det = det.choose(rig.provenance["corners"]["per_image"][str(scene.plane_views[0][0])]["detector"])
     k, d = rig.camera_matrix, rig.dist_coeffs
 
     def undistort(uv):
