@@ -301,7 +301,8 @@ def perturbed_scene(
     """``spec`` with its shot (speed, elevation, lift, decay) and camera pose drawn around the base values.
 
     For error-bar coverage over many truths: each draw is a new, equally valid scene (demo data, invented).
-    The name gains no suffix; the digest (and so the render cache) differs with the draw.
+    The drop's release point moves with the camera so that it stays where the base scene has it in the
+    image. The name gains no suffix; the digest (and so the render cache) differs with the draw.
     """
     gen = np.random.default_rng(rng)
     p = perturbation
@@ -327,4 +328,19 @@ def perturbed_scene(
         look_at_m=(c.look_at_m[0] + aim[0], c.look_at_m[1] + aim[1], c.look_at_m[2]),
         roll_deg=c.roll_deg + u(p.roll_deg),
     )
-    return dataclasses.replace(spec, camera=camera, flight=flight)
+    drop = spec.drop
+    if drop is not None:  # the drop still starts where the base scene has it in the image (just above it)
+        uv = SceneCamera.from_spec(c).project(np.array([drop.release_m]))
+        drop = dataclasses.replace(
+            drop, release_m=_point_seen_at(SceneCamera.from_spec(camera), uv, drop.release_m[2])
+        )
+    return dataclasses.replace(spec, camera=camera, flight=flight, drop=drop)
+
+
+def _point_seen_at(camera: SceneCamera, uv_px: np.ndarray, z_m: float) -> tuple[float, float, float]:
+    """The point of the plane z = ``z_m`` (world, m) that ``camera`` sees at pixel ``uv_px`` (1, 2)."""
+    xn = camera.undistort_pixels(uv_px)[0]
+    ray = camera.rotation.T @ np.array([xn[0], xn[1], 1.0])
+    centre = camera.centre_m
+    p = centre + (z_m - centre[2]) / ray[2] * ray
+    return (float(p[0]), float(p[1]), float(z_m))

@@ -52,6 +52,8 @@ CROSSING_TOL_PX = 1e-6
 DISTRACTOR_TOL_PX = 0.15
 #: The resting BB's rendered centroid vs its truth, px.
 CENTROID_TOL_PX = 0.1
+#: A perturbed scene's drop release seen at the base scene's pixel, px.
+RELEASE_PIXEL_TOL_PX = 1e-6
 #: Free fall after the release: y = y0 − g t²/2, relative (drag is negligible below 1 m/s).
 FALL_REL_TOL = 1e-3
 
@@ -298,5 +300,9 @@ def test_perturbed_truths_stay_within_their_bounds_and_differ_by_seed():
             p.camera_shift_m
         )
         assert (d.board, d.lens, d.plane, d.bb) == (base.board, base.lens, base.plane, base.bb)
+        # the drop starts where the base scene has it in the image (just above the top edge)
+        seen = SceneCamera.from_spec(d.camera).project(np.array([d.drop.release_m]))
+        base_seen = SceneCamera.from_spec(base.camera).project(np.array([base.drop.release_m]))
+        assert np.allclose(seen, base_seen, atol=RELEASE_PIXEL_TOL_PX)
     speeds = np.array([d.flight.speed_mps for d in draws])
     assert np.ptp(speeds) > p.speed_rel * base.flight.speed_mps  # the draws do spread
