@@ -285,7 +285,7 @@ class DropSpec(SpecPart):
     holder_frames : the last ``holder_frames`` of the ``lead_frames`` show the BB at rest at ``release_m``,
         touching the holder, as in a real drop from a clamp (0: no holder, the BB falls into view).
     holder_width_m, holder_height_m : the holder, a dark bar in the flight plane whose right edge touches
-        the BB's left side and which reaches from the BB's lowest point up by ``holder_height_m``, m. It
+        the BB's left side and which reaches from the BB's centre height up by ``holder_height_m``, m. It
         stays in view after the release.
     holder_level_dn : the holder's brightness, DN.
     """
