@@ -673,8 +673,13 @@ def _measure(
     if fap > max_false_alarm:
         return _no_spin(
             base,
-            f"no significant flicker: highest peak at {grid[i]:.4g} Hz has false-alarm probability "
-            f"{fap:.2g} > {max_false_alarm:g}",
+            f"no significant flicker between {search_lo:.4g} and {search_hi:.4g} Hz: highest peak at "
+            f"{grid[i]:.4g} Hz has false-alarm probability {fap:.2g} > {max_false_alarm:g}"
+            + (
+                f" (a slower flicker needs a longer series: {MIN_CYCLES:g} cycles)"
+                if search_lo > f_lo
+                else ""
+            ),
         )
     fit = _sinusoid_fit(t, y, float(grid[i]), trend_degree, span)
     if fit is not None:  # one refit without outliers (a BB cut by the image edge, a glint)
