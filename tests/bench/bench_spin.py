@@ -12,8 +12,10 @@ Run: ``python tests/bench/bench_spin.py`` (about a minute on two cores).
 
 from __future__ import annotations
 
+import importlib.util
 import math
 import time
+from pathlib import Path
 
 import numpy as np
 
@@ -25,10 +27,23 @@ from hopscope.fitting.spin import (
     measure_spin,
     spin_prior_from_lift,
 )
-from hopscope.scenes import builtin_scene, prepare_scene
+from hopscope.scenes import builtin_scene
 from hopscope.scenes.variants import SPIN_VARIANTS, lane_spin_named
 
 TWO_PI = 2.0 * math.pi
+
+
+def _load_spin_tests():
+    """The rendered-brightness helper lives with the tests that assert on it (tests/fitting/test_spin.py)."""
+    path = Path(__file__).resolve().parents[1] / "fitting" / "test_spin.py"
+    spec = importlib.util.spec_from_file_location("spin_tests", path)
+    assert spec is not None and spec.loader is not None
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+SPIN_TESTS = _load_spin_tests()
 
 
 def synthetic(rng, *, n, fs, rate, tau=math.inf, exposure=0.0, noise=0.03, depth=0.3):
@@ -81,42 +96,6 @@ def synthetic_table(seeds: int = 100) -> None:
         )
 
 
-def rendered_brightness(spec):
-    """(mid-exposure times s, raw brightness, occlusion-corrected brightness, true spin rad/s per frame)."""
-    ps = prepare_scene(spec, rng=0)
-    frames = [f for f in ps.true_flight_frames() if f["visible"]]
-    uv = np.array([[f["u_px"], f["v_px"]] for f in frames])
-    vel = np.gradient(uv, axis=0)  # px per frame
-    exposure_frames = spec.camera.exposure_s * spec.camera.fps
-    rng = np.random.default_rng(1)
-    q = 4
-    sub = (np.arange(q) + 0.5) / q - 0.5
-    t, raw, corrected, truth = [], [], [], []
-    for i, f in enumerate(frames):
-        img = ps.flight_frame(f["frame"], rng=rng).astype(float)
-        bg = ps.flight_frame(f["frame"], rng=None, bb=False, quantise=False).astype(float)
-        u, v = uv[i]
-        r = f["radius_px"]
-        h, w = img.shape
-        y0, y1 = max(0, int(v - r - 8)), min(h, int(v + r + 9))
-        x0, x1 = max(0, int(u - r - 8)), min(w, int(u + r + 9))
-        yy, xx = np.mgrid[y0:y1, x0:x1]
-        alpha = np.zeros(yy.shape)
-        steps = np.linspace(-0.5, 0.5, 9)
-        for s in steps:
-            cu, cv = u + vel[i, 0] * exposure_frames * s, v + vel[i, 1] * exposure_frames * s
-            for a in sub:
-                for b in sub:
-                    alpha += (xx + a - cu) ** 2 + (yy + b - cv) ** 2 <= r * r
-        alpha /= steps.size * q * q
-        diff = (img - bg)[y0:y1, x0:x1]
-        raw.append(float(diff.sum()))
-        corrected.append(float((diff + alpha * bg[y0:y1, x0:x1]).sum()))
-        t.append(f["t_mid_s"])
-        truth.append(f["spin_radps"])
-    return np.array(t), np.array(raw), np.array(corrected), np.array(truth)
-
-
 def fmt(x, scale=1.0, width=8, digits=1):
     return f"{x * scale:{width}.{digits}f}" if x is not None else f"{'-':>{width}s}"
 
@@ -130,7 +109,7 @@ def rendered_table() -> None:
     )
     for name in names:
         spec = builtin_scene(name) if name == "lane-spin" else lane_spin_named(name)
-        t, raw, cor, truth = rendered_brightness(spec)
+        t, raw, cor, truth = SPIN_TESTS.rendered_marked_brightness(spec)
         k, u, r = spec.flight.lift_slope, spec.flight.speed_mps, 0.5 * spec.bb.diameter_m
         for label, b in (("raw", raw), ("corrected", cor)):
             spin = measure_shot_spin(t, b, exposure_s=spec.camera.exposure_s)

@@ -32,6 +32,8 @@ from hopscope.fitting.spin import (
     spin_prior_from_lift,
     spin_vs_time,
 )
+from hopscope.scenes import builtin_scene, prepare_scene
+from hopscope.scenes.variants import lane_spin_named
 
 REFERENCE_POWER_ATOL = 1e-10  # two exact computations of the same least-squares power
 FAP_RTOL = 1e-6  # the same closed form evaluated twice
@@ -43,6 +45,7 @@ PULL_MEAN_MAX = 0.2  # no bias beyond a fifth of σ
 MODULATION_REL_TOL = 0.03  # exposure-corrected flicker depth vs the true depth
 FALSE_ALARM_SLACK = 0.03  # false detections on pure noise may exceed the level by sampling scatter only
 
+RENDERED_ALIAS_REL_TOL = 0.02  # the aliased variant's BB is 1.6 px in radius: its candidate is 1.1 % off
 R_BB_M = 0.5 * 5.95e-3
 TWO_PI = 2.0 * math.pi
 
@@ -470,3 +473,102 @@ def test_measured_spin_ratio_and_its_sigma():
     assert ss == pytest.approx(s * math.hypot(0.01, 0.01), rel=1e-12)
     with pytest.raises(ValueError, match="speed_mps must be positive"):
         measured_spin_ratio(6000.0, 60.0, speed_mps=0.0, speed_stderr_mps=0.9, radius_m=R_BB_M)
+
+
+# ---------------------------------------------------------------------------------------------- rendered scenes
+
+
+def rendered_marked_brightness(spec):
+    """A marked BB's brightness in every visible frame of a rendered scene, summed in a disk at the true image
+    centre: (mid-exposure times s, frame − background, the same with the background the BB hides added back
+    (α·B, α the BB's coverage of each pixel over the exposure: the BB's own light), true spin rad/s).
+
+    Pixel points are (u, v) = (column, row), the top-left pixel's centre at (0, 0)."""
+    ps = prepare_scene(spec, rng=0)
+    frames = [f for f in ps.true_flight_frames() if f["visible"]]
+    uv = np.array([[f["u_px"], f["v_px"]] for f in frames])
+    vel = np.gradient(uv, axis=0)  # px per frame
+    exposure_frames = spec.camera.exposure_s * spec.camera.fps
+    rng = np.random.default_rng(1)
+    q = 4
+    sub = (np.arange(q) + 0.5) / q - 0.5
+    t, raw, corrected, truth = [], [], [], []
+    for i, f in enumerate(frames):
+        img = ps.flight_frame(f["frame"], rng=rng).astype(float)
+        bg = ps.flight_frame(f["frame"], rng=None, bb=False, quantise=False).astype(float)
+        u, v = uv[i]
+        r = f["radius_px"]
+        h, w = img.shape
+        y0, y1 = max(0, int(v - r - 8)), min(h, int(v + r + 9))
+        x0, x1 = max(0, int(u - r - 8)), min(w, int(u + r + 9))
+        yy, xx = np.mgrid[y0:y1, x0:x1]
+        alpha = np.zeros(yy.shape)
+        steps = np.linspace(-0.5, 0.5, 9)
+        for s in steps:
+            cu, cv = u + vel[i, 0] * exposure_frames * s, v + vel[i, 1] * exposure_frames * s
+            for a in sub:
+                for b in sub:
+                    alpha += (xx + a - cu) ** 2 + (yy + b - cv) ** 2 <= r * r
+        alpha /= steps.size * q * q
+        diff = (img - bg)[y0:y1, x0:x1]
+        raw.append(float(diff.sum()))
+        corrected.append(float((diff + alpha * bg[y0:y1, x0:x1]).sum()))
+        t.append(f["t_mid_s"])
+        truth.append(f["spin_radps"])
+    return np.array(t), np.array(raw), np.array(corrected), np.array(truth)
+
+
+def rendered_scene(name: str):
+    return builtin_scene(name) if name == "lane-spin" else lane_spin_named(name)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["lane-spin", "lane-spin-fast", "lane-spin-5k"])
+def test_rendered_spin_within_one_percent(name):
+    spec = rendered_scene(name)
+    t, _, own_light, truth = rendered_marked_brightness(spec)
+    est = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    assert est.rate_radps is not None and est.stderr_radps is not None
+    true_rate = float(np.interp(est.at_t_s, t, truth))
+    assert abs(est.rate_radps / true_rate - 1.0) < RATE_REL_TOL
+    assert abs(est.rate_radps - true_rate) < RATE_PULL_MAX * est.stderr_radps
+
+
+@pytest.mark.slow
+def test_rendered_decay_within_fifteen_percent():
+    spec = rendered_scene("lane-spin-decay")
+    t, _, own_light, truth = rendered_marked_brightness(spec)
+    spin = measure_shot_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    assert spin.decay is not None and spin.decay.scale is not None
+    assert abs(spin.decay.scale / spec.flight.spin_decay_time_s - 1.0) < DECAY_REL_TOL
+    mean_rate = spin.overall.rate_radps
+    assert mean_rate is not None
+    assert abs(mean_rate / float(np.interp(spin.overall.at_t_s, t, truth)) - 1.0) < RATE_REL_TOL
+
+
+@pytest.mark.slow
+def test_rendered_aliased_lists_and_with_the_scene_law_picks_the_true_rate():
+    spec = rendered_scene("lane-spin-aliased")
+    t, _, own_light, truth = rendered_marked_brightness(spec)
+    blind = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    assert blind.aliased and not blind.measured
+    true_rate = float(np.interp(blind.at_t_s, t, truth))
+    cands = np.array(blind.candidates_radps)
+    nearest = float(cands[np.argmin(np.abs(cands - true_rate))])
+    assert abs(nearest / true_rate - 1.0) < RENDERED_ALIAS_REL_TOL
+    # the lift a fit would find at the first point, under the scene's own law C_L = k S
+    k, u = spec.flight.lift_slope, spec.flight.speed_mps
+    cl = k * R_BB_M * truth[0] / u
+    prior = spin_prior_from_lift(
+        cl, 0.05 * cl, speed_mps=u, radius_m=R_BB_M, law=LinearLift(k), law_rel_sigma=0.0
+    )
+    chosen = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s, prior=prior)
+    assert chosen.rate_radps == nearest
+
+
+@pytest.mark.slow
+def test_rendered_slow_spin_with_too_few_cycles_reports_no_number():
+    spec = rendered_scene("lane-spin-slow")  # 400 rev/s over 32 frames at 10,000 fps: 1.3 turns in view
+    t, _, own_light, _ = rendered_marked_brightness(spec)
+    est = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    assert not est.measured and est.reason is not None and "needs a longer series" in est.reason
