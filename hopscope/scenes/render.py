@@ -42,6 +42,7 @@ Time: frame k has container timestamp k/fps; row r of frame k is exposed over
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from collections.abc import Callable, Sequence
@@ -391,13 +392,7 @@ def _flight_truth(scene: PreparedScene) -> dict[str, Any]:
             "diameter_m": bb.diameter_m,
             "mark_phase_rad": math.radians(spec.bb.mark_phase_deg),
         },
-        "air": {
-            "temperature_k": air.temperature_k,
-            "pressure_pa": air.pressure_pa,
-            "relative_humidity": air.relative_humidity,
-            "density_kgm3": air.density_kgm3,
-            "viscosity_pas": air.viscosity_pas,
-        },
+        "air": dataclasses.asdict(air),
         "gravity_mps2": model.gravity_mps2,
         "wind_mps": list(model.wind_mps),
         "laws": {

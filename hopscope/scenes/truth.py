@@ -23,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from hopscope.fitting.air import Air
 from hopscope.shared.parse import json_finite
 
 from .spec import BoardSpec, SceneSpec
@@ -319,30 +320,16 @@ class DropTruth(ClipTruth):
         )
 
 
-@dataclass(frozen=True)
-class AirTruth:
-    """The air: temperature (K), pressure (Pa), relative humidity (0..1), density (kg/m³), viscosity (Pa·s)."""
-
-    temperature_k: float
-    pressure_pa: float
-    relative_humidity: float
-    density_kgm3: float
-    viscosity_pas: float
-
-    @classmethod
-    def from_json(cls, d: dict, where: str) -> AirTruth:
-        return cls(*(_num(d, f.name, where) for f in dataclasses.fields(cls)))
-
-
 @dataclass(frozen=True, eq=False, kw_only=True)
 class FlightTruth(ClipTruth):
-    """The flight clip and the shot: BB (kind, kg, m, mark angle rad), air, g (m/s²), wind (m/s), laws, states."""
+    """The flight clip and the shot: BB (kind, kg, m, mark angle rad), air (the flight model's :class:`Air`),
+    g (m/s²), wind (m/s), laws, states."""
 
     bb_kind: str
     mass_kg: float
     diameter_m: float
     mark_phase_rad: float
-    air: AirTruth
+    air: Air
     gravity_mps2: float
     wind_mps: np.ndarray
     laws: LawsTruth
@@ -358,7 +345,7 @@ class FlightTruth(ClipTruth):
             mass_kg=_num(bb, "mass_kg", f"{where}.bb"),
             diameter_m=_num(bb, "diameter_m", f"{where}.bb"),
             mark_phase_rad=_num(bb, "mark_phase_rad", f"{where}.bb"),
-            air=AirTruth.from_json(d["air"], f"{where}.air"),
+            air=Air(*(_num(d["air"], f.name, f"{where}.air") for f in dataclasses.fields(Air))),
             gravity_mps2=_num(d, "gravity_mps2", where),
             wind_mps=_array(d["wind_mps"], f"{where}.wind_mps", (3,)),
             laws=LawsTruth.from_json(d["laws"], f"{where}.laws"),

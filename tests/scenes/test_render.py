@@ -10,6 +10,7 @@ import av
 import cv2
 import numpy as np
 import pytest
+from scene_probe import CLEAN, bb_centroid, flat_clean, flicker_series, interior_frames
 
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
@@ -18,10 +19,10 @@ from hopscope.fitting.laws import ConstantDrag, ExponentialDecay, LinearLift
 from hopscope.scenes import (
     BBSpec,
     CameraSpec,
-    ImageModelSpec,
     LightingSpec,
     SceneCamera,
     board_corners,
+    builtin_scene,
     load_truth,
     prepare_scene,
     project_board_corners,
@@ -51,29 +52,7 @@ ROLLING_SHIFT_TOL_PX = 0.1
 #: Truth path re-flown from truth.json's own numbers, m.
 REFLY_TOL_M = 1e-6
 
-CLEAN = ImageModelSpec(noise=False, motion_blur=False, rolling_shutter=False)
 FLAT = LightingSpec(wall_distance_m=0.5, texture_contrast=0.0, gradient=0.0)
-
-
-def _bb_centroid(frame: np.ndarray, background: np.ndarray, u: float, v: float, half: int = 8):
-    """Intensity centroid of |frame − background| in a window around (u, v); returns (u, v)."""
-    r0, c0 = int(round(v)) - half, int(round(u)) - half
-    win = np.abs(
-        frame[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1].astype(float)
-        - background[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
-    )
-    rr, cc = np.mgrid[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
-    s = win.sum()
-    return float((win * cc).sum() / s), float((win * rr).sum() / s)
-
-
-def _interior_frames(truth_frames, size, margin=10):
-    w, h = size
-    return [
-        f
-        for f in truth_frames
-        if f["visible"] and margin < f["u_px"] < w - 1 - margin and margin < f["v_px"] < h - 1 - margin
-    ]
 
 
 @pytest.mark.parametrize("kind", ["white", "tracer"])
@@ -81,13 +60,13 @@ def test_projected_truth_lands_on_rendered_centroid(kind):
     spec = small_scene(image=CLEAN, lighting=FLAT, bb=BBSpec(kind=kind))
     scene = prepare_scene(spec, rng=1)
     truth = scene.true_flight_frames()
-    frames = _interior_frames(truth, spec.camera.image_size)
+    frames = interior_frames(truth, spec.camera.image_size)
     assert len(frames) >= 8
     errs = []
     for f in frames:
         img = scene.flight_frame(f["frame"], quantise=False)
         bg = scene.flight_frame(f["frame"], quantise=False, bb=False)
-        cu, cv = _bb_centroid(img, bg, f["u_px"], f["v_px"])
+        cu, cv = bb_centroid(img, bg, f["u_px"], f["v_px"])
         errs.append(math.hypot(cu - f["u_px"], cv - f["v_px"]))
     assert max(errs) < CENTROID_TOL_PX, errs
 
@@ -262,24 +241,15 @@ def test_rolling_shutter_shifts_the_bb_by_its_image_velocity_times_the_row_delay
     h = base.camera.image_size[1]
     frames_off = off.true_flight_frames()
     frames_on = on.true_flight_frames()
-    inner = _interior_frames(frames_off, base.camera.image_size, margin=20)
+    inner = interior_frames(frames_off, base.camera.image_size, margin=20)
     assert len(inner) >= 6
     for f in inner[1:-1]:
         k = f["frame"]
-        c_off = _bb_centroid(
-            off.flight_frame(k, quantise=False),
-            off.flight_frame(k, quantise=False, bb=False),
-            f["u_px"],
-            f["v_px"],
-            half=16,
-        )
-        c_on = _bb_centroid(
-            on.flight_frame(k, quantise=False),
-            on.flight_frame(k, quantise=False, bb=False),
-            f["u_px"],
-            f["v_px"],
-            half=16,
-        )
+        c_off, c_on = (
+            bb_centroid(sc.flight_frame(k, quantise=False), sc.flight_frame(k, quantise=False, bb=False),
+                        f["u_px"], f["v_px"], half=16)
+            for sc in (off, on)
+        )  # fmt: skip
         # image velocity from the global-shutter truth of the neighbouring frames, px/s
         prev, nxt = frames_off[k - 1], frames_off[k + 1]
         vel = np.array([nxt["u_px"] - prev["u_px"], nxt["v_px"] - prev["v_px"]]) * fps / 2.0
@@ -312,7 +282,7 @@ def test_motion_blur_streak_length_is_speed_times_exposure():
     blur = prepare_scene(dataclasses.replace(base, image=dataclasses.replace(CLEAN, motion_blur=True)), rng=0)
     still = prepare_scene(dataclasses.replace(base, image=CLEAN), rng=0)
     truth = blur.true_flight_frames()
-    frames = _interior_frames(truth, base.camera.image_size, margin=30)
+    frames = interior_frames(truth, base.camera.image_size, margin=30)
     assert len(frames) >= 4
     cx = blur.camera.camera_matrix[0, 2]
     central = min(frames, key=lambda f: abs(f["u_px"] - cx))
@@ -335,7 +305,7 @@ def test_motion_blur_streak_length_is_speed_times_exposure():
         length = math.sqrt(12.0 * (var_b - var_s))
         assert length == pytest.approx(f["streak_len_px"], rel=STREAK_REL_TOL)
         # the blurred streak is centred on the mid-exposure position
-        cu, cv = _bb_centroid(
+        cu, cv = bb_centroid(
             blur.flight_frame(k, quantise=False),
             blur.flight_frame(k, quantise=False, bb=False),
             f["u_px"],
@@ -365,28 +335,12 @@ def test_marked_bb_brightness_flickers_at_the_spin_frequency():
     # ApJ 263:835; computed by scipy.signal.lombscargle (angular frequencies).
     from scipy.signal import lombscargle
 
-    from hopscope.scenes import builtin_scene
-
-    base = builtin_scene("lane-spin")
-    spec = dataclasses.replace(
-        base,
-        image=CLEAN,
-        lighting=dataclasses.replace(
-            base.lighting, texture_contrast=0.0, gradient=0.0, flicker_amplitude=0.0
-        ),
-    )
+    spec = flat_clean(builtin_scene("lane-spin"))
     scene = prepare_scene(spec, rng=0)
-    frames = _interior_frames(scene.true_flight_frames(), spec.camera.image_size, margin=15)
+    frames = interior_frames(scene.true_flight_frames(), spec.camera.image_size, margin=15)
     assert len(frames) >= 20
-    t = np.array([f["t_mid_s"] for f in frames])
-    bright = []
-    for f in frames:
-        diff = scene.flight_frame(f["frame"], quantise=False) - scene.flight_frame(
-            f["frame"], quantise=False, bb=False
-        )
-        r, c = int(round(f["v_px"])), int(round(f["u_px"]))
-        bright.append(float(diff[r - 14 : r + 15, c - 14 : c + 15].sum()))
-    y = np.array(bright) - np.mean(bright)
+    t, bright = flicker_series(scene, frames, half=14)
+    y = bright - np.mean(bright)
     assert np.std(y) > 0.05 * np.mean(np.abs(bright))  # a visible flicker
     f_true = frames[0]["spin_radps"] / (2 * np.pi)
     freqs = np.linspace(0.3 * f_true, 1.7 * f_true, 4000)
@@ -410,10 +364,10 @@ def test_drop_clip_truth_lands_on_the_rendered_bb_and_falls_under_gravity():
         image=CLEAN, lighting=FLAT, drop=DropSpec(release_m=(0.15, 0.05, 0.0), lead_frames=2, n_frames=60)
     )
     scene = prepare_scene(spec, rng=0)
-    frames = _interior_frames(scene.true_drop_frames(), spec.camera.image_size)
+    frames = interior_frames(scene.true_drop_frames(), spec.camera.image_size)
     assert len(frames) >= 50
     for f in frames[::10]:
-        cu, cv = _bb_centroid(
+        cu, cv = bb_centroid(
             scene.drop_frame(f["frame"], quantise=False),
             scene.drop_frame(f["frame"], quantise=False, bb=False),
             f["u_px"],

@@ -9,11 +9,11 @@ import math
 import av
 import numpy as np
 import pytest
+from scene_probe import CLEAN, bb_centroid, flat_clean, flicker_series
 
 from hopscope.scenes import (
     BUILTIN_SCENES,
     DropSpec,
-    ImageModelSpec,
     LightingSpec,
     builtin_scene,
     prepare_scene,
@@ -29,7 +29,6 @@ from hopscope.scenes.motion import field_x_span
 from hopscope.scenes.poses import plane_view_pose
 from hopscope.scenes.variants import SPIN_VARIANTS, bb_image_at
 
-CLEAN = ImageModelSpec(noise=False, motion_blur=False, rolling_shutter=False)
 FLAT = LightingSpec(wall_distance_m=0.5, texture_contrast=0.0, gradient=0.0)
 
 #: The one-board lane's field width (issue 10: "~2.8 m"), m, and the board's share of it ("~15 %").
@@ -56,14 +55,6 @@ CENTROID_TOL_PX = 0.1
 RELEASE_PIXEL_TOL_PX = 1e-6
 #: Free fall after the release: y = y0 − g t²/2, relative (drag is negligible below 1 m/s).
 FALL_REL_TOL = 1e-3
-
-
-def _centroid(diff: np.ndarray, u: float, v: float, half: int = 8) -> tuple[float, float]:
-    r0, c0 = int(round(v)) - half, int(round(u)) - half
-    win = np.abs(diff[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1])
-    rr, cc = np.mgrid[r0 : r0 + 2 * half + 1, c0 : c0 + 2 * half + 1]
-    s = win.sum()
-    return float((win * cc).sum() / s), float((win * rr).sum() / s)
 
 
 def test_every_variant_is_a_named_builtin_labelled_demo_data():
@@ -130,25 +121,12 @@ def test_marked_bb_flickers_at_the_spin_rate_or_its_alias(name):
     # scipy.signal.lombscargle (angular frequencies). Uniform sampling at f_s sees f as |f − k·f_s|.
     from scipy.signal import lombscargle
 
-    base = builtin_scene(name)
-    spec = dataclasses.replace(
-        base,
-        image=CLEAN,
-        lighting=dataclasses.replace(
-            base.lighting, texture_contrast=0.0, gradient=0.0, flicker_amplitude=0.0
-        ),
-    )
+    spec = flat_clean(builtin_scene(name))
     scene = prepare_scene(spec, rng=0)
     w, h = spec.camera.image_size
     frames = [f for f in scene.true_flight_frames() if f["visible"] and 12 < f["u_px"] < w - 13]
-    t = np.array([f["t_mid_s"] for f in frames])
-    bright = []
-    for f in frames:
-        k = f["frame"]
-        diff = scene.flight_frame(k, quantise=False) - scene.flight_frame(k, quantise=False, bb=False)
-        r, c = int(round(f["v_px"])), int(round(f["u_px"]))
-        bright.append(float(diff[r - 10 : r + 11, c - 10 : c + 11].sum()))
-    y = np.array(bright) - np.mean(bright)
+    t, bright = flicker_series(scene, frames, half=10)
+    y = bright - np.mean(bright)
     fps = spec.camera.fps
     f_spin = frames[0]["spin_radps"] / (2 * np.pi)
     f_seen = abs(f_spin - fps * round(f_spin / fps))
@@ -187,7 +165,7 @@ def test_crossing_distractor_is_twice_the_bb_at_a_tenth_of_its_speed_on_its_path
     u, v = (float(x[0]) for x in distractor_centre(cl, np.array([k / spec.camera.fps])))
     diff = img - plain
     assert (np.sign(diff[int(round(v)), int(round(u))]) > 0) == (polarity == "bright")
-    cu0, cv0 = _centroid(diff, u, v, half=int(cl.radius_px) + 4)
+    cu0, cv0 = bb_centroid(img, plain, u, v, half=int(cl.radius_px) + 4)
     assert math.hypot(cu0 - u, cv0 - v) < DISTRACTOR_TOL_PX
 
 
@@ -223,8 +201,13 @@ def test_holder_drop_rests_touching_the_holder_then_falls_freely():
     # the resting BB is drawn where the truth says
     f = resting[-1]
     k = f["frame"]
-    diff = scene.drop_frame(k, quantise=False) - scene.drop_frame(k, quantise=False, bb=False)
-    cu, cv = _centroid(np.clip(diff, 0.0, None), f["u_px"], f["v_px"], half=6)
+    cu, cv = bb_centroid(
+        scene.drop_frame(k, quantise=False),
+        scene.drop_frame(k, quantise=False, bb=False),
+        f["u_px"],
+        f["v_px"],
+        half=6,
+    )
     assert math.hypot(cu - f["u_px"], cv - f["v_px"]) < CENTROID_TOL_PX
     # after the release: free fall from rest, y = y0 − g t²/2 (Galileo)
     t0 = scene.drop_plan()[2]
