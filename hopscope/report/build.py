@@ -29,6 +29,8 @@ from hopscope.shared.units import kg_to_grams, mps_to_fps, radps_to_rpm
 from hopscope.tracker.trackfile import Track, read_track
 
 from .. import __version__
+from ..inputs import match_track_to_fit
+from ..summaries import loss_text
 from . import figures
 
 #: Safety cautions shown on every report (and in the README).
@@ -61,6 +63,8 @@ class ReportInputs:
     range_m : distance of the predicted path, m.
     links : (label, href) pairs to neighbouring files (overlay, track, fit).
     title : the page's title.
+    extra_rows : more rows for the calibration table.
+    rig_name : the rig file's name (its warnings are listed under it).
     """
 
     fit: FitFile
@@ -70,6 +74,15 @@ class ReportInputs:
     links: tuple[tuple[str, str], ...] = ()
     title: str = ""
     extra_rows: tuple[tuple[str, str], ...] = field(default=())
+    rig_name: str = "rig"
+
+
+def _fit_times(fit: FitFile) -> dict[str, np.ndarray]:
+    """Each fitted shot's point times (its residuals' times), by label."""
+    return {
+        fit.shot(i)["label"]: np.asarray(fit.shot(i)["residuals"]["t_s"], dtype=float)
+        for i in range(fit.n_shots)
+    }
 
 
 def load_report_inputs(
@@ -86,12 +99,18 @@ def load_report_inputs(
         raise ValueError(f"--range-m: expected a positive distance in metres, got {range_m!r}")
     fit = read_fit(fit_path)
     tracks = tuple((str(p), read_track(p)) for p in track_paths)
+    times = _fit_times(fit)
+    for path, tr in tracks:  # a track the fit was not made from would be drawn against another shot's path
+        match_track_to_fit(path, tr, fit.labels, times)
     rig = read_rig(rig_path) if rig_path is not None else None
     if rig is not None:
         for path, tr in tracks:
             if tr.meta.rig_digest and tr.meta.rig_digest != rig.digest:
                 raise ValueError(f"{path}: was mapped with another rig than {rig_path} (rig digests differ)")
-    return ReportInputs(fit, tracks, rig, range_m, tuple(links), title or Path(fit_path).stem)
+    rig_name = "rig" if rig_path is None else Path(rig_path).name
+    return ReportInputs(
+        fit, tracks, rig, range_m, tuple(links), title or Path(fit_path).stem, rig_name=rig_name
+    )
 
 
 # ---------------------------------------------------------------------------------------------- helpers
@@ -117,13 +136,13 @@ def _share(obj) -> str:
 
 
 def _track_points(inputs: ReportInputs) -> dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
-    """Tracked points (t, x, y, σ) by shot label, as the fit command labels them (``name#shot``)."""
+    """Tracked points (t, x, y, σ) by the fit's shot label (:func:`hopscope.inputs.match_track_to_fit`)."""
     out = {}
+    times = _fit_times(inputs.fit)
     for path, tr in inputs.tracks:
-        name = Path(path).name
-        for sid in tr.shot_ids:
+        for label, sid in match_track_to_fit(path, tr, inputs.fit.labels, times).items():
             s = tr.select_shot(sid)
-            out[f"{name}#{sid}"] = (s.t_s, s.x_m, s.y_m, s.sigma_m)
+            out[label] = (s.t_s, s.x_m, s.y_m, s.sigma_m)
     return out
 
 
@@ -344,6 +363,7 @@ def _quality_rows(fit: FitFile) -> list[tuple[str, str]]:
     return [
         ("converged", "yes" if fit.converged else f"no — {fit.reason}"),
         ("laws", f"drag {model['drag']}, lift {model['lift']}, decay {model['decay']}"),
+        ("robust loss", loss_text(str(model.get("loss_requested", model["loss"])), str(model["loss"]))),
         ("points (outliers)", f"{st['n_points']} ({st['n_outliers']})"),
         (
             "χ² / degrees of freedom",
@@ -354,6 +374,52 @@ def _quality_rows(fit: FitFile) -> list[tuple[str, str]]:
         ("air density", f"{fit.air.density_kgm3:.4f} kg/m³"),
         ("BB", f"{kg_to_grams(fit.bb.mass_kg):.3g} g, {fit.bb.diameter_m * 1e3:.3g} mm"),
     ]
+
+
+def _rig_warnings(inputs: ReportInputs) -> list[str]:
+    """The calibration's own warnings (and a failed drop check kept by the user), named by the rig file."""
+    rig = inputs.rig
+    if rig is None:
+        return []
+    out = [f"{inputs.rig_name}: {w}" for w in rig.warnings]
+    drop = rig.drop_check_warning
+    if drop:
+        out.append(f"{inputs.rig_name}: {drop}")
+    return out
+
+
+def _chrono_rows(fit: FitFile) -> list[tuple[str, str]]:
+    """The chronograph speed given with --chrono-mps beside each shot's video speed, and their difference.
+
+    The fit used the chronograph as a prior, so the video speed is not independent of it: a difference of
+    more than about 2σ means the prior and the track disagree (a wrong --chrono-mps, or a scale error).
+    """
+    c = fit.chrono
+    if c is None:
+        return []
+    where = "at the first tracked point" if c.muzzle_x_m is None else f"at x = {c.muzzle_x_m:g} m (muzzle)"
+    rows = [
+        (
+            "chronograph (--chrono-mps)",
+            f"{c.speed_mps:.5g} ± {c.sigma_mps:.2g} m/s ({mps_to_fps(c.speed_mps):.5g} fps), {where}; "
+            "a prior of the fit",
+        )
+    ]
+    for i in range(fit.n_shots):
+        shot = fit.shot(i)
+        v, e = _est(shot["initial"]["speed_mps"])
+        if v is None:
+            continue
+        label = f"video speed {shot['label']}"
+        if c.muzzle_x_m is not None:
+            x0 = float(shot["initial"]["x_m"]["value"])
+            rows.append((label, f"{v:.5g} {_unc(e)} m/s at the first tracked point, x = {x0:.3g} m"))
+            continue
+        diff = v - c.speed_mps
+        sigma = math.hypot(e, c.sigma_mps) if e is not None else None
+        dev = "" if not sigma else f", {diff / sigma:+.1f} σ"
+        rows.append((label, f"{v:.5g} {_unc(e)} m/s: {diff:+.3g} m/s from the chronograph{dev}"))
+    return rows
 
 
 def _png64(data: bytes) -> str:
@@ -375,23 +441,27 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
     prof = lift_profile(fit, shot=0, range_m=inputs.range_m)
     pred = predict_path(fit, shot=0, range_m=inputs.range_m, n_samples=BAND_SAMPLES, rng=BAND_SEED)
     spread = effective_range(fit, rng=BAND_SEED) if fit.n_shots >= 2 else None
+    titles = {
+        "plane": "Tracked points on the flight plane with the fitted path",
+        "residuals": "Residuals against time",
+        "speed-lift": "Speed and lift-to-weight ratio against distance",
+        "range": "Predicted path to range",
+        "spread": "Shots inside the target against distance",
+    }
     figs = [
         (
             "plane",
-            figures.plane_figure(curves),
-            "Tracked points on the flight plane with the fitted path",
+            figures.plane_figure(curves, title=titles["plane"]),
             "Tracked points (±1σ) and the fitted path with its ±1σ band, height in mm against downrange distance.",
         ),
         (
             "residuals",
-            figures.residual_figure(curves),
-            "Residuals against time",
+            figures.residual_figure(curves, title=titles["residuals"]),
             "Residuals (tracked − fitted) along x and y; the grey band is the points' ±1σ.",
         ),
         (
             "speed-lift",
-            figures.speed_lift_figure(prof.x_m, prof.speed_mps, prof.ratio),
-            "Speed and lift-to-weight ratio against distance",
+            figures.speed_lift_figure(prof.x_m, prof.speed_mps, prof.ratio, title=titles["speed-lift"]),
             f"First shot: speed (top) and Magnus lift over weight (bottom) out to {inputs.range_m:g} m.",
         ),
         (
@@ -402,8 +472,8 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
                 pred.y_m - pred.y_sigma_m,
                 pred.y_m + pred.y_sigma_m,
                 launch_height_m=float(pred.y_m[0]),
+                title=titles["range"],
             ),
-            "Predicted path to range",
             f"First shot, predicted to {inputs.range_m:g} m ({pred.reached} reached) with its ±1σ band from the fit's covariance.",
         ),
     ]
@@ -417,15 +487,15 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
                     hit_fraction=spread.hit_fraction,
                     target_diameter_m=spread.target_diameter_m,
                     effective_range_m=spread.effective_range_m,
+                    title=titles["spread"],
                 ),
-                "Shots inside the target against distance",
                 f"Monte Carlo over the shot-to-shot spread of the {fit.n_shots} fitted shots: the share of shots "
                 f"within a {100 * spread.target_diameter_m:.0f} cm circle about the group centre. "
                 + " ".join(n[0].upper() + n[1:] + "." for n in spread.notes),
             )
         )
-    # the fit already carries its tracks' warnings (prefixed with the track's name)
-    warnings = list(dict.fromkeys(fit.warnings))
+    # the fit already carries its tracks' warnings (prefixed with the track's name); the rig's own come after
+    warnings = list(dict.fromkeys([*fit.warnings, *_rig_warnings(inputs)]))
     if not fit.converged:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
     env = jinja2.Environment(
@@ -449,15 +519,16 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         parameters=_parameter_rows(fit),
         model_note=model_note,
         figures=[
-            {"key": k, "png_base64": _png64(png), "alt": alt, "caption": cap} for k, png, alt, cap in figs
+            {"key": k, "png_base64": _png64(png), "title": titles[k], "caption": cap} for k, png, cap in figs
         ],
         calibration=_calibration_rows(inputs) + list(inputs.extra_rows),
+        chronograph=_chrono_rows(fit),
         links=[{"label": lbl, "href": href} for lbl, href in inputs.links],
         quality=_quality_rows(fit),
         inputs=", ".join([Path(fit.source).name] + [Path(p).name for p, _ in inputs.tracks]),
         css=css,
     )
-    return html, [(k, png) for k, png, _alt, _cap in figs]
+    return html, [(k, png) for k, png, _cap in figs]
 
 
 def write_report(

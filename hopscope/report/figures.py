@@ -36,7 +36,7 @@ class ShotCurves:
     fit_y_hi_m: np.ndarray
 
 
-def _figure(width_in: float = 9.6, height_in: float = 3.8):
+def _figure(width_in: float = 9.6, height_in: float = 3.8, title: str = ""):
     import matplotlib
 
     matplotlib.use("Agg", force=True)
@@ -46,6 +46,8 @@ def _figure(width_in: float = 9.6, height_in: float = 3.8):
     ax.grid(True, color="#e3e8eb", linewidth=0.8)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
+    if title:
+        ax.set_title(title, loc="left", fontsize=11, color=INK)
     return fig, ax
 
 
@@ -59,9 +61,9 @@ def _png(fig) -> bytes:
     return buf.getvalue()
 
 
-def plane_figure(shots: Sequence[ShotCurves]) -> bytes:
+def plane_figure(shots: Sequence[ShotCurves], *, title: str = "") -> bytes:
     """Measured points on the flight plane with the fitted path and its ±1σ band (height in mm)."""
-    fig, ax = _figure()
+    fig, ax = _figure(title=title)
     for i, s in enumerate(shots):
         c = SHOT_COLOURS[i % len(SHOT_COLOURS)]
         ax.fill_between(s.fit_x_m, s.fit_y_lo_m * 1e3, s.fit_y_hi_m * 1e3, color=BAND, alpha=0.6, linewidth=0)
@@ -83,9 +85,9 @@ def plane_figure(shots: Sequence[ShotCurves]) -> bytes:
     return _png(fig)
 
 
-def residual_figure(shots: Sequence[ShotCurves]) -> bytes:
+def residual_figure(shots: Sequence[ShotCurves], *, title: str = "") -> bytes:
     """Residuals (tracked − fitted) against time, in mm, with the points' ±1σ."""
-    fig, ax = _figure(height_in=3.2)
+    fig, ax = _figure(height_in=3.2, title=title)
     for i, s in enumerate(shots):
         c = SHOT_COLOURS[i % len(SHOT_COLOURS)]
         t_ms = (s.t_s - s.t_s[0]) * 1e3
@@ -99,7 +101,9 @@ def residual_figure(shots: Sequence[ShotCurves]) -> bytes:
     return _png(fig)
 
 
-def speed_lift_figure(distance_m: np.ndarray, speed_mps: np.ndarray, lift_to_weight: np.ndarray) -> bytes:
+def speed_lift_figure(
+    distance_m: np.ndarray, speed_mps: np.ndarray, lift_to_weight: np.ndarray, *, title: str = ""
+) -> bytes:
     """Speed (m/s, top) and lift-to-weight ratio (bottom) against distance flown (m), for the first shot."""
     import matplotlib
 
@@ -111,6 +115,8 @@ def speed_lift_figure(distance_m: np.ndarray, speed_mps: np.ndarray, lift_to_wei
         ax.grid(True, color="#e3e8eb", linewidth=0.8)
         for side in ("top", "right"):
             ax.spines[side].set_visible(False)
+    if title:
+        ax1.set_title(title, loc="left", fontsize=11, color=INK)
     ax1.plot(distance_m, speed_mps, color=ACCENT, linewidth=1.6)
     ax1.set_ylabel("speed (m/s)")
     ax2.plot(distance_m, lift_to_weight, color=POINTS, linewidth=1.6)
@@ -121,10 +127,16 @@ def speed_lift_figure(distance_m: np.ndarray, speed_mps: np.ndarray, lift_to_wei
 
 
 def range_figure(
-    x_m: np.ndarray, y_m: np.ndarray, y_lo_m: np.ndarray, y_hi_m: np.ndarray, *, launch_height_m: float
+    x_m: np.ndarray,
+    y_m: np.ndarray,
+    y_lo_m: np.ndarray,
+    y_hi_m: np.ndarray,
+    *,
+    launch_height_m: float,
+    title: str = "",
 ) -> bytes:
     """Predicted path out to range, with its ±1σ band, relative to the launch height (cm)."""
-    fig, ax = _figure(height_in=3.4)
+    fig, ax = _figure(height_in=3.4, title=title)
     rel = 100.0 * (np.asarray(y_m) - launch_height_m)
     ax.fill_between(
         x_m,
@@ -150,9 +162,10 @@ def spread_figure(
     hit_fraction: float,
     target_diameter_m: float,
     effective_range_m: float | None,
+    title: str = "",
 ) -> bytes:
     """Fraction of simulated shots inside the target circle against distance, with the effective range."""
-    fig, ax = _figure(height_in=3.2)
+    fig, ax = _figure(height_in=3.2, title=title)
     ax.plot(x_m, 100.0 * np.asarray(fraction_inside), color=ACCENT, linewidth=1.6)
     ax.axhline(100.0 * hit_fraction, color=MUTED, linewidth=0.8, linestyle=":")
     if effective_range_m is not None:

@@ -26,6 +26,8 @@ class PageCheck:
     parameter_rows: int
     title: str
     text: str
+    headings: tuple[str, ...]
+    warnings: tuple[str, ...]
 
 
 def chromium_path() -> str | None:
@@ -41,7 +43,10 @@ def open_report(html: Path, screenshot: Path) -> PageCheck:
 
     exe = chromium_path()
     if exe is None:
-        raise RuntimeError("no Chromium on PATH (.ci/run installs Debian's chromium)")
+        raise RuntimeError(
+            "no Chromium on PATH: install it (Debian/Ubuntu: sudo apt-get install chromium), or run the "
+            'fast loop without the browser test: python -m pytest -m "not slow"'
+        )
     errors: list[str] = []
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=exe, args=CHROMIUM_ARGS, headless=True)
@@ -55,8 +60,22 @@ def open_report(html: Path, screenshot: Path) -> PageCheck:
             rows = page.eval_on_selector_all("#parameters tbody tr", "els => els.length")
             title = page.title()
             text = page.inner_text("body")
+            # innerText as shown, after CSS (text-transform would show here)
+            headings = page.eval_on_selector_all(
+                "h1, h2, h3, .card .label, th", "els => els.map(e => e.innerText)"
+            )
+            warnings = page.eval_on_selector_all("#warnings li", "els => els.map(e => e.innerText)")
             screenshot.parent.mkdir(parents=True, exist_ok=True)
             page.screenshot(path=str(screenshot), full_page=True)
         finally:
             browser.close()
-    return PageCheck(tuple(errors), len(loaded), sum(bool(x) for x in loaded), int(rows), title, text)
+    return PageCheck(
+        tuple(errors),
+        len(loaded),
+        sum(bool(x) for x in loaded),
+        int(rows),
+        title,
+        text,
+        tuple(headings),
+        tuple(warnings),
+    )

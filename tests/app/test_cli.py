@@ -2,14 +2,19 @@
 
 from __future__ import annotations
 
+import re
+import signal
 import subprocess
 import sys
+import time
 import types
+from pathlib import Path
 
 import pytest
 
 from hopscope import cli
-from hopscope.errors import EXIT_BAD_INPUT, EXIT_UNEXPECTED
+from hopscope.errors import EXIT_BAD_INPUT, EXIT_INTERRUPTED, EXIT_UNEXPECTED
+from hopscope.folders import LOCK_NAME
 
 CONTRACT_COMMANDS = ("calibrate", "track", "fit", "simulate", "report", "run", "demo")
 
@@ -111,3 +116,84 @@ def test_calibrate_takes_repeated_and_listed_planes_and_views():
     )  # fmt: skip
     assert args.plane == ["p0.png:0", "p1.png:12", "p2.png:24"]
     assert args.views == ["a.png", "b.png", "c.png"]
+
+
+# ------------------------------------------------------------------------------------------ rough edges
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def test_temporary_output_names_never_reach_the_user(tmp_path):
+    # what os.replace raises when -o names a folder, and mkstemp in a place that refuses new files
+    tmp = tmp_path / ".fit.k2j4x9_q.partial.json"
+    assert cli._one_line(IsADirectoryError(21, "Is a directory", str(tmp), str(tmp_path / "fit.json"))) == (
+        f"{tmp_path / 'fit.json'}: is a folder; give the name of the file to write"
+    )
+    assert cli._one_line(PermissionError(13, "Permission denied", "/sys/.fit.ab12cd.partial.json")) == (
+        "/sys/fit.json: Permission denied"
+    )
+
+
+@pytest.mark.parametrize(
+    ("command", "option"), [("track", "--fps"), ("run", "--fps"), ("calibrate", "--drop-fps")]
+)
+def test_frame_rate_options_say_frame_rate_in_frames_per_second(capsys, command, option):
+    with pytest.raises(SystemExit):
+        cli.main([command, "--help"])
+    help_text = " ".join(capsys.readouterr().out.split())
+    m = re.search(rf"{option} F (.*?)(?= --|$)", help_text)
+    assert m and "frame rate" in m[1] and "frames/s" in m[1], help_text
+
+
+def test_the_fast_loop_needs_no_browser_but_the_plain_run_has_it():
+    # tests/conftest.py marks every browser test slow as well
+    node = "tests/app/test_report.py::test_report_in_headless_chromium"
+    base = [sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider", "--collect-only", node]
+    fast = subprocess.run([*base, "-m", "not slow"], cwd=ROOT, capture_output=True, text=True, timeout=300)
+    full = subprocess.run(base, cwd=ROOT, capture_output=True, text=True, timeout=300)
+    assert "1 deselected" in fast.stdout and node not in fast.stdout.replace("deselected", ""), fast.stdout
+    assert full.returncode == 0 and node in full.stdout, full.stdout + full.stderr
+
+
+#: Seconds after start at which Ctrl-C arrives: while the interpreter imports the heavy libraries (a
+#: second or more on this machine) and while the command parses and runs.
+INTERRUPT_AFTER_S = (0.8, 2.5)
+
+
+def _interrupt(argv: list[str], after_s: float, cwd: Path) -> subprocess.CompletedProcess[str]:
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "hopscope.cli", *argv], cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        text=True,
+    )  # fmt: skip
+    time.sleep(after_s)
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=120)
+    return subprocess.CompletedProcess(proc.args, proc.returncode, out, err)
+
+
+@pytest.mark.parametrize("after_s", INTERRUPT_AFTER_S)
+def test_ctrl_c_at_any_time_exits_130_with_one_line(tmp_path, after_s):
+    res = _interrupt(["demo", "--out", str(tmp_path / "d")], after_s, tmp_path)
+    lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
+    assert res.returncode == EXIT_INTERRUPTED, res.stderr
+    assert "Traceback" not in res.stderr and lines[-1].endswith(": interrupted"), res.stderr
+    assert not (tmp_path / "d" / LOCK_NAME).exists()
+
+
+@pytest.mark.slow
+def test_an_interrupted_demo_leaves_no_half_rendered_scene(tmp_path):
+    out = tmp_path / "demo"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "hopscope.cli", "demo", "--out", str(out)], cwd=tmp_path,
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    scene = out / "scene-lane-close"
+    deadline = time.monotonic() + 120
+    while not any(scene.glob("lens/*.png")) and time.monotonic() < deadline and proc.poll() is None:
+        time.sleep(0.1)
+    assert any(scene.glob("lens/*.png")), "the demo never started rendering"
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == EXIT_INTERRUPTED and "Traceback" not in err, err
+    assert err.strip().splitlines()[-1] == "hopscope demo: interrupted"
+    assert not scene.exists() and not (out / LOCK_NAME).exists()

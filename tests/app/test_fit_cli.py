@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 import re
+from pathlib import Path
 
 import pytest
 
@@ -174,3 +175,61 @@ def test_non_converged_fit_writes_converged_false_and_exits_1(tmp_path, capsys):
     assert "drag_coefficient" in d["reason"]
     assert "did not converge" in err and "NO:" in text
     assert math.isfinite(d["aero"]["drag_coefficient"]["value"])
+
+
+# ------------------------------------------------------------------------------------------ rough edges
+
+
+def test_same_named_tracks_from_two_folders_get_unique_labels_and_a_rig_warning(tmp_path, capsys):
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    a = _write(tmp_path / "a", seed=1, rig="rigA")
+    b = _write(tmp_path / "b", seed=2, rig="rigB")
+    out = tmp_path / "fit.json"
+    rc, text, err = _run(capsys, [str(a), str(b), "--mass-g", "0.25", "-o", str(out)])
+    assert rc == EXIT_OK, err
+    labels = [s["label"] for s in json.loads(out.read_text())["shots"]]
+    assert labels == ["a/track.csv#0", "b/track.csv#0"]
+    assert "a/track.csv#0" in text and "b/track.csv#0" in text
+    warning = [ln for ln in err.splitlines() if "different rigs" in ln]
+    assert len(warning) == 1 and "rigA" in warning[0] and "rigB" in warning[0]
+    assert any("different rigs" in w for w in read_fit(out).warnings)
+
+
+def test_tracks_of_one_rig_get_no_rig_warning(tmp_path, capsys):
+    a, b = _write(tmp_path, "a.csv", seed=1), _write(tmp_path, "b.csv", seed=2)
+    rc, _, err = _run(capsys, [str(a), str(b), "--mass-g", "0.25", "-o", str(tmp_path / "fit.json")])
+    assert rc == EXIT_OK and "different rigs" not in err
+
+
+def test_summary_says_the_loss_asked_for_and_the_loss_used(tmp_path, capsys):
+    # clean Gaussian data: the robust loss asked for (the default soft_l1) is not needed
+    track = _write(tmp_path)
+    rc, text, _ = _run(capsys, [str(track), "--mass-g", "0.25", "-o", str(tmp_path / "fit.json")])
+    assert rc == EXIT_OK
+    fit = read_fit(tmp_path / "fit.json").data["model"]
+    assert fit["loss_requested"] == "soft_l1" and fit["loss"] == "linear"
+    assert "loss soft_l1 asked, linear used" in text
+    rc, text, _ = _run(
+        capsys, [str(track), "--mass-g", "0.25", "--loss", "linear", "-o", str(tmp_path / "f2.json")]
+    )
+    assert rc == EXIT_OK and "loss linear" in text and "asked" not in text
+
+
+def test_negative_mass_is_echoed_in_grams(tmp_path, capsys):
+    track = _write(tmp_path)
+    rc, _, err = _run(capsys, [str(track), "--mass-g", "-0.25", "-o", str(tmp_path / "fit.json")])
+    assert rc == EXIT_BAD_INPUT
+    assert "--mass-g" in err and "-0.25 g" in err and "0.00025" not in err
+
+
+@pytest.mark.parametrize("where", ["folder", "unwritable"])
+def test_output_at_a_folder_or_an_unwritable_place_names_it_not_a_temp_file(tmp_path, capsys, where):
+    track = _write(tmp_path)
+    # /sys refuses new files even to root (os.access cannot tell beforehand): the write itself fails
+    target = tmp_path if where == "folder" else Path("/sys/fit.json")
+    rc, _, err = _run(capsys, [str(track), "--mass-g", "0.25", "-o", str(target)])
+    lines = err.strip().splitlines()
+    assert rc == EXIT_BAD_INPUT and len(lines) == 1, err
+    assert str(target) in lines[0] and ".partial" not in lines[0] and "Traceback" not in err
+    assert not [p for p in tmp_path.iterdir() if ".partial" in p.name]

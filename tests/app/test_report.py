@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import re
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -11,14 +13,20 @@ import pytest
 from markupsafe import escape
 
 from hopscope import cli
+from hopscope.calibration.rig import rig_to_json
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import fit_to_json
 from hopscope.fitting.observe import ModelSpec, simulate_shot
 from hopscope.report import CAUTIONS, figures, load_report_inputs, render_report
+from hopscope.tracker.trackfile import track_to_csv
 
 from .browser import open_report
+from .tracks_synth import synthetic_track
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tracker"))
+from track_synth import simple_rig
 
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "test-artifacts"
@@ -135,16 +143,102 @@ def test_report_command_missing_fit(tmp_path, capsys):
     assert "absent.json" in err and "No such file" in err and not out.exists()
 
 
+#: The calibration's own warning written into the test rig (the report must list it).
+RIG_WARNING = "lens views leave the frame's corners uncovered (test rig)"
+#: Chronograph reading given to the fit, m/s (the synthetic shots fly at 95 m/s).
+CHRONO = "95.5:0.5"
+
+
+@pytest.fixture(scope="module")
+def rigged(tmp_path_factory):
+    """A rig with a warning of its own, a two-shot track mapped with it, and a fit with a chronograph."""
+    d = tmp_path_factory.mktemp("rigged")
+    rig = dataclasses.replace(simple_rig(1920, 1080), warnings=(RIG_WARNING,))
+    (d / "rig.json").write_text(rig_to_json(rig))
+    (d / "track.csv").write_text(track_to_csv(synthetic_track(n_shots=2, rig=rig.digest)))
+    argv = [
+        "fit",
+        str(d / "track.csv"),
+        "--mass-g",
+        "0.25",
+        "--chrono-mps",
+        CHRONO,
+        "-o",
+        str(d / "fit.json"),
+    ]
+    assert cli.main(argv) == 0
+    return d
+
+
+def _report_argv(d: Path, out: Path) -> list[str]:
+    return ["report", str(d / "fit.json"), "--track", str(d / "track.csv"), "--rig", str(d / "rig.json"),
+            "-o", str(out)]  # fmt: skip
+
+
+@pytest.fixture(scope="module")
+def rigged_html(rigged, tmp_path_factory) -> str:
+    """The report of the rigged fit with its track and rig, as the report command writes it."""
+    out = tmp_path_factory.mktemp("rigged_report") / "r.html"
+    assert cli.main(_report_argv(rigged, out)) == 0
+    return out.read_text(encoding="utf-8")
+
+
+def test_report_lists_the_rigs_warnings_and_compares_the_chronograph(rigged_html):
+    html = rigged_html
+    warnings = html[html.index('id="warnings"') : html.index("</ul>", html.index('id="warnings"'))]
+    assert f"rig.json: {escape(RIG_WARNING)}" in warnings
+    table = html[html.index('id="chronograph"') :]
+    assert "95.5 ± 0.5 m/s" in table and "from the chronograph" in table
+    # each shot's video speed against the chronograph, with the difference in σ
+    assert len(re.findall(r"video speed track\.csv#\d.*?m/s from the chronograph, [+-]\d+\.\d σ", table)) == 2
+
+
+def test_report_figures_have_titles(rigged_html):
+    titles = re.findall(r'<figure id="fig-[\w-]+">\s*<h3>([^<]+)</h3>', rigged_html)
+    assert len(titles) == N_FIGURES and all(titles) and len(set(titles)) == N_FIGURES
+
+
+def test_report_with_a_track_that_is_not_in_the_fit_names_the_file(rigged, tmp_path, capsys):
+    other = tmp_path / "other.csv"
+    other.write_text(track_to_csv(synthetic_track(rig=simple_rig(1920, 1080).digest)))
+    out = tmp_path / "r.html"
+    assert cli.main(["report", str(rigged / "fit.json"), "--track", str(other), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "other.csv" in err[0] and "none of its shots is in the fit" in err[0]
+    # same name as the fitted track, other points (another folder's track.csv)
+    (tmp_path / "b").mkdir()
+    (tmp_path / "b" / "track.csv").write_text(track_to_csv(synthetic_track(n=30, rig="x")))
+    assert cli.main(["report", str(rigged / "fit.json"), "--track", str(tmp_path / "b" / "track.csv"),
+                     "-o", str(out)]) == 2  # fmt: skip
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "b/track.csv" in err[0] and "not the track the fit was made from" in err[0]
+    assert not out.exists()
+
+
+def test_report_css_does_not_change_the_case_of_text():
+    # upper-casing turns τ into Τ and χ² into Χ²: the page shows labels as written
+    css = (ROOT / "hopscope" / "report" / "templates" / "report.css").read_text(encoding="utf-8")
+    assert not re.search(r"text-transform\s*:\s*(uppercase|capitalize)", css)
+
+
 @pytest.mark.browser
-def test_report_in_headless_chromium(fit_json, tmp_path):
+def test_report_in_headless_chromium(rigged, tmp_path):
     out = tmp_path / "report.html"
-    assert cli.main(["report", str(fit_json), "-o", str(out), "--range-m", "40"]) == 0
+    assert cli.main([*_report_argv(rigged, out), "--range-m", "40"]) == 0
     page = open_report(out, ARTIFACTS / "report.png")
     assert page.console_errors == ()
     assert page.images_total == N_FIGURES and page.images_loaded == N_FIGURES
     assert page.parameter_rows >= 10
     assert "Eye protection" in page.text and "chronograph" in page.text
     assert (ARTIFACTS / "report.png").stat().st_size > 10_000
+    # headings and labels as the browser shows them (after CSS): Greek letters keep their case
+    assert "spin decay time τ" in page.headings
+    assert any("χ²" in h for h in page.headings)
+    assert "Warnings" in page.headings and "Chronograph and video" in page.headings
+    assert sum(h.startswith(("Tracked points", "Residuals", "Speed and", "Predicted", "Shots inside"))
+               for h in page.headings) == N_FIGURES  # fmt: skip
+    # the calibration's own warning is in the page's Warnings list
+    assert f"rig.json: {RIG_WARNING}" in page.warnings
 
 
 def test_report_command_rejects_a_non_finite_value(fit_json, tmp_path, capsys):

@@ -7,7 +7,10 @@ leaves no output behind (the output folder is not created, or is left as it was)
 from __future__ import annotations
 
 import json
+import os
+import re
 import shutil
+import socket
 from pathlib import Path
 
 import cv2
@@ -19,7 +22,7 @@ from hopscope.calibration.rig import read_rig
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import read_fit
-from hopscope.folders import MANIFEST_NAME
+from hopscope.folders import LOCK_NAME, MANIFEST_NAME
 from hopscope.pipeline import calibrate_scene, fitted_paths_px, shots_from_track
 from hopscope.scenes import LensViewsSpec, render_scene, small_scene
 from hopscope.tracker.overlay import FIT_COLOUR
@@ -149,6 +152,9 @@ def test_run_prints_table_and_summary(inputs, tmp_path, capsys):
     text = capsys.readouterr()
     assert rc == EXIT_OK
     assert "hopscope fit" in text.out and "hopscope run" in text.out and "C_D" in text.out
+    # the clip's frame rate in frames/s; fps appears only as a speed (after a number in m/s)
+    assert re.search(r"\d+ frames at 2000 frames/s", text.out), text.out
+    assert all("m/s" in ln for ln in text.out.splitlines() if "fps" in ln), text.out
     # the defaulted air conditions are a warning; the tracker's warnings are shown once each
     assert "warning: air conditions not given" in text.err
     lines = [ln for ln in text.err.splitlines() if ln.startswith("warning:")]
@@ -303,3 +309,23 @@ def test_run_shows_a_progress_bar_when_asked(inputs, tmp_path, capsys, monkeypat
     rc = _run(_base(inputs, tmp_path / "out"))
     assert rc == EXIT_OK
     assert "tracking" in capsys.readouterr().err
+
+
+def test_a_folder_another_run_is_writing_into_is_refused_with_one_line(inputs, tmp_path, capsys):
+    out = tmp_path / "busy"
+    out.mkdir()
+    # a live process holds the lock (this one, as another run would)
+    (out / LOCK_NAME).write_text(f"{os.getpid()} {socket.gethostname()}\n")
+    rc = _run(_base(inputs, out))
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == EXIT_BAD_INPUT and len(err) == 1, err
+    assert "another hopscope run is writing into this folder" in err[0] and LOCK_NAME in err[0]
+    assert sorted(p.name for p in out.iterdir()) == [LOCK_NAME]
+
+
+def test_the_run_report_links_only_files_inside_its_folder(one_run):
+    _, out = one_run
+    html = (out / "report.html").read_text(encoding="utf-8")
+    hrefs = re.findall(r'href="([^"]+)"', html)
+    assert 'href="rig.json"' in html and (out / "rig.json").is_file()
+    assert hrefs and all("/" not in h and not h.startswith("..") for h in hrefs), hrefs

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import sys
 from pathlib import Path
 
@@ -61,6 +62,9 @@ def test_track_writes_csv_summary_and_overlay(clip, tmp_path, capsys):
     assert rc == 0
     text = capsys.readouterr()
     assert "hopscope track" in text.out and "points" in text.out and "shot 0 speed" in text.out
+    # a frame rate is frames/s, a speed is fps (feet per second): never "ft/s", never "240 fps" for a rate
+    assert re.search(r"timing .*, 240 frames/s", text.out) and "ft/s" not in text.out
+    assert re.search(r"shot 0 speed +[\d.]+ m/s \([\d.]+ fps\)", text.out), text.out
     tr = read_track(out)
     assert tr.n_points >= 25 and tr.shot_ids == (0,)
     assert tr.meta.exposure_s == pytest.approx(5e-4) and tr.meta.readout_s == pytest.approx(1e-3)
