@@ -395,3 +395,20 @@ def test_load_truth_names_a_missing_flight_field(tmp_path):
     p.write_text(json.dumps(data))
     with pytest.raises(ValueError, match=r"broken\.json: flight lacks field\(s\) launch"):
         load_truth(p)
+
+
+def test_load_truth_names_the_file_and_field_of_a_bad_number(tmp_path):
+    scene = render_scene(
+        small_scene(lens=dataclasses.replace(small_scene().lens, n_views=0)),
+        tmp_path / "s",
+        rng=0,
+        parts=("flight",),
+    )
+    data = json.loads(scene.truth_path.read_text())
+    data["flight"]["laws"]["drag_coefficient"] = "high"
+    p = tmp_path / "bad.json"
+    p.write_text(json.dumps(data))
+    with pytest.raises(
+        ValueError, match=r"bad\.json: flight\.laws\.drag_coefficient: expected a finite number, got 'high'"
+    ):
+        load_truth(p)
