@@ -16,8 +16,8 @@ Where the constants come from, and what they were checked against (tests/fitting
   are a published ball-flight form read in a secondary source. Both give positive lift for backspin at
   every S, as Muto, Tsubokura & Oshima (2012) report for a smooth sphere at subcritical Re;
 - spin decay: the only measurement found is for golf balls (Smits & Smith 1994, dimpled, Re 1e5–2.5e5):
-  :data:`GOLF_TORQUE_SLOPE` reproduces it. Its use for smooth 6 mm BBs is an assumption (README, error
-  budget).
+  :data:`GOLF_TORQUE_SLOPE` reproduces it. Its use for smooth 6 mm BBs is an assumption (README, "Where
+  the physics comes from").
 """
 
 from __future__ import annotations
@@ -250,7 +250,7 @@ SATURATING_S_HALF = 0.583 / 2.333
 #: tests/data/published/golf_spin_decay.csv), is c = 0.019 for their 45.93 g, 42.7 mm ball in standard air
 #: with I = 0.4 m r²; 0.02 reproduces their worked example within 5 %. Dimpled ball, Re 1e5–2.5e5: no
 #: measurement for a smooth 6 mm sphere at Re 1e4–5e4 was found, so its use for BBs is an assumption
-#: (README, error budget). For a 0.25 g BB at 100 m/s it gives τ ≈ 3 s.
+#: (README, "Where the physics comes from"). For a 0.25 g BB at 100 m/s it gives τ ≈ 3 s.
 GOLF_TORQUE_SLOPE = 0.02
 
 
