@@ -17,7 +17,15 @@ per detection, uneven times allowed) into a spin rate with an honest uncertainty
    |sinc(f·T_e)|) is taken out of the reported modulation depth, candidate by candidate.
 
 Sliding windows give the spin along the flight (:func:`spin_vs_time`) and an exponential fit to them, in
-time or in distance flown, gives the spin decay (:func:`fit_spin_decay`).
+time or in distance flown, gives the spin decay (:func:`fit_spin_decay`); a flight too short for windows of
+their own is fitted at once by a chirped sinusoid (:func:`fit_spin_decay_coherent`). One refit leaves out
+samples more than :data:`OUTLIER_CLIP_SIGMA` robust σ off (a BB cut by the image edge). For one shot,
+:func:`measure_shot_spin` does all of it and :func:`shot_spin_to_json` gives ``fit.json``'s record.
+
+The brightness wanted is the BB's own light: the frame minus the background, plus the background the BB
+hides (Σ (frame − background) + Σ coverage · background). Frame minus background alone mixes in the wall
+texture passing behind the ball, which on the rendered ``lane-spin`` scene moves the rate by 2 % and the
+decay time of a short, fast-decaying flight by half (``tests/bench/bench_spin.py``).
 
 Everything here is SI: seconds, hertz (flicker cycles per second), rad/s (spin). rpm only at the edges.
 Failure to measure is a value (``rate_radps`` None with a ``reason``); bad arrays raise ``ValueError``.
@@ -122,9 +130,10 @@ class Marking:
 #:   then all dark, then half): one cycle per turn.
 #:
 #: Two cycles per turn come from a marking that looks the same after half a turn: a dark stripe along a
-#: great circle through the axis (axis in the image plane: the stripe crosses the disk's face twice per turn,
-#: once on each side; axis toward the camera: a dark diameter that turns, lit from one side), or two
-#: opposite quarters dark. A ball half dark across its equator (dividing circle perpendicular to the axis)
+#: great circle through the axis (axis in the image plane: the stripe is seen as a dark band across the
+#: middle of the disk twice per turn, when its plane holds the line of sight, and edge-on at the limb in
+#: between; axis toward the camera: a dark diameter that turns, lit from one side), or two opposite
+#: quarters dark. A ball half dark across its equator (dividing circle perpendicular to the axis)
 #: seen along the axis does not flicker at all. A strongly non-sinusoidal flicker also has a second harmonic;
 #: the periodogram's highest peak is the fundamental unless the marking is nearly symmetric under a half
 #: turn, which is what the stripe markings say.
@@ -189,6 +198,41 @@ class SpinPrior:
                 raise ValueError(f"prior {name} must be positive and finite, got {value!r}")
         if not self.source:
             raise ValueError("prior source must name where the prior comes from")
+
+
+@dataclass(frozen=True)
+class SpinOptions:
+    """How a brightness series is read as spin.
+
+    Attributes
+    ----------
+    marking : key of :data:`MARKINGS` (default :data:`DEFAULT_MARKING`, one flicker cycle per turn).
+    exposure_s : exposure time T_e, s (0: unknown or negligible); used for the modulation depth and each
+        candidate's attenuation.
+    rate_band_radps : (low, high) plausible spin rates, rad/s; only candidates inside are listed.
+    max_false_alarm : a peak with a higher false-alarm probability is not reported as a spin.
+    trend_degree : degree of the slow brightness trend removed first (polynomial in time, 0..3).
+    oversample : trial frequencies per periodogram peak width (≥ 1).
+    """
+
+    marking: str = DEFAULT_MARKING
+    exposure_s: float = 0.0
+    rate_band_radps: tuple[float, float] = DEFAULT_RATE_BAND_RADPS
+    max_false_alarm: float = DEFAULT_MAX_FALSE_ALARM
+    trend_degree: int = DEFAULT_TREND_DEGREE
+    oversample: int = DEFAULT_OVERSAMPLE
+
+    def __post_init__(self) -> None:
+        marking_named(self.marking)
+        object.__setattr__(self, "rate_band_radps", _band(self.rate_band_radps))
+        if not (math.isfinite(self.exposure_s) and self.exposure_s >= 0):
+            raise ValueError(f"exposure_s must be finite and >= 0 (s), got {self.exposure_s!r}")
+        if not (0 < self.max_false_alarm < 1):
+            raise ValueError(f"max_false_alarm must be between 0 and 1, got {self.max_false_alarm!r}")
+        if not (isinstance(self.trend_degree, int) and 0 <= self.trend_degree <= 3):
+            raise ValueError(f"trend_degree must be an integer 0..3, got {self.trend_degree!r}")
+        if not (isinstance(self.oversample, int) and self.oversample >= 1):
+            raise ValueError(f"oversample must be an integer >= 1, got {self.oversample!r}")
 
 
 @dataclass(frozen=True)
@@ -555,13 +599,8 @@ def measure_spin(
     t_s,
     brightness,
     *,
-    marking: str = DEFAULT_MARKING,
-    exposure_s: float = 0.0,
-    rate_band_radps: tuple[float, float] = DEFAULT_RATE_BAND_RADPS,
-    max_false_alarm: float = DEFAULT_MAX_FALSE_ALARM,
+    options: SpinOptions | None = None,
     prior: SpinPrior | None = None,
-    trend_degree: int = DEFAULT_TREND_DEGREE,
-    oversample: int = DEFAULT_OVERSAMPLE,
 ) -> SpinEstimate:
     """Spin rate from one brightness series of a marked BB.
 
@@ -569,14 +608,9 @@ def measure_spin(
     ----------
     t_s : sample times (mid-exposure), s; 1-D, strictly increasing; frames may be missing.
     brightness : the BB's integrated brightness per sample (any unit), same shape.
-    marking : key of :data:`MARKINGS` (default :data:`DEFAULT_MARKING`, one flicker cycle per turn).
-    exposure_s : exposure time T_e, s (0: unknown or negligible); used for the modulation depth and each
-        candidate's attenuation.
-    rate_band_radps : (low, high) plausible spin rates, rad/s; only candidates inside are listed.
-    max_false_alarm : a peak with a higher false-alarm probability is not reported as a spin.
+    options : marking, exposure, plausible band, false-alarm level, trend and grid (:class:`SpinOptions`;
+        default its defaults).
     prior : chooses between aliases (see :func:`spin_prior_from_lift`); never used when unaliased.
-    trend_degree : degree of the slow brightness trend removed first (polynomial in time).
-    oversample : trial frequencies per peak width.
 
     Returns
     -------
@@ -588,40 +622,14 @@ def measure_spin(
     The samples are taken to lie on a frame clock of rate 1/median(Δt) (missing frames and small
     rolling-shutter offsets allowed); that rate sets the aliases.
     """
-    return _measure(
-        t_s,
-        brightness,
-        marking=marking,
-        exposure_s=exposure_s,
-        rate_band_radps=rate_band_radps,
-        max_false_alarm=max_false_alarm,
-        prior=prior,
-        trend_degree=trend_degree,
-        oversample=oversample,
-    )
+    return _measure(t_s, brightness, SpinOptions() if options is None else options, prior)
 
 
-def _measure(
-    t_s,
-    brightness,
-    *,
-    marking: str,
-    exposure_s: float,
-    rate_band_radps,
-    max_false_alarm: float,
-    prior: SpinPrior | None,
-    trend_degree: int,
-    oversample: int,
-) -> SpinEstimate:
+def _measure(t_s, brightness, opt: SpinOptions, prior: SpinPrior | None) -> SpinEstimate:
     t, y = _series(t_s, brightness)
-    mk = marking_named(marking)
-    lo_w, hi_w = _band(rate_band_radps)
-    if not (math.isfinite(exposure_s) and exposure_s >= 0):
-        raise ValueError(f"exposure_s must be finite and >= 0 (s), got {exposure_s!r}")
-    if not (0 < max_false_alarm < 1):
-        raise ValueError(f"max_false_alarm must be between 0 and 1, got {max_false_alarm!r}")
-    if not (isinstance(trend_degree, int) and 0 <= trend_degree <= 3):
-        raise ValueError(f"trend_degree must be an integer 0..3, got {trend_degree!r}")
+    mk = marking_named(opt.marking)
+    lo_w, hi_w = opt.rate_band_radps
+    exposure_s, max_false_alarm, trend_degree = opt.exposure_s, opt.max_false_alarm, opt.trend_degree
 
     n = int(t.size)
     span = float(t[-1] - t[0]) if n else 0.0
@@ -664,7 +672,7 @@ def _measure(
     resid = y - trend
     if not np.any(np.abs(resid) > 1e-12 * max(1.0, float(np.max(np.abs(y))))):
         return _no_spin(base, "brightness has no variation left after its slow trend: no flicker")
-    grid = frequency_grid(t, search_lo, search_hi, oversample=oversample)
+    grid = frequency_grid(t, search_lo, search_hi, oversample=opt.oversample)
     power = lomb_scargle(t, resid, grid)
     i = int(np.argmax(power))
     peak = float(power[i])
@@ -875,13 +883,8 @@ def spin_vs_time(
     *,
     window_points: int = 32,
     step_points: int | None = None,
-    marking: str = DEFAULT_MARKING,
-    exposure_s: float = 0.0,
-    rate_band_radps: tuple[float, float] = DEFAULT_RATE_BAND_RADPS,
-    max_false_alarm: float = DEFAULT_MAX_FALSE_ALARM,
+    options: SpinOptions | None = None,
     prior: SpinPrior | None = None,
-    trend_degree: int = DEFAULT_TREND_DEGREE,
-    oversample: int = DEFAULT_OVERSAMPLE,
 ) -> SpinSeries:
     """Spin along the flight from sliding windows of the brightness series.
 
@@ -895,30 +898,22 @@ def spin_vs_time(
     Parameters
     ----------
     t_s, brightness : as for :func:`measure_spin`.
-    window_points : samples per window (≥ :data:`MIN_POINTS` + ``trend_degree``).
+    window_points : samples per window (≥ :data:`MIN_POINTS` + the options' ``trend_degree``).
     step_points : samples between window starts; default ``window_points`` (non-overlapping windows, whose
         errors are independent, as :func:`fit_spin_decay` needs).
     Other parameters as for :func:`measure_spin`.
     """
     t, y = _series(t_s, brightness)
-    if not (isinstance(window_points, int) and window_points >= MIN_POINTS + trend_degree):
-        raise ValueError(
-            f"window_points must be an integer >= {MIN_POINTS + trend_degree}, got {window_points!r}"
-        )
+    opt = SpinOptions() if options is None else options
+    least = MIN_POINTS + opt.trend_degree
+    if not (isinstance(window_points, int) and window_points >= least):
+        raise ValueError(f"window_points must be an integer >= {least}, got {window_points!r}")
     step = window_points if step_points is None else step_points
     if not (isinstance(step, int) and step >= 1):
         raise ValueError(f"step_points must be a positive integer, got {step_points!r}")
-    opts = dict(
-        marking=marking,
-        exposure_s=exposure_s,
-        rate_band_radps=rate_band_radps,
-        max_false_alarm=max_false_alarm,
-        trend_degree=trend_degree,
-        oversample=oversample,
-    )
-    overall = _measure(t, y, prior=prior, **opts)  # type: ignore[arg-type]
+    overall = _measure(t, y, opt, prior)
     raw = [
-        _measure(t[i : i + window_points], y[i : i + window_points], prior=None, **opts)  # type: ignore[arg-type]
+        _measure(t[i : i + window_points], y[i : i + window_points], opt, None)
         for i in range(0, t.size - window_points + 1, step)
     ]
     return SpinSeries(overall, tuple(_follow_alias(raw, overall, prior)), window_points, step)
@@ -1253,10 +1248,7 @@ def measure_shot_spin(
     first_t_s: float | None = None,
     window_points: int = 32,
     distance_m_at=None,
-    marking: str = DEFAULT_MARKING,
-    exposure_s: float = 0.0,
-    rate_band_radps: tuple[float, float] = DEFAULT_RATE_BAND_RADPS,
-    max_false_alarm: float = DEFAULT_MAX_FALSE_ALARM,
+    options: SpinOptions | None = None,
     prior: SpinPrior | None = None,
 ) -> ShotSpin:
     """Spin of one shot from its brightness series: the whole series, windows, and the decay where seen.
@@ -1280,17 +1272,9 @@ def measure_shot_spin(
     t_first = float(t[0]) if first_t_s is None and t.size else first_t_s
     if t_first is None or not math.isfinite(t_first):
         raise ValueError(f"first_t_s must be finite, got {first_t_s!r}")
-    window_points = max(window_points, MIN_POINTS + DEFAULT_TREND_DEGREE)
-    series = spin_vs_time(
-        t,
-        y,
-        window_points=window_points,
-        marking=marking,
-        exposure_s=exposure_s,
-        rate_band_radps=rate_band_radps,
-        max_false_alarm=max_false_alarm,
-        prior=prior,
-    )
+    opt = SpinOptions() if options is None else options
+    window_points = max(window_points, MIN_POINTS + opt.trend_degree)
+    series = spin_vs_time(t, y, window_points=window_points, options=opt, prior=prior)
     overall = series.overall
     decay: SpinDecay | None = None
     decay_reason: str | None
@@ -1306,11 +1290,13 @@ def measure_shot_spin(
         decay_reason = decay.reason
     elif overall.rate_radps is not None:  # windows too short for a flicker of their own: one coherent fit
         if distance_m_at is None:
-            decay = fit_spin_decay_coherent(t, y, overall, reference=t_first)
+            decay = fit_spin_decay_coherent(t, y, overall, reference=t_first, trend_degree=opt.trend_degree)
         else:
             dist = np.asarray(distance_m_at(t), dtype=float)
             d0 = float(np.asarray(distance_m_at(np.array([t_first])), dtype=float)[0])
-            decay = fit_spin_decay_coherent(t, y, overall, reference=d0, distance_m=dist)
+            decay = fit_spin_decay_coherent(
+                t, y, overall, reference=d0, distance_m=dist, trend_degree=opt.trend_degree
+            )
         decay_reason = decay.reason
     else:
         decay_reason = f"decay not measured: no spin rate ({overall.reason})"

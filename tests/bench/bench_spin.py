@@ -21,6 +21,7 @@ import numpy as np
 
 from hopscope.fitting.laws import LinearLift
 from hopscope.fitting.spin import (
+    SpinOptions,
     SpinPrior,
     fit_spin_decay_coherent,
     measure_shot_spin,
@@ -77,7 +78,7 @@ def synthetic_table(seeds: int = 100) -> None:
                 np.random.default_rng(seed), n=n, fs=fs, rate=truth, tau=tau, exposure=te, noise=noise
             )
             prior = SpinPrior(truth, 0.05 * truth, "bench: the true rate ± 5 %")
-            est = measure_spin(t, b, exposure_s=te, prior=prior)
+            est = measure_spin(t, b, options=SpinOptions(exposure_s=te), prior=prior)
             ncand.append(len(est.candidates_radps))
             if est.rate_radps is None or est.stderr_radps is None:
                 continue
@@ -112,7 +113,7 @@ def rendered_table() -> None:
         t, raw, cor, truth = SPIN_TESTS.rendered_marked_brightness(spec)
         k, u, r = spec.flight.lift_slope, spec.flight.speed_mps, 0.5 * spec.bb.diameter_m
         for label, b in (("raw", raw), ("corrected", cor)):
-            spin = measure_shot_spin(t, b, exposure_s=spec.camera.exposure_s)
+            spin = measure_shot_spin(t, b, options=SpinOptions(exposure_s=spec.camera.exposure_s))
             note = spin.reason or spin.method
             if spin.rate_radps is None and spin.overall.aliased:
                 cl = k * r * truth[0] / u  # the lift a fit would find at the first point
@@ -125,7 +126,9 @@ def rendered_table() -> None:
                     law_rel_sigma=0.0,
                     source="the scene's lift law C_L = k S",
                 )
-                spin = measure_shot_spin(t, b, exposure_s=spec.camera.exposure_s, prior=prior)
+                spin = measure_shot_spin(
+                    t, b, options=SpinOptions(exposure_s=spec.camera.exposure_s), prior=prior
+                )
                 published = measure_spin(
                     t, b, prior=spin_prior_from_lift(cl, 0.05 * cl, speed_mps=u, radius_m=r)
                 )

@@ -17,6 +17,7 @@ from hopscope.fitting.spin import (
     DEFAULT_RATE_BAND_RADPS,
     MARKINGS,
     SpinEstimate,
+    SpinOptions,
     SpinPrior,
     alias_frequencies,
     exposure_attenuation,
@@ -133,7 +134,9 @@ def test_pure_noise_is_rarely_called_a_spin():
     for seed in range(n_seeds):
         rng = np.random.default_rng(seed)
         t = np.arange(48) / 10_000.0
-        est = measure_spin(t, 1.0 + 0.05 * rng.normal(size=t.size), max_false_alarm=level)
+        est = measure_spin(
+            t, 1.0 + 0.05 * rng.normal(size=t.size), options=SpinOptions(max_false_alarm=level)
+        )
         if est.measured:
             hits += 1
         elif est.false_alarm_probability is not None and est.false_alarm_probability > level:
@@ -162,7 +165,9 @@ def test_unaliased_rate_within_one_percent(case):
     t, b = flicker_series(rng, **case)
     # band below half the frame rate: no alias can exist
     band = (TWO_PI * 20.0, 0.95 * math.pi * case.get("fs_hz", 10_000.0))
-    est = measure_spin(t, b, exposure_s=case.get("exposure_s", 0.0), rate_band_radps=band)
+    est = measure_spin(
+        t, b, options=SpinOptions(exposure_s=case.get("exposure_s", 0.0), rate_band_radps=band)
+    )
     assert est.measured and est.rate_radps is not None and est.stderr_radps is not None
     assert not est.aliased and est.candidates_radps == (est.rate_radps,)
     assert abs(est.rate_radps / truth - 1.0) < RATE_REL_TOL
@@ -173,7 +178,7 @@ def test_unaliased_rate_within_one_percent(case):
 def test_stripe_marking_reads_two_cycles_per_turn():
     truth = TWO_PI * 600.0
     t, b = flicker_series(np.random.default_rng(9), cycles=2, rate_radps=truth)
-    stripe = measure_spin(t, b, marking="stripe-axis-in-image")
+    stripe = measure_spin(t, b, options=SpinOptions(marking="stripe-axis-in-image"))
     assert MARKINGS["stripe-axis-in-image"].cycles_per_turn == 2
     assert stripe.rate_radps is not None and abs(stripe.rate_radps / truth - 1.0) < RATE_REL_TOL
     half = measure_spin(t, b)  # the default (one cycle per turn) reads the same flicker as twice the spin
@@ -205,7 +210,9 @@ def test_exposure_smoothing_is_taken_out_of_the_depth():
         depth=depth,
         noise=0.005,
     )
-    est = measure_spin(t, b, exposure_s=exposure, rate_band_radps=(TWO_PI * 50.0, TWO_PI * 4500.0))
+    est = measure_spin(
+        t, b, options=SpinOptions(exposure_s=exposure, rate_band_radps=(TWO_PI * 50.0, TWO_PI * 4500.0))
+    )
     assert est.observed_modulation is not None and est.modulation is not None
     expected_obs = depth * float(exposure_attenuation(f_hz, exposure))
     assert est.observed_modulation == pytest.approx(expected_obs, rel=MODULATION_REL_TOL)
@@ -347,7 +354,7 @@ def test_windows_follow_the_alias_across_a_fold():
 
 def test_failures_are_values_that_say_why():
     t, b = flicker_series(np.random.default_rng(1), n=64)
-    unmarked = measure_spin(t, b, marking="none")
+    unmarked = measure_spin(t, b, options=SpinOptions(marking="none"))
     assert not unmarked.measured and unmarked.reason is not None and "unmarked" in unmarked.reason
     short = measure_spin(t[:5], b[:5])
     assert isinstance(short, SpinEstimate) and short.reason is not None and "too few points" in short.reason
@@ -365,11 +372,14 @@ def test_failures_are_values_that_say_why():
         (np.arange(10.0), np.arange(10.0), {"marking": "dots"}, "marking: unknown marking 'dots'"),
         (np.arange(10.0), np.arange(10.0), {"rate_band_radps": (5.0, 1.0)}, "rate_band_radps must satisfy"),
         (np.arange(10.0), np.arange(10.0), {"exposure_s": -1.0}, "exposure_s must be finite"),
+        (np.arange(10.0), np.arange(10.0), {"max_false_alarm": 1.5}, "max_false_alarm must be between"),
+        (np.arange(10.0), np.arange(10.0), {"trend_degree": 5}, "trend_degree must be an integer 0..3"),
+        (np.arange(10.0), np.arange(10.0), {"oversample": 0}, "oversample must be an integer"),
     ],
 )
-def test_bad_arrays_raise_naming_the_argument(t, b, kwargs, match):
+def test_bad_arrays_and_options_raise_naming_the_argument(t, b, kwargs, match):
     with pytest.raises(ValueError, match=match):
-        measure_spin(t, b, **kwargs)
+        measure_spin(t, b, options=SpinOptions(**kwargs))
 
 
 def test_decay_fit_refuses_overlapping_or_too_few_windows():
@@ -411,7 +421,7 @@ def test_short_shot_without_decay_reports_the_whole_series_and_why():
     assert spin.decay is not None and spin.decay.scale is None  # one coherent fit; no decay to see
     assert spin.decay_reason is not None and "decay not resolved" in spin.decay_reason
     assert spin.rate_radps == spin.overall.rate_radps and spin.at_t_s == spin.overall.at_t_s
-    unmarked_spin = measure_shot_spin(t, b, marking="none")
+    unmarked_spin = measure_shot_spin(t, b, options=SpinOptions(marking="none"))
     assert unmarked_spin.decay is None and unmarked_spin.decay_reason is not None
     assert "decay not measured" in unmarked_spin.decay_reason
     unmarked = shot_spin_to_json(unmarked_spin)
@@ -527,7 +537,7 @@ def rendered_scene(name: str):
 def test_rendered_spin_within_one_percent(name):
     spec = rendered_scene(name)
     t, _, own_light, truth = rendered_marked_brightness(spec)
-    est = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    est = measure_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s))
     assert est.rate_radps is not None and est.stderr_radps is not None
     true_rate = float(np.interp(est.at_t_s, t, truth))
     assert abs(est.rate_radps / true_rate - 1.0) < RATE_REL_TOL
@@ -538,7 +548,7 @@ def test_rendered_spin_within_one_percent(name):
 def test_rendered_decay_within_fifteen_percent():
     spec = rendered_scene("lane-spin-decay")
     t, _, own_light, truth = rendered_marked_brightness(spec)
-    spin = measure_shot_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    spin = measure_shot_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s))
     assert spin.decay is not None and spin.decay.scale is not None
     assert abs(spin.decay.scale / spec.flight.spin_decay_time_s - 1.0) < DECAY_REL_TOL
     mean_rate = spin.overall.rate_radps
@@ -550,7 +560,7 @@ def test_rendered_decay_within_fifteen_percent():
 def test_rendered_aliased_lists_and_with_the_scene_law_picks_the_true_rate():
     spec = rendered_scene("lane-spin-aliased")
     t, _, own_light, truth = rendered_marked_brightness(spec)
-    blind = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    blind = measure_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s))
     assert blind.aliased and not blind.measured
     true_rate = float(np.interp(blind.at_t_s, t, truth))
     cands = np.array(blind.candidates_radps)
@@ -562,7 +572,7 @@ def test_rendered_aliased_lists_and_with_the_scene_law_picks_the_true_rate():
     prior = spin_prior_from_lift(
         cl, 0.05 * cl, speed_mps=u, radius_m=R_BB_M, law=LinearLift(k), law_rel_sigma=0.0
     )
-    chosen = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s, prior=prior)
+    chosen = measure_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s), prior=prior)
     assert chosen.rate_radps == nearest
 
 
@@ -570,5 +580,5 @@ def test_rendered_aliased_lists_and_with_the_scene_law_picks_the_true_rate():
 def test_rendered_slow_spin_with_too_few_cycles_reports_no_number():
     spec = rendered_scene("lane-spin-slow")  # 400 rev/s over 32 frames at 10,000 fps: 1.3 turns in view
     t, _, own_light, _ = rendered_marked_brightness(spec)
-    est = measure_spin(t, own_light, exposure_s=spec.camera.exposure_s)
+    est = measure_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s))
     assert not est.measured and est.reason is not None and "needs a longer series" in est.reason
