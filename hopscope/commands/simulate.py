@@ -429,7 +429,10 @@ def _summary(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace) ->
     if path.stop_reason == "range":
         rows += [
             ("time of flight", f"{path.t_s[-1]:.3f} s to {args.range_m:g} m"),
-            ("drop at range", f"{abs(end[1]):.3f} m {'below' if end[1] <= 0 else 'above'} launch height"),
+            (
+                "drop at range" if end[1] <= 0 else "rise at range",
+                f"{abs(end[1]):.3f} m {'below' if end[1] <= 0 else 'above'} launch height",
+            ),
             ("drift at range", f"{end[2]:+.3f} m (+z)"),
             ("speed at range", f"{v_end:.1f} m/s ({mps_to_fps(v_end):.0f} fps)"),
             ("energy at range", f"{0.5 * m * v_end * v_end:.3f} J"),

@@ -80,3 +80,15 @@ def test_output_must_be_json(tmp_path, capsys, tracks):
 def test_bad_mass_names_the_option(tmp_path, capsys, tracks):
     rc, _, err = _run(capsys, [str(tracks), "--mass-g", "-1", "-o", str(tmp_path / "bb.json")])
     assert rc == 2 and "--mass-g" in err and not (tmp_path / "bb.json").exists()
+
+
+def test_profile_warns_when_the_tracks_come_from_different_rigs(tmp_path, capsys):
+    paths = []
+    for rig, speeds in (("rigA", SPEEDS_MPS[:3]), ("rigB", SPEEDS_MPS[3:])):
+        p = tmp_path / f"{rig}.csv"
+        p.write_text(track_to_csv(synthetic_track(n_shots=3, n=60, speeds_mps=speeds, rig=rig)))
+        paths.append(str(p))
+    rc, _, err = _run(capsys, [*paths, "--mass-g", "0.25", "--bins", "2", "-o", str(tmp_path / "bb.json")])
+    assert rc == 0, err
+    warning = [ln for ln in err.splitlines() if "different rigs" in ln]
+    assert len(warning) == 1 and "rigA" in warning[0] and "rigB" in warning[0]
