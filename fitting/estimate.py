@@ -54,6 +54,10 @@ OUTLIER_FRACTION_WARN = 0.1
 #: Reduced χ² above this draws a warning (the tracker's σ look too small).
 CHI2_WARN = 2.0
 
+#: Lift laws from whose published C_L(S) relation a spin figure is derived (as an assumption). The linear
+#: law's k is a convention (k = 1), not a measurement of spheres: no spin figure from it.
+SPIN_FROM_LIFT_LAWS = ("saturating",)
+
 #: Fewer calibration perturbations than this make the calibration share rough (warning).
 FEW_CALIBRATIONS = 10
 
@@ -281,7 +285,11 @@ def _shot_results(problem: FitProblem, x: np.ndarray, st: FitState) -> tuple[Sho
                 elevation_rad=est["elevation_rad"],
                 lift_coefficient=est["lift_coefficient"],
                 drag_coefficient=derived(cd_at, theta, free, cov_n, cov_c, [lay.drag, i_speed]),
-                spin_radps_model=derived(spin_at, theta, free, cov_n, cov_c, [i_speed, i_cl]),
+                spin_radps_model=(
+                    derived(spin_at, theta, free, cov_n, cov_c, [i_speed, i_cl])
+                    if spec.lift in SPIN_FROM_LIFT_LAWS
+                    else Estimate(None, None)
+                ),
                 residual_t_s=s.t_s.copy(),
                 residual_dx_m=dx,
                 residual_dy_m=dy,

@@ -21,7 +21,8 @@ determine the quantity)::
                    "initial": {"t_s" (a number: the first tracked time), "x_m", "y_m", "speed_mps",
                                "elevation_deg" (degrees, the one non-SI field)},
                    "lift_coefficient" (C_L at the first point), "drag_coefficient" (C_D there),
-                   "spin_radps_model" (model-based: assumes the lift law's k), "residual_rms_m",
+                   "spin_radps_model" (an assumption from the saturating law's published C_L(S); null
+                   under the linear law), "residual_rms_m",
                    "residual_rms_sigma", "chi2",
                    "residuals": {"t_s": [...], "dx_m": [...], "dy_m": [...], "outlier": [...]}}
     statistics    {"n_points", "n_residuals", "n_parameters", "dof", "chi2", "reduced_chi2",
@@ -63,11 +64,13 @@ SCHEMA = "hopscope.fit/1"
 
 SPIN_NOTE_LINEAR = (
     "spin is not measured: a trajectory fixes the lift force, so under the linear law only k·ω₀ is "
-    "identifiable; spin_radps_model assumes k = {k:g} (model-based)"
+    "identifiable (k = {k:g} is a convention), and no spin figure is given (spin_radps_model is null); "
+    "fit with the saturating law for a spin derived from its published C_L(S) relation"
 )
 SPIN_NOTE_SATURATING = (
-    "spin is not measured: spin_radps_model inverts the saturating lift law with its published shape "
-    "constants (model-based)"
+    "spin is not measured: spin_radps_model is an assumption, derived by inverting the saturating lift "
+    "relation C_L = 1.12·S/(0.583 + 2.333·S) for spheres (published form, see fitting.laws.SaturatingLift); "
+    "a marked BB measures spin directly"
 )
 
 

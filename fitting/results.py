@@ -121,6 +121,8 @@ class ShotFit:
     elevation_rad: Estimate
     lift_coefficient: Estimate
     drag_coefficient: Estimate
+    #: spin ω₀ (rad/s) from the saturating law's published C_L(S) relation, an assumption, not a
+    #: measurement; ``value`` None under the linear law (its k is a convention)
     spin_radps_model: Estimate
     residual_t_s: np.ndarray
     residual_dx_m: np.ndarray
