@@ -27,8 +27,8 @@ from hopscope.shared.constants import DEFAULT_BB_DIAMETER_M, STANDARD_GRAVITY_MP
 
 from .associate import SIGMA_FLOOR_PX, LinkOptions, link, scatter_ratio
 from .background import default_scale, windowed
-from .detect import THRESHOLD_SIGMA, find_candidates
-from .localise import QUANTISATION_NOISE_DN, Detection, localise
+from .detect import THRESHOLD_SIGMA, Candidate, find_candidates
+from .localise import QUANTISATION_NOISE_DN, Detection, localise, localise_marked
 from .select import (
     SPEED_BAND_MPS,
     BBSearch,
@@ -49,6 +49,9 @@ from .video import (
     regularise_times,
     timing_warnings,
 )
+
+#: Margin around the union of a marked BB's two half windows, px.
+MARKED_PAD_PX = 3
 
 #: Polarity options and their detection signs.
 POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
@@ -251,6 +254,22 @@ def track_video(
             still = np.array(wf.frame.luma, copy=True)
         cands = find_candidates(wf, threshold_sigma=opt.threshold_sigma, polarity=want)
         n_cand += len(cands)
+        if not want:  # a marked BB: a bright and a dark half side by side, fitted as one ball
+            for box, edge in _marked_pairs(cands, info):
+                r0, r1, c0, c1 = box
+                mpp = float(rig.metres_per_pixel(np.array([[0.5 * (c0 + c1), 0.5 * (r0 + r1)]]))[0])
+                d = localise_marked(
+                    wf.frame.luma[r0:r1, c0:c1],
+                    wf.background_roi(r0, r1, c0, c1),
+                    (r0, c0),
+                    frame=wf.frame.index,
+                    radius_px=0.5 * opt.bb_diameter_m / mpp if math.isfinite(mpp) and mpp > 0 else None,
+                    noise_floor=QUANTISATION_NOISE_DN,
+                )
+                if d.ok:
+                    dets.append((d, 0, wf.frame.t_s, edge))
+            paired = {id(c) for c in _paired(cands)}
+            cands = [c for c in cands if id(c) not in paired]
         for c in cands:
             r0, r1, c0, c1 = c.box
             diff = wf.diff_roi(r0, r1, c0, c1)
@@ -353,6 +372,43 @@ def track_video(
     return TrackResult(track, "", summary, tuple(warns), info, det_pairs, tuple(in_shot), still)
 
 
+def _overlap(a: Candidate, b: Candidate) -> bool:
+    ar0, ar1, ac0, ac1 = a.box
+    br0, br1, bc0, bc1 = b.box
+    return ar0 < br1 and br0 < ar1 and ac0 < bc1 and bc0 < ac1
+
+
+def _paired(cands: list[Candidate]) -> list[Candidate]:
+    """Candidates of one frame whose window overlaps one of the other polarity's."""
+    out = []
+    for c in cands:
+        if any(o.sign == -c.sign and _overlap(c, o) for o in cands):
+            out.append(c)
+    return out
+
+
+def _marked_pairs(cands: list[Candidate], info: VideoInfo) -> list[tuple[tuple[int, int, int, int], bool]]:
+    """Union windows of bright and dark candidates that overlap (the two halves of a marked BB).
+
+    Returns (r0, r1, c0, c1) windows grown by :data:`MARKED_PAD_PX`, clipped to the image, and whether a
+    window touched the border. Each bright candidate pairs with the overlapping dark ones.
+    """
+    out = []
+    for b in cands:
+        if b.sign <= 0:
+            continue
+        group = [b] + [d for d in cands if d.sign < 0 and _overlap(b, d)]
+        if len(group) < 2:
+            continue
+        r0 = min(c.box[0] for c in group) - MARKED_PAD_PX
+        r1 = max(c.box[1] for c in group) + MARKED_PAD_PX
+        c0 = min(c.box[2] for c in group) - MARKED_PAD_PX
+        c1 = max(c.box[3] for c in group) + MARKED_PAD_PX
+        edge = any(c.touches_edge for c in group) or r0 < 0 or c0 < 0 or r1 > info.height or c1 > info.width
+        out.append(((max(0, r0), min(info.height, r1), max(0, c0), min(info.width, c1)), edge))
+    return out
+
+
 @dataclass(frozen=True)
 class _Selection:
     """Tracks chosen as the BB's shots (indices into the detections) and what was turned down."""
@@ -389,7 +445,7 @@ def _select_tracks(
     judged: list[tuple[int, np.ndarray, TrackJudgement]] = []
     rejected: list[str] = []
     outliers = 0
-    for sign in (1, -1):
+    for sign in (1, -1, 0):
         if want and sign != want:
             continue
         sel = np.array([i for i, d in enumerate(dets) if d[1] == sign], dtype=np.int64)
@@ -420,7 +476,7 @@ def _select_tracks(
                 search,
             )
             judged.append((sign, sel[tr], j))
-    names = {1: "bright", -1: "dark"}
+    names = {1: "bright", -1: "dark", 0: "marked"}
     bb = [x for x in judged if x[2].is_bb]
     warns: list[str] = []
     pool = bb
@@ -430,8 +486,8 @@ def _select_tracks(
         rejected.extend(x[2].reason for x in judged)
         pol = names[want] if want else "bright"
         return _Selection((), pol, describe_rejections(rejected), len(rejected), outliers, ())
-    points = {s: sum(x[1].size for x in pool if x[0] == s) for s in (1, -1)}
-    sign = max((1, -1), key=lambda s: points[s])
+    points = {s: sum(x[1].size for x in pool if x[0] == s) for s in (1, -1, 0)}
+    sign = max((1, -1, 0), key=lambda s: points[s])
     keep = [x for x in pool if x[0] == sign]
     kept = {id(x) for x in keep}
     for x in judged:
@@ -443,7 +499,9 @@ def _select_tracks(
     if not bb:
         for x in keep:
             j = x[2]
-            k = likely_time_scale(j.speed_mps, j.accel_y_mps2, search, timestamp_rate_hz=timestamp_rate_hz)
+            k = likely_time_scale(
+                j.start_speed_mps, j.accel_y_mps2, search, timestamp_rate_hz=timestamp_rate_hz
+            )
             rate = f"about {k * timestamp_rate_hz:.6g} fps" if k else "unknown"
             warns.append(
                 f"a track moves like a BB's image but at {j.speed_mps:.3g} m/s and falls at "

@@ -81,7 +81,8 @@ COMMON_CAPTURE_RATES_HZ = (
     20000.0,
 )
 
-#: A typical BB speed, m/s: the likely capture rate is the common one that brings the speed nearest it.
+#: A typical BB speed, m/s: the likely capture rate is the common one that brings the speed at the
+#: track's first point nearest it.
 #: common practice, no published source
 TYPICAL_SPEED_MPS = 95.0
 
@@ -116,6 +117,7 @@ class TrackJudgement:
     Attributes
     ----------
     speed_mps : speed at the middle of the track, m/s.
+    start_speed_mps : speed at its first point, m/s (the quadratic's derivative there).
     accel_y_mps2, accel_y_se_mps2 : vertical acceleration and its standard error, m/s² (y up).
     accel_along_mps2, accel_along_se_mps2 : acceleration along the path (negative: slowing), m/s².
     width_px : median fitted Gaussian width of its blobs, px.
@@ -127,6 +129,7 @@ class TrackJudgement:
     """
 
     speed_mps: float
+    start_speed_mps: float
     accel_y_mps2: float
     accel_y_se_mps2: float
     accel_along_mps2: float
@@ -231,6 +234,8 @@ def judge_track(
         cx = cy = np.zeros(3)
         covx = covy = np.full((3, 3), np.inf)
     speed = math.hypot(vx, vy)
+    t0 = float(tt[0])
+    start_speed = math.hypot(vx + 2.0 * float(cx[2]) * t0, vy + 2.0 * float(cy[2]) * t0)
     ay, ay_se = 2.0 * float(cy[2]), 2.0 * math.sqrt(max(float(covy[2, 2]), 0.0))
     ux, uy = (vx / speed, vy / speed) if speed > 0 else (1.0, 0.0)
     a_al = 2.0 * float(cx[2] * ux + cy[2] * uy)
@@ -268,9 +273,10 @@ def judge_track(
         )
     hint = None
     if size_ok and drag_ok and speed < lo_v and (not fall_ok) and ay > -gravity_mps2:
-        hint = likely_time_scale(speed, ay, search)
+        hint = likely_time_scale(start_speed, ay, search)
     return TrackJudgement(
         speed_mps=speed,
+        start_speed_mps=start_speed,
         accel_y_mps2=ay,
         accel_y_se_mps2=ay_se,
         accel_along_mps2=a_al,
@@ -296,6 +302,7 @@ def likely_time_scale(
 ) -> float | None:
     """Ratio k = capture rate / timestamp rate that makes a slow, hardly falling track a BB's flight.
 
+    ``speed_mps`` is the track's speed at its first point (a BB enters the view near its exit speed).
     Real speed is k·u and real vertical acceleration k²·a_y. Candidates are k from 1.5 to 1000 (or, given
     ``timestamp_rate_hz``, the common capture rates over it, :data:`COMMON_CAPTURE_RATES_HZ`); kept are
     those that put the speed in the band and the fall within g ± the lift bound; of these the one whose

@@ -66,6 +66,7 @@ FLAG_TOKENS: frozenset[str] = frozenset(
         "streak",  # the blob was fitted as a motion-blur streak (length > BB image diameter)
         "weak",  # signal-to-noise below 10: position less trustworthy than sigma_px suggests
         "outside_coverage",  # the point maps outside the rig's calibrated area
+        "marked",  # a marked BB (half dark) located by its outline; brightness swings as the mark turns
     }
 )
 
@@ -126,8 +127,8 @@ class TrackMeta:
             if "\n" in w or "\r" in w:
                 raise ValueError("warnings: each warning must be one line")
         object.__setattr__(self, "warnings", tuple(self.warnings))
-        if self.polarity not in ("", "bright", "dark"):
-            raise ValueError(f"polarity: expected 'bright', 'dark' or empty, got {self.polarity!r}")
+        if self.polarity not in ("", "bright", "dark", "marked"):
+            raise ValueError(f"polarity: expected 'bright', 'dark', 'marked' or empty, got {self.polarity!r}")
         object.__setattr__(self, "image_size", (int(self.image_size[0]), int(self.image_size[1])))
 
 

@@ -30,6 +30,8 @@ SPEED_REL_TOL = 0.02
 #: A shot point further than this from the BB belongs to something else.
 BB_ONLY_TOL_PX = 0.5
 SEEDS = (1, 2, 3)
+#: Largest single error of a marked BB's centre (frames where the bright half faces the dim side), px.
+MARKED_MAX_ERR_PX = 0.3
 #: A BB point with a distractor in the clip against the same point without it, in units of its σ (where
 #: the blob passes near the BB's fit window the window's content changes a little).
 SAME_POINT_SIGMAS = 3.0
@@ -230,3 +232,57 @@ def test_slow_big_distractor_crossing_is_not_the_bb(tmp_path_factory, dark):
     assert float(np.sqrt(np.mean(rows[:, :2] ** 2))) <= POSITION_RMS_TOL_PX
     assert res.summary.rejected_track_count >= 1
     assert any("outside the BB speed band" in r for r in res.summary.rejected_tracks)
+
+
+def _playback_copy(src, dst, playback_hz: float):
+    """The clip re-stored with playback timing (frame k at k / playback_hz), lossless."""
+    import av
+    from track_synth import write_clip
+
+    with av.open(str(src)) as c:
+        frames = [f.to_ndarray(format="gray") for f in c.decode(video=0)]
+    times = [k / playback_hz for k in range(len(frames))]
+    return write_clip(dst, frames, fps=playback_hz, times_s=times)
+
+
+#: Playback rate of the re-stored copies, Hz (phone slow motion plays back at 30 fps).
+PLAYBACK_HZ = 30.0
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["lane-close", "lane-long", "lane-spin"])
+def test_playback_timed_copy_warns_with_the_capture_rate(tmp_path_factory, name):
+    from hopscope.scenes import builtin_scene
+
+    spec = builtin_scene(name)
+    out = tmp_path_factory.mktemp(f"pb-{name}")
+    scene = render_scene(spec, out, rng=1, parts=("flight",))
+    copy = _playback_copy(scene.flight_clip_path, out / "playback.mp4", PLAYBACK_HZ)
+    res = track_video(str(copy), _rig(scene.truth))
+    assert res.ok, res.reason
+    rate = f"about {spec.camera.fps:.6g} fps"
+    assert any("playback timing" in w and rate in w for w in res.warnings), res.warnings
+    assert any(rate in w for w in res.track.meta.warnings)
+    # the same clip with its true timing: no such warning
+    plain = track_video(str(scene.flight_clip_path), _rig(scene.truth))
+    assert not any("playback timing" in w for w in plain.warnings)
+
+
+@pytest.mark.slow
+def test_marked_bb_is_one_shot_centred_on_the_ball(tmp_path_factory):
+    # lane-spin: a half-dark BB spinning ~1000 rev/s at 10,000 fps; its bright and dark halves are fitted as
+    # one ball (outline), so the track is one shot with every visible frame, at the ball's centre
+    from hopscope.scenes import builtin_scene
+
+    res, truth = _track(builtin_scene("lane-spin"), 1, tmp_path_factory)
+    rows, n_vis = _compare(res, truth)
+    tr = res.track
+    assert tr.shot_ids == (0,)
+    assert tr.n_points == n_vis
+    assert tr.meta.polarity == "marked" and all("marked" in f for f in tr.flags)
+    assert float(np.sqrt(np.mean(rows[:, :2] ** 2))) <= POSITION_RMS_TOL_PX
+    assert np.max(np.hypot(rows[:, 0], rows[:, 1])) <= MARKED_MAX_ERR_PX
+    # the brightness column follows the mark: it changes sign as the bright half turns toward the camera
+    assert tr.brightness.min() < 0 < tr.brightness.max()
+    v_true = truth["flight"]["first_in_view"]["speed_mps"]
+    assert res.summary.shot_speeds_mps[0] == pytest.approx(v_true, rel=SPEED_REL_TOL)

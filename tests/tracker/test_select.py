@@ -38,6 +38,7 @@ def test_a_bb_flight_passes(rng):
     j = judge_track(*_flight(rng), M_PER_PX, BBSearch())
     assert j.is_bb, j.reason
     assert j.speed_mps == pytest.approx(95.0 - 250.0 * 59 / 2 / FPS, rel=0.01)
+    assert j.start_speed_mps == pytest.approx(math.hypot(95.0, 0.95), rel=0.01)
     assert j.accel_y_mps2 == pytest.approx(-G + 12.0, abs=4 * j.accel_y_se_mps2)
 
 
@@ -79,7 +80,7 @@ def test_playback_timing_is_seen_in_the_fall(rng, scale):
     j = judge_track(*_flight(rng, scale=scale), M_PER_PX, BBSearch())
     assert not j.is_bb and not j.fall_ok and j.timing_suspect
     stamps_hz = FPS / scale
-    k = likely_time_scale(j.speed_mps, j.accel_y_mps2, BBSearch(), timestamp_rate_hz=stamps_hz)
+    k = likely_time_scale(j.start_speed_mps, j.accel_y_mps2, BBSearch(), timestamp_rate_hz=stamps_hz)
     assert k is not None
     assert k * stamps_hz == pytest.approx(FPS)  # the common capture rate that makes it a BB's flight
 
