@@ -162,7 +162,9 @@ class Track:
     shot : ndarray of int
         Track id: several shots in one clip become several ids (0, 1, ...).
     brightness : ndarray of float
-        Integrated signal of the blob above background, grey levels × px (negative for a dark BB).
+        Integrated signal of the blob above background, grey levels × px (negative for a dark BB). For a
+        marked BB (flag ``marked``): the sum of frame − background over the ball's pixels, not corrected
+        for its apparent size or the exposure; it swings with the mark's turn (the spin signal).
     streak_len_px : ndarray of float
         Fitted motion-blur length, px (0 for a round image).
     flags : tuple of str
