@@ -216,6 +216,12 @@ def add_timing_options(parser: argparse.ArgumentParser, *, polarities) -> None:
         default="auto",
         help="BB brighter (bright) or darker (dark) than the background; auto decides from the clip",
     )
+    parser.add_argument(
+        "--speed-band-mps",
+        default="20:200",
+        metavar="LOW:HIGH",
+        help="speeds a BB can have, m/s (default 20:200): slower or faster tracks are not taken for the BB",
+    )
 
 
 def timing_seconds(args: argparse.Namespace) -> tuple[float | None, float, float | None]:
@@ -232,7 +238,18 @@ def track_options(args: argparse.Namespace) -> TrackOptions:
     from hopscope.tracker.pipeline import TrackOptions
 
     fps, readout_s, exposure_s = timing_seconds(args)
-    return TrackOptions(fps_override=fps, readout_s=readout_s, exposure_s=exposure_s, polarity=args.polarity)
+    text = str(getattr(args, "speed_band_mps", "20:200"))
+    try:
+        lo, hi = (float(x) for x in text.split(":"))
+    except ValueError:
+        raise ValueError(f"--speed-band-mps: expected LOW:HIGH in m/s, got {text!r}") from None
+    return TrackOptions(
+        fps_override=fps,
+        readout_s=readout_s,
+        exposure_s=exposure_s,
+        polarity=args.polarity,
+        speed_band_mps=(lo, hi),
+    )
 
 
 # ---------------------------------------------------------------------------------------------- commands
