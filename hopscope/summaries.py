@@ -208,6 +208,10 @@ def track_rows(
             f"{s.outliers} outliers dropped",
         ),
         (
+            "tracks not the BB",
+            f"{s.rejected_track_count}" + (f" (e.g. {s.rejected_tracks[0]})" if s.rejected_tracks else ""),
+        ),
+        (
             "median sigma",
             f"{_median(track.sigma_px):.3f} px, {m_to_mm(_median(track.sigma_m)):.3f} mm",
         ),
