@@ -322,8 +322,9 @@ class SpinDecay:
     ----------
     per : "time" (x in s, λ in 1/s, scale τ = 1/λ in s) or "distance" (x in m, λ in 1/m, L = 1/λ in m).
     reference : x₀, s or m (the time, or distance flown, the rate ``rate0_radps`` refers to).
-    rate0_radps, rate0_stderr_radps : ω at x₀ and its 1σ, rad/s.
-    decay_constant, decay_constant_stderr : λ and its 1σ (1/s or 1/m; ≈ 0 when the spin hardly decays).
+    rate0_radps, rate0_stderr_radps : ω at x₀ and its 1σ, rad/s (None when the fit did not settle).
+    decay_constant, decay_constant_stderr : λ and its 1σ (1/s or 1/m; ≈ 0 when the spin hardly decays;
+        None when the fit did not settle).
     scale, scale_stderr : τ (s) or L (m) and its 1σ; None when λ is not resolved above zero (see reason).
     n_windows : windows used (0 for the coherent fit of the whole series).
     reduced_chi2 : χ² per degree of freedom of the windowed fit (the standard errors are scaled up by its
@@ -334,10 +335,10 @@ class SpinDecay:
 
     per: str
     reference: float
-    rate0_radps: float
-    rate0_stderr_radps: float
-    decay_constant: float
-    decay_constant_stderr: float
+    rate0_radps: float | None
+    rate0_stderr_radps: float | None
+    decay_constant: float | None
+    decay_constant_stderr: float | None
     scale: float | None
     scale_stderr: float | None
     n_windows: int
@@ -1072,8 +1073,9 @@ def _decay_phase(t: np.ndarray, x: np.ndarray, x_m: float, lam: float, per_time:
     distance (from the first sample)."""
     if per_time:
         d = x - x_m
-        if abs(lam) * float(np.max(np.abs(d))) < 1e-9:
-            return d
+        if abs(lam) * float(np.max(np.abs(d))) < 1e-3:  # series of (1 − e^(−λd))/λ, exact to ~1e-14
+            ld = lam * d
+            return d * (1.0 - ld / 2.0 + ld * ld / 6.0 - ld**3 / 24.0)
         return -np.expm1(-lam * d) / lam
     g = np.exp(-lam * (x - x_m))
     return np.concatenate([[0.0], np.cumsum(0.5 * (g[1:] + g[:-1]) * np.diff(t))])
@@ -1182,6 +1184,9 @@ def fit_spin_decay_coherent(
     lam_sig = math.sqrt(max(var_l, 0.0))
     per = "time" if per_time else "distance"
     unit = "s" if per_time else "m"
+    if not (lam_sig > 0 and math.isfinite(lam_sig) and math.isfinite(var_ref) and var_ref > 0):
+        why = f"decay not measured: the coherent fit did not settle ({sol.message})"
+        return SpinDecay(per, x0, None, None, None, None, None, None, 0, math.nan, "coherent phase fit", why)
     method = f"coherent phase fit of {int(keep.sum())} samples, exponential in {per}" + (
         f" ({n - int(keep.sum())} outliers left out)" if not np.all(keep) else ""
     )

@@ -325,7 +325,8 @@ def test_no_decay_is_said_plainly():
     t, b = flicker_series(np.random.default_rng(6), n=600, rate_radps=TWO_PI * 900.0, noise=0.03)
     decay = fit_spin_decay(spin_vs_time(t, b, window_points=60).windows)
     assert decay.scale is None and decay.reason is not None and "not resolved" in decay.reason
-    assert math.isfinite(decay.decay_constant) and decay.decay_constant_stderr > 0
+    assert decay.decay_constant is not None and math.isfinite(decay.decay_constant)
+    assert decay.decay_constant_stderr is not None and decay.decay_constant_stderr > 0
 
 
 def test_windows_follow_the_alias_across_a_fold():
@@ -450,6 +451,18 @@ def test_coherent_decay_on_a_short_flight_within_fifteen_percent():
         assert spin.rate_radps is not None and spin.stderr_radps is not None
         assert abs(spin.rate_radps / truth_first - 1.0) < RATE_REL_TOL
         assert spin.at_t_s == t[0]
+
+
+def test_coherent_fit_of_a_steady_spin_finds_no_decay_with_a_real_sigma():
+    # at λ = 0 the phase model must still respond to λ (its derivative there is −Δt²/2, not 0)
+    t, b = flicker_series(np.random.default_rng(23), n=32, rate_radps=TWO_PI * 2500.0)
+    decay = fit_spin_decay_coherent(t, b, measure_spin(t, b))
+    assert decay.decay_constant is not None and decay.decay_constant_stderr is not None
+    assert (
+        decay.decay_constant_stderr > 0
+        and abs(decay.decay_constant) < RATE_PULL_MAX * decay.decay_constant_stderr
+    )
+    assert decay.scale is None and decay.reason is not None and "not resolved" in decay.reason
 
 
 @pytest.mark.slow
