@@ -53,6 +53,7 @@ from scipy.optimize import least_squares
 from scipy.special import gammaln
 
 from hopscope.shared.constants import MAD_TO_SIGMA
+from hopscope.shared.parse import is_finite_number
 
 from .laws import LinearLift, SaturatingLift, spin_ratio
 
@@ -1383,3 +1384,62 @@ def measured_spin_ratio(
             raise ValueError(f"{name} must be finite and >= 0, got {value!r}")
     s = float(spin_ratio(rate_radps, speed_mps, radius_m))
     return s, s * math.hypot(rate_stderr_radps / rate_radps, speed_stderr_mps / speed_mps)
+
+
+def check_spin_measured(obj: Any, where: str) -> None:
+    """Validate a ``spin_measured`` record read back from ``fit.json`` (the layout of
+    :func:`shot_spin_to_json`); ``ValueError`` naming ``where`` and the field for anything else.
+
+    Numbers must be finite (or null where a value may be missing); ``marking`` must be known.
+    """
+
+    def fail(field: str, what: str) -> ValueError:
+        return ValueError(f"{where}.{field}: {what}")
+
+    def number(value: Any, field: str, *, null: bool = True) -> None:
+        if value is None and null:
+            return
+        if not is_finite_number(value):
+            raise fail(field, f"expected a finite number{' or null' if null else ''}, got {value!r}")
+
+    if not isinstance(obj, dict):
+        raise ValueError(f"{where}: expected an object, got {type(obj).__name__}")
+    for key in ("rate_radps", "at_t_s", "candidates_radps", "marking", "method"):
+        if key not in obj:
+            raise fail(key, "missing")
+    rate = obj["rate_radps"]
+    if not isinstance(rate, dict) or set(rate) != {"value", "stderr"}:
+        raise fail("rate_radps", f'expected {{"value", "stderr"}}, got {rate!r}')
+    number(rate["value"], "rate_radps.value")
+    number(rate["stderr"], "rate_radps.stderr")
+    if (rate["value"] is None) != (rate["stderr"] is None):
+        raise fail("rate_radps", "value and stderr must both be numbers or both null")
+    number(obj["at_t_s"], "at_t_s", null=False)
+    cands = obj["candidates_radps"]
+    if not isinstance(cands, list):
+        raise fail("candidates_radps", f"expected a list, got {cands!r}")
+    for i, c in enumerate(cands):
+        number(c, f"candidates_radps[{i}]", null=False)
+    if obj["marking"] not in MARKINGS:
+        raise fail("marking", f"unknown marking {obj['marking']!r}; known: {sorted(MARKINGS)}")
+    if not isinstance(obj["method"], str):
+        raise fail("method", f"expected text, got {obj['method']!r}")
+    for key in ("false_alarm_probability", "flicker_hz", "sample_rate_hz"):
+        number(obj.get(key), key)
+    for key in ("reason", "decay_reason"):
+        if obj.get(key) is not None and not isinstance(obj[key], str):
+            raise fail(key, f"expected text or null, got {obj[key]!r}")
+    decay = obj.get("decay")
+    if decay is None:
+        return
+    if not isinstance(decay, dict):
+        raise fail("decay", f"expected an object or null, got {decay!r}")
+    if decay.get("per") not in ("time", "distance"):
+        raise fail("decay.per", f"expected 'time' or 'distance', got {decay.get('per')!r}")
+    number(decay.get("reference"), "decay.reference", null=False)
+    for key in ("rate0_radps", "decay_constant", "scale"):
+        est = decay.get(key)
+        if not isinstance(est, dict) or set(est) != {"value", "stderr"}:
+            raise fail(f"decay.{key}", f'expected {{"value", "stderr"}}, got {est!r}')
+        number(est["value"], f"decay.{key}.value")
+        number(est["stderr"], f"decay.{key}.stderr")

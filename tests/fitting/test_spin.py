@@ -20,6 +20,7 @@ from hopscope.fitting.spin import (
     SpinOptions,
     SpinPrior,
     alias_frequencies,
+    check_spin_measured,
     exposure_attenuation,
     false_alarm_probability,
     fit_spin_decay,
@@ -595,3 +596,18 @@ def test_rendered_slow_spin_with_too_few_cycles_reports_no_number():
     t, _, own_light, _ = rendered_marked_brightness(spec)
     est = measure_spin(t, own_light, options=SpinOptions(exposure_s=spec.camera.exposure_s))
     assert not est.measured and est.reason is not None and "needs a longer series" in est.reason
+
+
+def test_spin_record_round_trips_through_json_and_bad_records_are_named():
+    t, b = flicker_series(np.random.default_rng(24), n=86, rate_radps=TWO_PI * 900.0, tau_s=0.02)
+    record = json.loads(json.dumps(shot_spin_to_json(measure_shot_spin(t, b))))
+    check_spin_measured(record, "fit.json: shots[0].spin_measured")
+    bad = dict(record, rate_radps={"value": float("nan"), "stderr": 1.0})
+    with pytest.raises(ValueError, match=r"shots\[0\]\.spin_measured\.rate_radps\.value: expected a finite"):
+        check_spin_measured(bad, "fit.json: shots[0].spin_measured")
+    with pytest.raises(ValueError, match=r"spin_measured\.marking: unknown marking 'dots'"):
+        check_spin_measured(dict(record, marking="dots"), "fit.json: shots[0].spin_measured")
+    with pytest.raises(ValueError, match=r"spin_measured\.at_t_s: missing"):
+        check_spin_measured(
+            {k: v for k, v in record.items() if k != "at_t_s"}, "fit.json: shots[0].spin_measured"
+        )
