@@ -9,11 +9,16 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from typing import overload
 
 from .bb import BBTolerance
 from .results import Estimate, FlightFit
 
 
+@overload
+def with_bb_share(est: Estimate, rel_sigma: float) -> Estimate: ...
+@overload
+def with_bb_share(est: None, rel_sigma: float) -> None: ...
 def with_bb_share(est: Estimate | None, rel_sigma: float) -> Estimate | None:
     """``est`` with a BB share |value|·rel_sigma added in quadrature (unchanged when it has no stderr)."""
     if est is None or est.value is None or est.stderr is None or not math.isfinite(est.stderr):

@@ -33,7 +33,7 @@ from .fitfile import FitFile
 from .flight import Trajectory, fly
 from .flyto import fly_shots_to
 from .observe import RowParams, flight_for
-from .predict import check_shot, fitted_model_of, heights_at
+from .predict import check_shot, fitted_model_of, heights_at, spread_over_rows
 from .results import Estimate, FittedModel, FlightFit
 
 #: Muzzle height above the ground, m: a shoulder-height shot.  # common practice, no published source
@@ -210,7 +210,7 @@ def forecast_shot(
     if n_samples:
         grid = np.linspace(0.0, float(nominal.x_m[-1]), 60)
         ys, _ = heights_at(traj, grid)
-        y_sig = np.interp(nominal.x_m, grid, _sd(ys[1:]))
+        y_sig = np.interp(nominal.x_m, grid, spread_over_rows(ys[1:]))
 
     def est(name: str) -> Estimate:
         values = np.array([getattr(f, name) for f in figs])
@@ -272,14 +272,6 @@ def _row(rows: RowParams, i: int) -> RowParams:
     return RowParams(
         **{f.name: np.asarray(getattr(rows, f.name))[i : i + 1] for f in dataclasses.fields(rows)}
     )
-
-
-def _sd(a: np.ndarray) -> np.ndarray:
-    out = np.zeros(a.shape[1])
-    good = np.isfinite(a).sum(axis=0) >= 2
-    if good.any():
-        out[good] = np.nanstd(a[:, good], axis=0, ddof=1)
-    return out
 
 
 __all__ = [

@@ -134,9 +134,9 @@ def muzzle_state(
     v = np.array(speeds)
     gm = np.mean(grads, axis=0)
     speed_stat = _group(v, np.zeros_like(v), gm, cov_n, cov_c, 0.0)
-    e = 0.5 * bb.mass_kg * v**2
+    energies = 0.5 * bb.mass_kg * v**2
     de_mean = np.mean([bb.mass_kg * s * g for s, g in zip(speeds, grads, strict=True)], axis=0)
-    energy_stat = _group(e, e, de_mean, cov_n, cov_c, mass_rel)
+    energy_stat = _group(energies, energies, de_mean, cov_n, cov_c, mass_rel)
     notes = [
         "muzzle values flown back from each shot's fitted first point with the fitted model"
         if muzzle_x_m is not None

@@ -131,7 +131,7 @@ def predict_path(
     if n_samples and x.size > 1:
         band_x = np.linspace(x[0], x[-1], min(BAND_POINTS, x.size))
         ys, vs = heights_at(traj, band_x)
-        ys_sd, vs_sd = _spread(ys[1:]), _spread(vs[1:])
+        ys_sd, vs_sd = spread_over_rows(ys[1:]), spread_over_rows(vs[1:])
         y_sig = np.interp(x, band_x, ys_sd)
         v_sig = np.interp(x, band_x, vs_sd)
     return PredictedPath(fm.labels[shot], t, x, y, speed, y_sig, v_sig, reached, n_samples)
@@ -156,7 +156,7 @@ def heights_at(traj: Trajectory, x_m: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return ys, vs
 
 
-def _spread(a: np.ndarray) -> np.ndarray:
+def spread_over_rows(a: np.ndarray) -> np.ndarray:
     """Column standard deviation over the finite entries (0 where fewer than two)."""
     out = np.zeros(a.shape[1])
     good = np.isfinite(a).sum(axis=0) >= 2

@@ -35,6 +35,25 @@ DECAY_LENGTH_RTOL = 1e-5
 ENERGY_SLACK_J = 1e-12
 FLIGHT_LENGTH_M = 100.0
 REF_TOL = 1e-12  # DOP853 rtol and atol of the reference
+#: Spin against the reference where it decays to nothing (absolute floor, rad/s).
+SPIN_ATOL_RADPS = 1e-6
+#: A crossing found by bisection lies on the level to this (m).
+CROSSING_TOL_M = 1e-9
+#: Aerodynamic decay with distance flown against the closed form (relative).
+DECAY_WITH_PATH_RTOL = 1e-6
+#: Exponential decay against exp(−t/τ) (relative).
+EXP_DECAY_RTOL = 1e-9
+#: Side force over lift against tan(tilt) for a tilted axis (drag couples them a little).
+TILT_RATIO_RTOL = 0.05
+#: Same arithmetic in another order: round-off (relative and absolute, m or m/s).
+ROUNDOFF_RTOL = 1e-12
+ROUNDOFF_ATOL = 1e-12
+#: Sampling exactly at the nodes returns the nodes (relative).
+NODE_RTOL = 1e-14
+#: The grid's last time equals the duration (s).
+GRID_END_TOL_S = 1e-15
+#: Velocities of the fast kernel against the reference derivatives (m/s).
+KERNEL_VELOCITY_ATOL = 1e-5
 
 AIR = Air.standard()
 HYPO = settings(max_examples=20, deadline=None)
@@ -149,7 +168,7 @@ def test_matches_dop853_over_100_m_of_flight(case):
     assert pos_err <= PATH_TOL_M
     assert pos_err <= PATH_TOL_TIGHT_M
     np.testing.assert_allclose(ours[:, 3:6], want[:, 3:6], atol=VELOCITY_TOL_MPS)
-    np.testing.assert_allclose(ours[:, 6], want[:, 6], rtol=SPIN_RTOL, atol=1e-6)
+    np.testing.assert_allclose(ours[:, 6], want[:, 6], rtol=SPIN_RTOL, atol=SPIN_ATOL_RADPS)
 
 
 def test_crossing_times_match_dop853_events():
@@ -184,7 +203,7 @@ def test_crossing_edge_cases():
     assert np.all(traj.time_at_downrange(0.0) == 0.0)  # already there at launch
     assert np.all(np.isnan(traj.time_at_height(-100.0)))
     x_at = traj.sample(t[:1, None] * np.ones((3, 1)))[0, 0, 0]
-    assert x_at == pytest.approx(20.0, abs=1e-9)
+    assert x_at == pytest.approx(20.0, abs=CROSSING_TOL_M)
     with pytest.raises(ValueError, match="crossing level must be finite"):
         traj.time_at_downrange(math.nan)
 
@@ -240,7 +259,7 @@ def test_aerodynamic_decay_is_exponential_in_distance():
     slope = np.polyfit(path, np.log(st_[:, 6]), 1)[0]
     length = 2.0 * bb.inertia_kgm2 / (c * AIR.density_kgm3 * bb.area_m2 * bb.radius_m**2)
     assert -1.0 / slope == pytest.approx(length, rel=DECAY_LENGTH_RTOL)
-    np.testing.assert_allclose(st_[:, 6], st_[0, 6] * np.exp(-path / length), rtol=1e-6)
+    np.testing.assert_allclose(st_[:, 6], st_[0, 6] * np.exp(-path / length), rtol=DECAY_WITH_PATH_RTOL)
     # ... and not exponential in time: the BB slows, so the time constant L/u grows along the flight
     rate = -np.gradient(np.log(st_[:, 6]), t)
     assert rate[-1] < 0.7 * rate[0]
@@ -254,7 +273,7 @@ def test_exponential_decay_in_time():
     t = np.linspace(0.0, 1.0, 301)
     spin = traj.sample(t)[:, :, 6]
     want = launch.spin_radps[:, None] * np.exp(-t[None, :] / np.array([0.5, 2.0])[:, None])
-    np.testing.assert_allclose(spin, want, rtol=1e-9)
+    np.testing.assert_allclose(spin, want, rtol=EXP_DECAY_RTOL)
 
 
 # ---------------------------------------------------------------------------------- geometry of the forces
@@ -278,7 +297,7 @@ def test_backspin_lifts_and_a_tilted_axis_curves():
     assert end[1, 1] > end[0, 1] + 0.05  # lifted above the spin-free path
     assert end[1, 2] == 0.0 and end[2, 2] < -0.01  # the tilted axis curves toward −z
     side_over_lift = -end[2, 2] / (end[2, 1] - end[0, 1])
-    assert side_over_lift == pytest.approx(math.tan(tilt), rel=0.05)
+    assert side_over_lift == pytest.approx(math.tan(tilt), rel=TILT_RATIO_RTOL)
 
 
 def test_derivatives_matches_the_reference_rhs():
@@ -288,7 +307,7 @@ def test_derivatives_matches_the_reference_rhs():
         state = np.array([y0_of(launch)])
         got = derivatives(model, state, launch.spin_axis)
         want = reference_rhs(model, launch.spin_axis[0])(0.0, state[0])
-        np.testing.assert_allclose(got[0], want, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(got[0], want, rtol=ROUNDOFF_RTOL, atol=ROUNDOFF_ATOL)
     with pytest.raises(ValueError, match=r"state must have shape \(n, 7\)"):
         derivatives(model, np.zeros((2, 6)), launch.spin_axis)
 
@@ -321,7 +340,7 @@ def test_many_shots_at_once_equal_one_at_a_time():
             launch.spin_axis[i : i + 1],
         )
         alone = fly(one_model, one, 0.8)
-        np.testing.assert_allclose(together.state[i], alone.state[0], rtol=1e-13, atol=1e-12)
+        np.testing.assert_allclose(together.state[i], alone.state[0], rtol=ROUNDOFF_RTOL, atol=ROUNDOFF_ATOL)
 
 
 # ------------------------------------------------------------------------------------------ sampling
@@ -331,14 +350,14 @@ def test_sample_at_nodes_and_shapes():
     model = FlightModel(BB(2.5e-4), AIR)
     launch = LaunchState.from_speed([100.0, 80.0], 0.02, spin_radps=2000.0)
     traj = fly(model, launch, 0.5)
-    assert traj.t_s[0] == 0.0 and traj.t_s[-1] == pytest.approx(0.5, abs=1e-15)
+    assert traj.t_s[0] == 0.0 and traj.t_s[-1] == pytest.approx(0.5, abs=GRID_END_TOL_S)
     assert np.allclose(np.diff(traj.t_s), DEFAULT_STEP_S)
     nodes = traj.t_s[::7]
-    np.testing.assert_allclose(traj.sample(nodes), traj.state[:, ::7], rtol=1e-14, atol=1e-12)
+    np.testing.assert_allclose(traj.sample(nodes), traj.state[:, ::7], rtol=NODE_RTOL, atol=ROUNDOFF_ATOL)
     per_shot = np.array([[0.1, 0.2, 0.3], [0.05, 0.15, 0.45]])
     s = traj.sample(per_shot)
     assert s.shape == (2, 3, 7)
-    np.testing.assert_allclose(s[1, 1], traj.sample([0.15])[1, 0], rtol=1e-15)
+    np.testing.assert_allclose(s[1, 1], traj.sample([0.15])[1, 0], rtol=NODE_RTOL)
     assert traj.speed_mps.shape == (2, traj.t_s.size)
     np.testing.assert_allclose(traj.speed_mps[:, 0], [100.0, 80.0])
     np.testing.assert_array_equal(traj.spin_radps, traj.state[:, :, 6])
@@ -363,7 +382,7 @@ def test_sample_between_nodes_matches_dop853_dense_output():
     got = traj.sample(mid)[0]
     want = ref.sol(mid).T
     assert np.max(np.linalg.norm(got[:, :3] - want[:, :3], axis=1)) < 1e-7
-    np.testing.assert_allclose(got[:, 3:6], want[:, 3:6], atol=1e-5)
+    np.testing.assert_allclose(got[:, 3:6], want[:, 3:6], atol=KERNEL_VELOCITY_ATOL)
 
 
 # ------------------------------------------------------------------------------------ invariants (hypothesis)
