@@ -85,6 +85,12 @@ BLOB_MAX_AREA_FRACTION = 0.01
 CANDIDATES_PER_FRAME = 3
 PATH_CONSENSUS_PX = 3.0
 PATH_REFINED_PX = 1.5
+#: The ball sits still while it stays within REST_RADIUS_PX of where it first sat; the fit's data start
+#: REST_MARGIN_FRAMES points before it leaves (a slow release moves it less than that at first).
+REST_RADIUS_PX = 0.5
+REST_MARGIN_FRAMES = 8
+#: Points of the path the backward growth fits its local curve to.
+GROW_FIT_POINTS = 6
 #: Frames sampled for the median background.
 BACKGROUND_FRAMES = 15
 #: Points further than OUTLIER_SIGMA robust σ from the fit are dropped and the fit repeated.
@@ -92,8 +98,14 @@ OUTLIER_SIGMA = 5.0
 
 #: Release search (:func:`find_release`): the first points of the free fall must lie within RELEASE_SIGMA
 #: noise σ of the fall's curve. # common practice, no published source
-RELEASE_HEAD_POINTS = 3
+RELEASE_HEAD_POINTS = 4
 RELEASE_SIGMA = 4.0
+#: ... and their mean along the fall must lie within RELEASE_TREND_SIGMA standard errors of zero: frames
+#: of a ball still held sit on one side of the curve.
+RELEASE_TREND_SIGMA = 3.0
+#: Points of the window each start is judged on: short enough that a parabola follows the fall with its
+#: drag and cannot bend round a held start.
+RELEASE_WINDOW_POINTS = 30
 
 #: A fall is a clean parabola when the lag-1 autocorrelation of its fit residuals stays below this
 #: (noise: ≈ 0 ± 1/√N; a contact phase or a wrong model leaves a trend near 1). # common practice, no
@@ -412,22 +424,48 @@ def _consistent_path(frames: np.ndarray, uv: np.ndarray) -> list[int]:
         f = int(frames[j])
         if f not in chosen or r[j] < r[chosen[f]]:
             chosen[f] = int(j)
+    _grow_backward(chosen, frames, k, uv)
     return sorted(int(order[j]) for j in chosen.values())
 
 
+def _grow_backward(chosen: dict[int, int], frames: np.ndarray, k: np.ndarray, uv: np.ndarray) -> None:
+    """Follow the ball from the path's first frame back in time (into ``chosen``, frame → candidate): each
+    earlier frame's candidate nearest a quadratic through the next :data:`GROW_FIT_POINTS` chosen points,
+    within :data:`PATH_CONSENSUS_PX`. A whole-clip curve cannot follow a ball that sat in a holder and
+    was let go; the release search (:func:`find_release`) then decides where the free fall starts."""
+    if len(chosen) < GROW_FIT_POINTS:
+        return
+    by_frame: dict[int, list[int]] = {}
+    for j, f in enumerate(frames):
+        by_frame.setdefault(int(f), []).append(j)
+    f = min(chosen) - 1
+    while f >= int(frames.min()) and f in by_frame:
+        nxt = sorted(chosen)[:GROW_FIT_POINTS]
+        sel = np.array([chosen[g] for g in nxt])
+        cu = np.polyfit(k[sel], uv[sel, 0], 2)
+        cv = np.polyfit(k[sel], uv[sel, 1], 2)
+        pred = np.array([np.polyval(cu, f), np.polyval(cv, f)])
+        cand = by_frame[f]
+        d = [float(np.linalg.norm(uv[j] - pred)) for j in cand]
+        if min(d) > PATH_CONSENSUS_PX:
+            return
+        chosen[f] = cand[int(np.argmin(d))]
+        f -= 1
+
+
 def _moving(clip: DropClip) -> np.ndarray:
-    """Mask of the falling part: from the last frame at the release position onward (drops the ball held
-    still before the release, where it can sit in the background or in the hand)."""
+    """Mask of the part after the ball sat still: from :data:`REST_MARGIN_FRAMES` points before it first
+    leaves :data:`REST_RADIUS_PX` of where it sat (drops the ball held still in the background or in a
+    hand; what remains of the holder's contact, :func:`find_release` trims)."""
     uv = clip.uv_px
     if len(uv) < 3:
         return np.ones(len(uv), bool)
-    step = np.linalg.norm(np.diff(uv, axis=0), axis=1)
-    moving = np.concatenate([[False], step > 0.3])
-    if not moving.any():
+    rest = np.median(uv[:3], axis=0)
+    out = np.linalg.norm(uv - rest, axis=1) > REST_RADIUS_PX
+    if not out.any():
         return np.ones(len(uv), bool)
-    first = int(np.argmax(moving))
     mask = np.zeros(len(uv), bool)
-    mask[max(first - 1, 0) :] = True
+    mask[max(int(np.argmax(out)) - REST_MARGIN_FRAMES, 0) :] = True
     return mask
 
 
@@ -444,9 +482,11 @@ def find_release(t_s: np.ndarray, xy_m: np.ndarray) -> int:
     """Index of the first point of the free fall: where the ball has left its holder or hand.
 
     Before the release the ball is held, or slides and rolls against the holder with less than g; that part
-    does not lie on the fall's smooth curve. The noise σ is measured on the fall's second half (a cubic per
-    axis, which absorbs the small drag term); the release is the earliest start whose first
-    :data:`RELEASE_HEAD_POINTS` points lie within :data:`RELEASE_SIGMA` σ of the curve fitted from there on.
+    does not lie on the fall's curve. For each start, a parabola per axis is fitted to the next
+    :data:`RELEASE_WINDOW_POINTS` points but the first :data:`RELEASE_HEAD_POINTS`, and those first points
+    are compared with its prediction (the parabola cannot bend round them); the prediction's noise is
+    measured the same way on the fall's last windows. The release is the earliest start whose first points
+    lie within :data:`RELEASE_SIGMA` of it without a one-sided trend (:data:`RELEASE_TREND_SIGMA`).
     Returns 0 when every start looks like free fall. (A change-point search by residuals, Bevington &
     Robinson 2003, sec. 11.4, applied to the start of the segment.)
     """
@@ -455,15 +495,32 @@ def find_release(t_s: np.ndarray, xy_m: np.ndarray) -> int:
     n = len(t)
     if n < 3 * MIN_DROP_POINTS:
         return 0
-    tail = slice(n // 2, n)
-    r_tail = _poly_residuals(t[tail], xy[tail], 3)
-    dof = max(r_tail.size - 8, 1)
-    sigma = float(np.sqrt(np.sum(r_tail**2) / dof)) + 1e-12
-    for start in range(0, n - 2 * MIN_DROP_POINTS):
-        r = np.linalg.norm(_poly_residuals(t[start:], xy[start:], 3), axis=1) / sigma
-        if np.max(r[:RELEASE_HEAD_POINTS]) < RELEASE_SIGMA:
-            return start
+    window = min(n // 2, RELEASE_WINDOW_POINTS)
+    h = RELEASE_HEAD_POINTS
+    starts = range(0, n - window + 1)
+    heads = np.array([_head_misfit(t, xy, s0, window, h) for s0 in starts])  # (S, h, 2)
+    # the noise of that prediction, from the fall's last windows (free fall there for sure)
+    tail = heads[-max(len(heads) // 4, 1) :]
+    sigma = float(np.sqrt(np.mean(tail**2))) + 1e-12
+    for s0, head in zip(starts, heads, strict=True):
+        res = head / sigma
+        fall = xy[s0 + window - 1] - xy[s0]
+        along = res @ (fall / (np.linalg.norm(fall) + 1e-300))
+        trend = abs(float(np.mean(along))) * math.sqrt(h)  # a held start leaves residuals of one sign
+        if np.max(np.linalg.norm(res, axis=1)) < RELEASE_SIGMA and trend < RELEASE_TREND_SIGMA:
+            return s0
     return 0
+
+
+def _head_misfit(t: np.ndarray, xy: np.ndarray, start: int, window: int, h: int) -> np.ndarray:
+    """(h, 2) misfit of the first ``h`` points of a window to the parabola fitted to the window's rest."""
+    seg_t, seg = t[start + h : start + window], xy[start + h : start + window]
+    tc = t[start : start + h] - seg_t.mean()
+    out = np.empty((h, 2))
+    for ax in range(2):
+        coef = np.polyfit(seg_t - seg_t.mean(), seg[:, ax], 2)
+        out[:, ax] = xy[start : start + h, ax] - np.polyval(coef, tc)
+    return out
 
 
 def lag1_autocorrelation(residuals: np.ndarray) -> float:

@@ -148,3 +148,27 @@ def write_gray_video(path, frames, fps):
                 out.mux(packet)
         for packet in stream.encode():
             out.mux(packet)
+
+
+def fall_from_holder(t_s, g, k_per_m, contact_s, contact_accel, start_m=(0.0, 0.0)):
+    """A ball leaving a holder: for t < ``contact_s`` it moves straight down with the acceleration
+    ``contact_accel(t)`` (m/s², the holder still holds it back), then falls freely with quadratic drag
+    a = g ĝ − k |v| v. Integrated with scipy's solve_ivp (Dormand & Prince 1980 RK45) in two pieces."""
+    from scipy.integrate import solve_ivp
+
+    t_s = np.asarray(t_s, float)
+
+    def held(t, s):
+        return [s[2], s[3], 0.0, -contact_accel(t)]
+
+    def free(_t, s):
+        v = s[2:]
+        return np.concatenate([v, np.array([0.0, -g]) - k_per_m * np.linalg.norm(v) * v])
+
+    first = t_s[t_s < contact_s]
+    a = solve_ivp(held, (0, contact_s), [start_m[0], start_m[1], 0, 0], t_eval=first, rtol=1e-11, atol=1e-13,
+                  dense_output=True)  # fmt: skip
+    state = a.sol(contact_s)
+    rest = t_s[t_s >= contact_s]
+    b = solve_ivp(free, (contact_s, float(t_s[-1])), state, t_eval=rest, rtol=1e-11, atol=1e-13)
+    return np.vstack([a.y[:2].T, b.y[:2].T])

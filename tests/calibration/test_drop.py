@@ -8,7 +8,7 @@ import re
 
 import numpy as np
 import pytest
-from calib_synth import fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
+from calib_synth import fall_from_holder, fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
 from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
 from hopscope.calibration.dropcheck import Measured
@@ -174,3 +174,45 @@ def test_rolling_shutter_is_taken_out_of_the_drop(tmp_path):
     g_without = without.g_measured_mps2.value
     assert abs(g_with - G) / G < G_RTOL_RENDERED
     assert abs(g_without - G) > 2 * abs(g_with - G)
+
+
+def _holder_clip(tmp_path, rng, contact_frames, contact_accel, *, lead=15, n=150):
+    rig = make_close_rig(DROP_IMAGE_SCALE)
+    t = np.arange(n) / FPS
+    xy = fall_from_holder(t, G, K_LIGHT_BALL, contact_frames / FPS, contact_accel, start_m=(1.0, 0.62))
+    uv = rig.world_to_pixel(xy)
+    frames = render_disc_frames(rig.image_size, [uv[0]] * lead + list(uv), 1.7 * DROP_IMAGE_SCALE * 1.5, rng)
+    path = tmp_path / "holder.mkv"
+    write_gray_video(path, frames, FPS)
+    return rig, path
+
+
+#: The release may be found a frame or two either side of the true one (the first free frames differ
+#: from the held path by less than the noise).
+RELEASE_TOL_FRAMES = 5
+
+
+def test_ball_resting_in_a_holder_first_reads_g_from_the_free_fall_only(tmp_path):
+    # the holder lets the ball go over 12 frames, holding back half of g (friction on its lip), then the
+    # ball falls freely: the check finds the release and reads g to the 0.5 %
+    lead, contact = 15, 12
+    rig, path = _holder_clip(tmp_path, np.random.default_rng(5), contact, lambda _t: 0.5 * G, lead=lead)
+    check, warns = check_drop(rig, path)
+    assert check.verdict == "consistent", warns
+    assert abs(check.g_measured_mps2.value - G) / G < G_RTOL_RENDERED
+    assert abs(check.release_frame - (lead + contact)) <= RELEASE_TOL_FRAMES
+    assert check.clean_parabola
+
+
+def test_non_parabolic_start_is_never_blamed_on_the_frame_rate(tmp_path):
+    # the ball rolls off a curved lip: its acceleration grows smoothly from 0 to g over 30 frames, so no
+    # frame of the start is a free fall; whatever g comes out, the frame rate is not blamed for it
+    contact = 30
+    rig, path = _holder_clip(
+        tmp_path, np.random.default_rng(6), contact, lambda t: G * min(t * FPS / contact, 1.0)
+    )
+    check, warns = check_drop(rig, path)
+    assert check.likely_cause != "frame rate", warns
+    if check.verdict == "consistent":
+        assert abs(check.g_measured_mps2.value - G) / G < G_RTOL_RENDERED
+    assert not any("frame rate is probably wrong" in w for w in warns)
