@@ -70,7 +70,7 @@ DEFAULT_BATCHES = 20
 
 DEFAULT_BOOTSTRAP = 20
 #: Simulated shots per bootstrap replicate.
-BOOTSTRAP_SHOTS = 200
+BOOTSTRAP_SHOTS = 100
 #: Speeds spread (SD) by more than this fraction of their mean: not one group (a replica's shot-to-shot
 #: speed SD is a few per cent).  # common practice, no published source
 NOT_ONE_GROUP_SPEED_REL = 0.08
