@@ -12,6 +12,7 @@ too wide, 1.25 for bars 20 % too narrow) is the sharper summary. Prints one row 
 
     python tests/bench/bench_rendered_coverage.py [--scene lane-close] [--seeds 12] [--first 1]
         [--no-perturb] [--out /tmp/hopscope-coverage]
+    python tests/bench/bench_rendered_coverage.py --combine run1.txt run2.txt   # one table from printed runs
 """
 
 from __future__ import annotations
@@ -108,6 +109,27 @@ def table(zs: dict[str, list[float]], n_seeds: int) -> list[str]:
     return lines
 
 
+def combine(paths: list[str]) -> None:
+    """Print one table from the per-seed rows of earlier runs' printed output (runs split into chunks)."""
+    zs: dict[str, list[float]] = {q: [] for q in QUANTITIES}
+    n = failed = 0
+    for path in paths:
+        for line in Path(path).read_text(encoding="utf-8").splitlines():
+            cells = line.split()
+            if not cells or not cells[0].isdigit():
+                continue
+            n += 1
+            if cells[1] == "failed:":
+                failed += 1
+                continue
+            for q, cell in zip(QUANTITIES, cells[1 : 1 + len(QUANTITIES)], strict=True):
+                if cell != "-":
+                    zs[q].append(float(cell.rstrip("σ")))
+    print(f"{len(paths)} runs: {n} seeds ({failed} failed)")
+    for line in table(zs, n):
+        print("  " + line)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--scene", default="lane-close")
@@ -115,7 +137,13 @@ def main() -> None:
     ap.add_argument("--first", type=int, default=1, help="first seed")
     ap.add_argument("--no-perturb", action="store_true", help="render the scene's own truth every time")
     ap.add_argument("--out", default="/tmp/hopscope-coverage")
+    ap.add_argument(
+        "--combine", nargs="+", metavar="FILE", help="one table from earlier runs' printed output"
+    )
     args = ap.parse_args()
+    if args.combine:
+        combine(args.combine)
+        return
     root = Path(args.out)
     zs: dict[str, list[float]] = {q: [] for q in QUANTITIES}
     t0 = time.perf_counter()
