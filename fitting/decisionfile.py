@@ -12,6 +12,16 @@ Added to the fit's dict (:func:`fitting.fitfile.fit_to_dict`) by :func:`add_deci
 
 Estimates are ``{"value", "stderr", "stderr_noise", "stderr_calibration", "calibration_share",
 "stderr_bb", "bb_share"}`` (SI: m, m/s, J).
+
+``compare.json`` (schema ``hopscope.compare/1``, :func:`comparison_to_dict`)::
+
+    groups[]      {"name", "setting" (number or null), "n_shots", "labels",
+                   "values": {quantity: [per-shot values]}, "stats": {quantity: group statistics},
+                   "drag_coefficient" (estimate)}
+    differences[] {"quantity", "a", "b", "value" (b − a), "stderr", "test", "p_value", "significant"}
+    alpha, flatter, more_consistent, consistency_p_value, notes
+    tuning        null or {"setting" (estimate or null), "slope", "intercept" (estimates),
+                   "target_lift_coefficient", "engagement_m", "reason"}
 """
 
 from __future__ import annotations
@@ -21,6 +31,7 @@ from typing import Any
 
 from hopscope.shared.parse import finite_or_none
 
+from .compare import Comparison, GroupSummary, TuningAdvice
 from .energy_limit import EnergyLimit, LimitVerdict
 from .fitfile import estimate_to_dict
 from .muzzle import GroupStat, MuzzleState
@@ -89,4 +100,71 @@ def add_decisions(
     return out
 
 
-__all__ = ["add_decisions", "energy_limit_to_dict", "group_stat_to_dict"]
+COMPARE_SCHEMA = "hopscope.compare/1"
+
+
+def comparison_to_dict(
+    groups: list[GroupSummary], comparisons: list[Comparison], tuning: TuningAdvice | None = None
+) -> dict[str, Any]:
+    """The ``compare.json`` document (see the module docstring); ``comparisons`` are pairwise."""
+    alpha = comparisons[0].alpha if comparisons else None
+    return {
+        "schema": COMPARE_SCHEMA,
+        "alpha": alpha,
+        "groups": [
+            {
+                "name": g.name,
+                "setting": finite_or_none(g.setting),
+                "n_shots": g.n_shots,
+                "labels": list(g.labels),
+                "values": {q: [finite_or_none(v) for v in vals] for q, vals in g.values.items()},
+                "stats": {q: group_stat_to_dict(st) for q, st in g.stats.items()},
+                "drag_coefficient": estimate_to_dict(g.drag_coefficient),
+            }
+            for g in groups
+        ],
+        "differences": [
+            {
+                "quantity": d.quantity,
+                "a": d.a,
+                "b": d.b,
+                "value": finite_or_none(d.value),
+                "stderr": finite_or_none(d.stderr),
+                "test": d.test,
+                "p_value": finite_or_none(d.p_value),
+                "significant": d.significant,
+            }
+            for c in comparisons
+            for d in c.differences
+        ],
+        "comparisons": [
+            {
+                "a": c.a,
+                "b": c.b,
+                "flatter": c.flatter,
+                "more_consistent": c.more_consistent,
+                "consistency_p_value": finite_or_none(c.consistency_p_value),
+                "notes": list(c.notes),
+            }
+            for c in comparisons
+        ],
+        "tuning": None
+        if tuning is None
+        else {
+            "setting": estimate_to_dict(tuning.setting),
+            "slope": estimate_to_dict(tuning.slope),
+            "intercept": estimate_to_dict(tuning.intercept),
+            "target_lift_coefficient": finite_or_none(tuning.target_lift_coefficient),
+            "engagement_m": tuning.engagement_m,
+            "reason": tuning.reason,
+        },
+    }
+
+
+__all__ = [
+    "COMPARE_SCHEMA",
+    "add_decisions",
+    "comparison_to_dict",
+    "energy_limit_to_dict",
+    "group_stat_to_dict",
+]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import functools
+import json
 
 import numpy as np
 import pytest
@@ -11,6 +12,7 @@ import scipy.stats
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.compare import compare_groups, flattest_lift_coefficient, summarize_group, tune, welch
+from hopscope.fitting.decisionfile import comparison_to_dict
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.observe import ModelSpec, simulate_shot
 
@@ -101,3 +103,14 @@ def test_tuning_says_when_the_data_cannot_tell():
     assert advice.setting is None and "cannot tell" in advice.reason
     with pytest.raises(ValueError, match="three or more groups"):
         tune(groups[:2])
+
+
+def test_compare_json_layout():
+    a, b = _group("a", BASE_CL, 1), _group("b", 1.25 * BASE_CL, 2)
+    cmp = compare_groups(a, b)
+    doc = json.loads(json.dumps(comparison_to_dict([a, b], [cmp]), allow_nan=False))
+    assert doc["schema"] == "hopscope.compare/1" and [g["name"] for g in doc["groups"]] == ["a", "b"]
+    lift = next(d for d in doc["differences"] if d["quantity"] == "lift_coefficient")
+    assert set(lift) >= {"quantity", "a", "b", "value", "stderr", "p_value", "significant"}
+    assert lift["significant"] is True and doc["tuning"] is None
+    assert len(doc["groups"][0]["values"]["speed_mps"]) == N_SHOTS
