@@ -32,6 +32,9 @@ determine the quantity)::
     parameters    {"names", "values", "free", "covariance" (free × free), "correlation" (free × free),
                    "covariance_calibration" (free × free)}
 
+A shot of a marked-BB track also has ``spin_measured`` (spin from its brightness flicker; layout in
+:func:`fitting.spin.shot_spin_to_json`).
+
 Estimates also carry ``stderr_bb`` and ``bb_share`` (the BB mass/diameter tolerance's part, null when not
 included). Muzzle state (``shots[i].muzzle``, ``group``) and ``energy_limit`` are added by
 :func:`fitting.decisionfile.add_decisions`.
@@ -59,6 +62,7 @@ from .bb import BB
 from .layout import ParamLayout, decay_param_name
 from .observe import ModelSpec
 from .results import ChronoPrior, Estimate, FittedModel, FlightFit
+from .spin import check_spin_measured
 
 SCHEMA = "hopscope.fit/1"
 
@@ -465,6 +469,8 @@ def fit_from_json(text: str, source: str = "<fit>") -> FitFile:
         for k in ("x_m", "y_m", "speed_mps", "elevation_deg"):
             rd.estimate(ini, k, f"{w}.initial", allow_null_value=not conv)
         rd.estimate(s, "lift_coefficient", w, allow_null_value=not conv)
+        if "spin_measured" in s:
+            check_spin_measured(s["spin_measured"], f"{source}: {w}.spin_measured")
         res = rd.get(s, "residuals", w)
         n_t = len(rd.vector(res, "t_s", f"{w}.residuals"))
         for k in ("dx_m", "dy_m"):

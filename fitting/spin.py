@@ -44,7 +44,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -53,7 +53,7 @@ from scipy.optimize import least_squares
 from scipy.special import gammaln
 
 from hopscope.shared.constants import MAD_TO_SIGMA
-from hopscope.shared.parse import is_finite_number
+from hopscope.shared.parse import finite_or_none, is_finite_number
 
 from .laws import LinearLift, SaturatingLift, spin_ratio
 
@@ -1337,6 +1337,11 @@ def measure_shot_spin(
     )
 
 
+def _estimate_json(value: float | None, stderr: float | None) -> dict[str, float | None]:
+    v, e = finite_or_none(value), finite_or_none(stderr)
+    return {"value": v, "stderr": e} if v is not None and e is not None else {"value": None, "stderr": None}
+
+
 def shot_spin_to_json(spin: ShotSpin) -> dict[str, Any]:
     """``shots[i].spin_measured`` of ``fit.json`` (SI): ``rate_radps {value, stderr}``, ``at_t_s``,
     ``candidates_radps``, ``marking``, ``method``, plus ``reason``, ``false_alarm_probability``,
@@ -1348,24 +1353,24 @@ def shot_spin_to_json(spin: ShotSpin) -> dict[str, Any]:
         d = spin.decay
         decay = {
             "per": d.per,
-            "reference": d.reference,
-            "rate0_radps": {"value": d.rate0_radps, "stderr": d.rate0_stderr_radps},
-            "decay_constant": {"value": d.decay_constant, "stderr": d.decay_constant_stderr},
-            "scale": {"value": d.scale, "stderr": d.scale_stderr},
+            "reference": finite_or_none(d.reference),
+            "rate0_radps": _estimate_json(d.rate0_radps, d.rate0_stderr_radps),
+            "decay_constant": _estimate_json(d.decay_constant, d.decay_constant_stderr),
+            "scale": _estimate_json(d.scale, d.scale_stderr),
             "n_windows": d.n_windows,
-            "reduced_chi2": d.reduced_chi2 if math.isfinite(d.reduced_chi2) else None,
+            "reduced_chi2": finite_or_none(d.reduced_chi2),
             "reason": d.reason,
         }
     return {
-        "rate_radps": {"value": spin.rate_radps, "stderr": spin.stderr_radps},
-        "at_t_s": spin.at_t_s,
-        "candidates_radps": list(spin.candidates_radps),
+        "rate_radps": _estimate_json(spin.rate_radps, spin.stderr_radps),
+        "at_t_s": finite_or_none(spin.at_t_s),
+        "candidates_radps": [float(c) for c in spin.candidates_radps],
         "marking": spin.marking,
         "method": spin.method,
         "reason": spin.reason,
-        "false_alarm_probability": o.false_alarm_probability,
-        "flicker_hz": o.flicker_hz,
-        "sample_rate_hz": o.sample_rate_hz,
+        "false_alarm_probability": finite_or_none(o.false_alarm_probability),
+        "flicker_hz": finite_or_none(o.flicker_hz),
+        "sample_rate_hz": finite_or_none(o.sample_rate_hz),
         "decay": decay,
         "decay_reason": spin.decay_reason,
     }
@@ -1443,3 +1448,55 @@ def check_spin_measured(obj: Any, where: str) -> None:
             raise fail(f"decay.{key}", f'expected {{"value", "stderr"}}, got {est!r}')
         number(est["value"], f"decay.{key}.value")
         number(est["stderr"], f"decay.{key}.stderr")
+
+
+def spin_prior_for_fit_shot(shot: Mapping[str, Any], *, radius_m: float) -> SpinPrior | None:
+    """The alias prior for one shot of a fit's document (``fit.json`` ``shots[i]``): the spin its fitted
+    lift coefficient at the first point implies under the published saturating relation
+    C_L = 1.12 S / (0.583 + 2.333 S) (:func:`spin_prior_from_lift` with its defaults), at the fitted speed
+    there. None when the fit gives no positive lift coefficient or speed, or the lift is beyond the law."""
+    try:
+        cl = shot["lift_coefficient"]
+        speed = shot["initial"]["speed_mps"]["value"]
+        cl_value, cl_stderr = cl["value"], cl["stderr"]
+    except (KeyError, TypeError):
+        return None
+    if not (is_finite_number(cl_value) and is_finite_number(speed) and cl_value > 0 and speed > 0):
+        return None
+    stderr = float(cl_stderr) if is_finite_number(cl_stderr) else 0.0
+    try:
+        return spin_prior_from_lift(float(cl_value), stderr, speed_mps=float(speed), radius_m=radius_m)
+    except ValueError:  # C_L beyond the saturating law's reach
+        return None
+
+
+def add_spin_measured(doc: Mapping[str, Any], spins: Mapping[str, ShotSpin]) -> dict[str, Any]:
+    """A copy of a fit's document with ``shots[i].spin_measured`` for the shots in ``spins`` (by label),
+    and one warning for each of them without a rate, saying why (and listing the candidates when aliased).
+
+    Raises
+    ------
+    ValueError
+        A label in ``spins`` is not one of the fit's shots.
+    """
+    shots = [dict(s) for s in doc["shots"]]
+    labels = [s["label"] for s in shots]
+    unknown = sorted(set(spins) - set(labels))
+    if unknown:
+        raise ValueError(f"spins: shots {unknown} are not in the fit (its shots: {labels})")
+    warnings = list(doc.get("warnings", ()))
+    for s in shots:
+        spin = spins.get(s["label"])
+        if spin is None:
+            continue
+        s["spin_measured"] = shot_spin_to_json(spin)
+        if spin.rate_radps is None:
+            listed = (
+                " (candidates " + ", ".join(f"{c:.0f}" for c in spin.candidates_radps) + " rad/s)"
+                if spin.candidates_radps
+                else ""
+            )
+            warnings.append(
+                f"{s['label']}: spin not measured from the marked BB's flicker: {spin.reason}{listed}"
+            )
+    return {**doc, "shots": shots, "warnings": warnings}

@@ -13,6 +13,7 @@ World frame: x downrange, y up, metres (the rig's); times are the tracks' (rolli
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, replace
@@ -27,13 +28,20 @@ from hopscope.calibration.rig import Rig, read_rig, rig_to_json
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
-from hopscope.fitting.fitfile import fit_to_json
+from hopscope.fitting.fitfile import fit_to_dict, fit_to_json
 from hopscope.fitting.predict import predict_path
+from hopscope.fitting.spin import (
+    ShotSpin,
+    SpinOptions,
+    add_spin_measured,
+    measure_shot_spin,
+    spin_prior_for_fit_shot,
+)
 from hopscope.shared.fileio import atomic_path, write_bytes_atomic, write_text_atomic
 from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
-from hopscope.tracker.trackfile import track_to_csv
+from hopscope.tracker.trackfile import read_track, track_to_csv
 
 from . import __version__
 from .console import progress as progress_bar
@@ -350,8 +358,31 @@ def fit_track_files(
     pre = (*f.notes, *tracks.warnings)
     if pre:
         result = replace(result, warnings=tuple(pre) + result.warnings)
-    write_text_atomic(fit_path, fit_to_json(result, inputs=tracks.records))
+    write_text_atomic(fit_path, _fit_text_with_spin(result, tracks.records))
     return FittedTracks(Path(fit_path), result, tuple(Path(p) for p in track_paths))
+
+
+def _fit_text_with_spin(result: FlightFit, records: Sequence[dict]) -> str:
+    """``fit.json`` text, with ``shots[i].spin_measured`` for the shots of marked-BB tracks (polarity
+    ``marked``): the spin from their brightness flicker (:mod:`hopscope.fitting.spin`)."""
+    doc = fit_to_dict(result, inputs=records)
+    radius_m = 0.5 * float(doc["bb"]["diameter_m"])
+    shots = {s["label"]: s for s in doc["shots"]}
+    spins: dict[str, ShotSpin] = {}
+    for rec in records:
+        track = read_track(rec["path"])
+        if track.meta.polarity != "marked":
+            continue
+        opts = SpinOptions(exposure_s=track.meta.exposure_s or 0.0)
+        for label, sid in zip(rec["shots"], track.shot_ids, strict=True):
+            pts, shot = track.select_shot(sid), shots[label]
+            prior = spin_prior_for_fit_shot(shot, radius_m=radius_m)
+            spins[label] = measure_shot_spin(
+                pts.t_s, pts.brightness, first_t_s=pts.t_s[0], options=opts, prior=prior
+            )
+    if not spins:
+        return fit_to_json(result, inputs=records)
+    return json.dumps(add_spin_measured(doc, spins), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
 
 
 def fitted_paths_px(fit: FlightFit, rig: Rig, *, points: int = 200) -> dict[str, np.ndarray]:

@@ -16,6 +16,7 @@ scene's folder. Exit codes as for ``hopscope run``.
 from __future__ import annotations
 
 import argparse
+import json
 import math
 import shutil
 import time
@@ -38,6 +39,7 @@ from hopscope.shared.units import (
     m_to_mm,
     pa_to_hpa,
     rad_to_deg,
+    radps_to_rpm,
     s_to_ms,
 )
 from hopscope.summaries import Comparison, calibration_rows, comparison_rows, show_run
@@ -51,7 +53,7 @@ DESCRIPTION = (
 )
 
 #: Scenes the demo offers (the built-in lanes with a flight clip the default laws describe).
-DEMO_SCENES = ("lane-close", "lane-long")
+DEMO_SCENES = ("lane-close", "lane-long", "lane-spin")
 DEFAULT_SCENE = "lane-close"
 DEFAULT_OUT = "hopscope-demo"
 
@@ -196,6 +198,33 @@ def render_into(spec, folder: Path, *, seed: int):
         bars.close()
 
 
+def measured_spin_rows(fit_path: Path, truth) -> list[tuple[str, str]]:
+    """Rows for the shots with a measured spin (marked BB) against the scene's true spin at the same time,
+    in rad/s and rpm."""
+    frames = [f for f in truth["flight"]["frames"] if f["visible"]]
+    t_true = np.array([f["t_mid_s"] for f in frames])
+    w_true = np.array([f["spin_radps"] for f in frames])
+    rows = []
+    for shot in json.loads(Path(fit_path).read_text(encoding="utf-8"))["shots"]:
+        sm = shot.get("spin_measured")
+        if sm is None:
+            continue
+        value, err = sm["rate_radps"]["value"], sm["rate_radps"]["stderr"]
+        if value is None:
+            rows.append(("spin (measured)", f"none: {sm['reason']}"))
+            continue
+        true = float(np.interp(sm["at_t_s"], t_true, w_true))
+        rows.append(
+            (
+                "spin (measured)",
+                f"{value:.0f} ± {err:.0f} rad/s = {radps_to_rpm(value):.0f} ± {radps_to_rpm(err):.0f} rpm "
+                f"at t = {s_to_ms(sm['at_t_s']):.2f} ms  true {true:.0f} rad/s, "
+                f"{fraction_to_percent(value / true - 1.0):+.2f} %, {(value - true) / err:+.2f} σ",
+            )
+        )
+    return rows
+
+
 def run(args: argparse.Namespace) -> int:
     wall0, cpu0 = time.perf_counter(), time.process_time()
     out = Path(args.out)
@@ -227,6 +256,7 @@ def run(args: argparse.Namespace) -> int:
     t_run = time.perf_counter() - wall0 - t_render - t_cal
     show_run(outcome, f"hopscope demo: {args.scene}")
     rows = comparison_rows(compare_with_truth(outcome.fitted.result, rendered.truth))
+    rows += measured_spin_rows(outcome.fitted.fit_path, rendered.truth)
     rows.append(
         (
             "time",

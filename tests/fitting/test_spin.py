@@ -19,6 +19,7 @@ from hopscope.fitting.spin import (
     SpinEstimate,
     SpinOptions,
     SpinPrior,
+    add_spin_measured,
     alias_frequencies,
     check_spin_measured,
     exposure_attenuation,
@@ -31,6 +32,7 @@ from hopscope.fitting.spin import (
     measured_spin_ratio,
     resolve_with_second_clip,
     shot_spin_to_json,
+    spin_prior_for_fit_shot,
     spin_prior_from_lift,
     spin_vs_time,
 )
@@ -611,3 +613,32 @@ def test_spin_record_round_trips_through_json_and_bad_records_are_named():
         check_spin_measured(
             {k: v for k, v in record.items() if k != "at_t_s"}, "fit.json: shots[0].spin_measured"
         )
+
+
+def test_fit_document_gains_spin_records_and_a_warning_for_a_shot_without_one():
+    t, b = flicker_series(np.random.default_rng(25), n=64)
+    doc = {"warnings": ["earlier"], "shots": [{"label": "a#0"}, {"label": "b#0"}]}
+    spins = {
+        "a#0": measure_shot_spin(t, b),
+        "b#0": measure_shot_spin(t, b, options=SpinOptions(marking="none")),
+    }
+    out = add_spin_measured(doc, spins)
+    assert "spin_measured" not in doc["shots"][0]  # a copy
+    for s in out["shots"]:
+        check_spin_measured(s["spin_measured"], s["label"])
+    assert out["shots"][0]["spin_measured"]["rate_radps"]["value"] == spins["a#0"].rate_radps
+    assert out["warnings"][0] == "earlier" and len(out["warnings"]) == 2
+    assert out["warnings"][1].startswith("b#0: spin not measured") and "unmarked" in out["warnings"][1]
+    with pytest.raises(ValueError, match=r"spins: shots \['c#0'\] are not in the fit"):
+        add_spin_measured(doc, {"c#0": spins["a#0"]})
+
+
+def test_alias_prior_from_a_fit_shot_uses_the_published_saturating_law():
+    shot = {"lift_coefficient": {"value": 0.2, "stderr": 0.01}, "initial": {"speed_mps": {"value": 90.0}}}
+    prior = spin_prior_for_fit_shot(shot, radius_m=R_BB_M)
+    assert prior is not None
+    assert prior.rate_radps == pytest.approx(float(SaturatingLift().spin_ratio_for(0.2)) * 90.0 / R_BB_M)
+    no_lift = {"lift_coefficient": {"value": None, "stderr": None}, "initial": {"speed_mps": {"value": 90.0}}}
+    assert spin_prior_for_fit_shot(no_lift, radius_m=R_BB_M) is None
+    beyond = {"lift_coefficient": {"value": 0.9, "stderr": 0.01}, "initial": {"speed_mps": {"value": 90.0}}}
+    assert spin_prior_for_fit_shot(beyond, radius_m=R_BB_M) is None
