@@ -19,6 +19,7 @@ Zhang, Z. (2000). IEEE TPAMI 22:1330 (the lens calibration re-run on each resamp
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -28,7 +29,7 @@ import numpy as np
 
 from .grid import GridSpec
 from .lens import LensCalibration, ViewPoints, distortion_model, recalibrate
-from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose
+from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose, solve_with_offsets
 from .rig import CameraState, Rig
 
 #: Ensemble members by default: enough for a spread to ±15 % (1/sqrt(2K)) at a second or two of work.
@@ -79,8 +80,11 @@ def build_ensemble(
     """Perturbed camera states that carry the calibration's uncertainty.
 
     Each member: bootstrap resample of the lens views (with replacement) → cv2.calibrateCamera from the
-    nominal solution; plane corners + N(0, σ²) (σ from :func:`plane_corner_sigma_px`); each placement
-    after the first shifted by N(0, offset_sigma_m²); joint PnP again; the flight plane's distance from
+    nominal solution; plane corners + N(0, σ²) (σ from :func:`plane_corner_sigma_px`); the taped offsets
+    redrawn by N(0, offset_sigma_m²) as the prior of a joint solve of pose and offsets
+    (:func:`calibration.plane.solve_with_offsets`: the image fixes where each board stood far better than
+    the tape, so the tape's error reaches the member only as far as the image lets it); the flight plane's
+    distance from
     the board drawn independently at the left and right edges of the field, z ± N(0, plane_z_sigma_m²)
     each, which gives the member both an offset and a slope (a flight line not quite parallel to the
     board: its changing depth changes the apparent scale along the path, which a single camera cannot
@@ -90,7 +94,12 @@ def build_ensemble(
     used = {s for s in lens.views_used}
     views = [v for v in lens_views if v.source in used] or list(lens_views)
     n = len(views)
+    placements = [
+        dataclasses.replace(p, offset_m=o)
+        for p, o in zip(placements, plane.offsets_m or [q.offset_m for q in placements], strict=True)
+    ]  # the offsets as solved: the ensemble varies them about the nominal solution
     world0 = placement_world_points(spec, placements)
+    bounds = np.cumsum([0] + [len(p.image_points) for p in placements])
     image0 = np.concatenate([p.image_points for p in placements])
     sigma = plane_corner_sigma_px(plane, len(image0), lens)
     start = (cv2.Rodrigues(plane.rotation)[0], plane.translation)
@@ -101,15 +110,22 @@ def build_ensemble(
         while len(set(idx.tolist())) < min(3, n):
             idx = gen.integers(0, n, n)
         k, d = recalibrate([views[i] for i in idx], lens)
-        offsets = np.array([p.offset_m for p in placements], float)
-        offsets[1:] += gen.normal(0.0, offset_sigma_m, len(offsets) - 1)
-        shifts = np.repeat(
-            offsets - [p.offset_m for p in placements], [len(p.image_points) for p in placements]
-        )
-        world = world0.copy()
-        world[:, 0] += shifts
+        taped = np.array([p.offset_m for p in placements], float)
+        drawn = taped.copy()
+        drawn[1:] += gen.normal(0.0, offset_sigma_m, len(taped) - 1)  # the tape's own error, as a prior
         image = image0 + gen.normal(0.0, sigma, image0.shape)
-        rot, t = solve_pose(world, image, k, d, start=start)
+        noisy = [
+            Placement(p.source, image[a:b], p.offset_m, p.grid)
+            for p, a, b in zip(placements, bounds[:-1], bounds[1:], strict=True)
+        ]
+        if len(placements) > 1 and offset_sigma_m > 0:
+            rot, t, _, _ = solve_with_offsets(
+                noisy, spec, k, d, drawn, offset_sigma_m, sigma, (plane.rotation, plane.translation)
+            )
+        else:
+            world = world0.copy()
+            world[:, 0] += np.repeat(drawn - taped, [len(p.image_points) for p in placements])
+            rot, t = solve_pose(world, image, k, d, start=start)
         z0, slope = plane_z_m, 0.0
         if plane_z_sigma_m > 0:
             z_left, z_right = plane_z_m + gen.normal(0.0, plane_z_sigma_m, 2)
@@ -168,7 +184,14 @@ def make_rig(
         raise ValueError("parallax: expected a finite distance and a non-negative uncertainty")
     if ensemble_size < 0:
         raise ValueError(f"--ensemble: expected a count >= 0, got {ensemble_size}")
-    plane = solve_plane(placements, spec, lens.camera_matrix, lens.dist_coeffs, lens_rms_px=lens.rms_px)
+    plane = solve_plane(
+        placements,
+        spec,
+        lens.camera_matrix,
+        lens.dist_coeffs,
+        lens_rms_px=lens.rms_px,
+        offset_sigma_m=offset_sigma_m,
+    )
     centre_z = float((-plane.rotation.T @ plane.translation)[2])
     if plane_z_m >= centre_z:
         raise ValueError(
@@ -195,8 +218,20 @@ def make_rig(
         },
         "plane": {
             "placements": [
-                {"image": p.source, "offset_m": p.offset_m, "rms_px": e}
-                for p, e in zip(placements, plane.per_placement_rms_px, strict=True)
+                {
+                    "image": p.source,
+                    "offset_m": p.offset_m,
+                    "rms_px": e,
+                    "offset_solved_m": o,
+                    "offset_stderr_m": oe,
+                }
+                for p, e, o, oe in zip(
+                    placements,
+                    plane.per_placement_rms_px,
+                    plane.offsets_m,
+                    plane.offset_stderr_m,
+                    strict=True,
+                )
             ],
             "rms_px": plane.rms_px,
             "corner_sigma_px": plane_corner_sigma_px(

@@ -17,6 +17,7 @@ Collins, T. & Bartoli, A. (2014). Infinitesimal plane-based pose estimation. IJC
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -38,6 +39,11 @@ BAD_PLACEMENT_FLOOR_PX = 0.5
 SPACING_TOLERANCE = 0.03
 #: Seen/taped ratios in this range mean offsets typed in millimetres.
 MM_FOR_M_RATIO = (300.0, 3000.0)
+
+#: A solved offset further than this many tape σ from the taped one is reported.
+OFFSET_WARN_SIGMA = 4.0
+#: Floor of the corner noise that weighs the reprojection residuals against the tape, px.
+MIN_PIXEL_SIGMA_PX = 0.02
 
 _REFINE_CRITERIA = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 200, 1e-14)
 
@@ -82,6 +88,9 @@ class PlanePose:
     per_placement_rms_px : each placement's RMS reprojection error, px.
     coverage_m : (x_min, x_max, y_min, y_max) of the boards' corners on the plane, m.
     warnings : warnings for the user.
+    offsets_m : each placement's downrange offset as solved, m (the taped ones when the tape is taken as
+        exact; else the image's evidence combined with the tape, :func:`solve_with_offsets`).
+    offset_stderr_m : standard error of each solved offset, m (0 for the first placement and for taped ones).
     """
 
     rotation: np.ndarray
@@ -90,6 +99,8 @@ class PlanePose:
     per_placement_rms_px: tuple[float, ...]
     coverage_m: tuple[float, float, float, float]
     warnings: tuple[str, ...] = ()
+    offsets_m: tuple[float, ...] = ()
+    offset_stderr_m: tuple[float, ...] = ()
 
 
 def placement_world_points(spec: GridSpec, placements: Sequence[Placement]) -> np.ndarray:
@@ -139,6 +150,7 @@ def solve_plane(
     dist_coeffs: np.ndarray,
     *,
     lens_rms_px: float = 0.0,
+    offset_sigma_m: float = 0.0,
 ) -> PlanePose:
     """One camera pose from all board placements together.
 
@@ -148,6 +160,9 @@ def solve_plane(
     spec : the grid.
     camera_matrix, dist_coeffs : the calibrated lens.
     lens_rms_px : the lens calibration's RMS, px, to judge each placement's residual.
+    offset_sigma_m : standard error of the taped offsets, m: with more than one placement and a positive
+        value, the offsets after the first are solved with the pose, the tape as their prior
+        (:func:`solve_with_offsets`); 0 takes the tape as exact.
 
     Returns
     -------
@@ -161,9 +176,24 @@ def solve_plane(
     if not placements:
         raise ValueError("--plane: need at least one plane image")
     check_spacing(placements, spec, camera_matrix, dist_coeffs)
-    world = placement_world_points(spec, placements)
     image = np.concatenate([p.image_points for p in placements])
-    rot, t = solve_pose(world, image, camera_matrix, dist_coeffs)
+    rot, t = solve_pose(placement_world_points(spec, placements), image, camera_matrix, dist_coeffs)
+    offsets = np.array([p.offset_m for p in placements], float)
+    off_err = np.zeros(len(placements))
+    if len(placements) > 1 and offset_sigma_m > 0:
+        pixel_sigma = max(lens_rms_px / np.sqrt(2.0), MIN_PIXEL_SIGMA_PX)
+        rot, t, offsets, off_err = solve_with_offsets(
+            placements, spec, camera_matrix, dist_coeffs, offsets, offset_sigma_m, pixel_sigma, (rot, t)
+        )
+    warns = []
+    for p, o in zip(placements, offsets, strict=True):
+        if offset_sigma_m > 0 and abs(o - p.offset_m) > OFFSET_WARN_SIGMA * offset_sigma_m:
+            warns.append(
+                f"{p.source}: the image puts this placement at {o:.4f} m downrange, the tape at {p.offset_m:g} m "
+                f"({1e3 * (o - p.offset_m):+.1f} mm): check the taped offset; the image's value is used"
+            )
+    placements = [dataclasses.replace(p, offset_m=float(o)) for p, o in zip(placements, offsets, strict=True)]
+    world = placement_world_points(spec, placements)
     centre = -rot.T @ t
     if centre[2] <= 0:
         raise ValueError(
@@ -172,7 +202,7 @@ def solve_plane(
         )
     proj = _project(world, rot, t, camera_matrix, dist_coeffs)
     err = np.linalg.norm(proj - image, axis=1)
-    per, warns, start = [], [], 0
+    per, start = [], 0
     for p in placements:
         n = len(p.image_points)
         per.append(float(np.sqrt(np.mean(err[start : start + n] ** 2))))
@@ -187,7 +217,76 @@ def solve_plane(
     x0 = min(p.offset_m for p in placements)
     x1 = max(p.offset_m + (p.board(spec).cols - 1) * spec.square_m for p in placements)
     cover = (x0, x1, -max(p.board(spec).rows - 1 for p in placements) * spec.square_m, 0.0)
-    return PlanePose(rot, t, float(np.sqrt(np.mean(err**2))), tuple(per), cover, tuple(warns))
+    return PlanePose(
+        rot, t, float(np.sqrt(np.mean(err**2))), tuple(per), cover, tuple(warns),
+        tuple(float(o) for o in offsets), tuple(float(e) for e in off_err),
+    )  # fmt: skip
+
+
+def solve_with_offsets(
+    placements: Sequence[Placement],
+    spec: GridSpec,
+    camera_matrix: np.ndarray,
+    dist_coeffs: np.ndarray,
+    prior_offsets_m: np.ndarray,
+    offset_sigma_m: float,
+    pixel_sigma_px: float,
+    start: tuple[np.ndarray, np.ndarray],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Camera pose and the placements' offsets together: reprojection residuals / pixel σ plus
+    (offset − tape) / tape σ for each placement after the first (a Gaussian prior; Levenberg–Marquardt).
+
+    The image fixes where each board stood far better than a tape (a 0.05 px corner noise over 54 corners
+    puts a board to a few hundredths of a millimetre at 2 m), so a taped offset's error must not be carried
+    into the error bars whole.
+
+    Returns
+    -------
+    (R, t, offsets m, their standard errors m) — the first offset stays the origin's (error 0).
+
+    References
+    ----------
+    Bevington & Robinson (2003), sec. 8.1 (parameter errors from the curvature matrix); a prior as an
+    extra residual: Gelman et al. (2013), Bayesian Data Analysis, 3rd ed., sec. 14.8 (from memory).
+    """
+    from scipy.optimize import least_squares
+
+    k = np.asarray(camera_matrix, float)
+    d = np.asarray(dist_coeffs, float)
+    boards = [p.board(spec).board_points() for p in placements]
+    image = np.concatenate([p.image_points for p in placements])
+    prior = np.asarray(prior_offsets_m, float)
+    n = len(placements)
+
+    def world(off: np.ndarray) -> np.ndarray:
+        pts = [b.copy() for b in boards]
+        for i in range(n):
+            pts[i][:, 0] += off[i]
+        return np.concatenate(pts)
+
+    def resid(x: np.ndarray) -> np.ndarray:
+        off = np.concatenate([[prior[0]], x[6:]])
+        proj = _project_rvec(world(off), x[:3], x[3:6], k, d)
+        return np.concatenate(
+            [((proj - image) / pixel_sigma_px).ravel(), (x[6:] - prior[1:]) / offset_sigma_m]
+        )
+
+    rvec0 = cv2.Rodrigues(np.asarray(start[0], float))[0].ravel()
+    x0 = np.concatenate([rvec0, np.asarray(start[1], float).ravel(), prior[1:]])
+    res = least_squares(resid, x0, method="lm", x_scale="jac", xtol=1e-12, ftol=1e-12)
+    try:
+        cov = np.linalg.inv(res.jac.T @ res.jac)
+        err = np.sqrt(np.clip(np.diag(cov)[6:], 0, None))
+    except np.linalg.LinAlgError:
+        err = np.full(n - 1, offset_sigma_m)
+    rot = cv2.Rodrigues(res.x[:3])[0]
+    offsets = np.concatenate([[prior[0]], res.x[6:]])
+    return rot, res.x[3:6].copy(), offsets, np.concatenate([[0.0], err])
+
+
+def _project_rvec(world, rvec, tvec, k, d) -> np.ndarray:
+    img, _ = cv2.projectPoints(np.asarray(world, float).reshape(-1, 1, 3), rvec, tvec, k, d)
+    return img.reshape(-1, 2)
 
 
 def check_spacing(

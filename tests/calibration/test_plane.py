@@ -210,3 +210,25 @@ def test_board_standing_turned_90_degrees_gives_the_same_world_frame():
     pose = solve_plane([place], BOARD, CLOSE_K, CLOSE_DIST)
     np.testing.assert_allclose(pose.rotation, truth.rotation, atol=2e-3)
     assert pose.coverage_m[1] == pytest.approx((upright.cols - 1) * BOARD.square_m)
+
+
+#: With the tape 1 mm off, the image puts the board back to within this of where it stood, m (0.05 px
+#: corner noise over 66 corners of a board 3.5 m away, f = 1000 px).
+SOLVED_OFFSET_TOL_M = 0.3e-3
+
+
+def test_offsets_are_solved_with_the_tape_as_prior():
+    rng = np.random.default_rng(12)
+    truth = _truth(CLOSE_K, CLOSE_DIST, (1.5, -0.2, 3.5), (1.5, -0.25, 0.0))
+    placements = _placements(truth, BOARD, (0.0, 1.0, 2.0), rng)
+    taped = [placements[0], *(Placement(p.source, p.image_points, p.offset_m + 1e-3) for p in placements[1:])]
+    exact = solve_plane(taped, BOARD, CLOSE_K, CLOSE_DIST, lens_rms_px=0.07)
+    solved = solve_plane(taped, BOARD, CLOSE_K, CLOSE_DIST, lens_rms_px=0.07, offset_sigma_m=1e-3)
+    assert exact.offsets_m == (0.0, 1.001, 2.001)
+    np.testing.assert_allclose(solved.offsets_m, (0.0, 1.0, 2.0), atol=SOLVED_OFFSET_TOL_M)
+    assert 0 < max(solved.offset_stderr_m) < SOLVED_OFFSET_TOL_M and solved.offset_stderr_m[0] == 0
+    assert solved.rms_px < exact.rms_px
+    # a tape 2 cm off is reported, naming the placement
+    wrong = [*placements[:2], Placement(placements[2].source, placements[2].image_points, 2.02)]
+    bad = solve_plane(wrong, BOARD, CLOSE_K, CLOSE_DIST, lens_rms_px=0.07, offset_sigma_m=1e-3)
+    assert any("plane2.png" in w and "the tape at 2.02 m" in w for w in bad.warnings)
