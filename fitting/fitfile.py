@@ -1,8 +1,8 @@
 """The fit file (``fit.json``, schema ``hopscope.fit/1``): a fit's inputs, estimates and diagnostics.
 
 Layout (JSON object, SI units; every estimate is an object ``{"value", "stderr", "stderr_noise",
-"stderr_calibration", "calibration_share"}`` whose ``value``/``stderr`` are null where the data cannot
-determine the quantity)::
+"stderr_calibration", "calibration_share", "stderr_bb", "bb_share"}`` whose ``value``/``stderr`` are null
+where the data cannot determine the quantity; the ``bb`` parts are the BB tolerance's, null without it)::
 
     schema        "hopscope.fit/1"
     converged     true/false;  reason: why not ("" when converged)
@@ -22,8 +22,7 @@ determine the quantity)::
                                "elevation_deg" (degrees, the one non-SI field)},
                    "lift_coefficient" (C_L at the first point), "drag_coefficient" (C_D there),
                    "spin_radps_model" (an assumption from the saturating law's published C_L(S); null
-                   under the linear law), "residual_rms_m",
-                   "residual_rms_sigma", "chi2",
+                   under the linear law), "residual_rms_m", "residual_rms_sigma", "chi2",
                    "residuals": {"t_s": [...], "dx_m": [...], "dy_m": [...], "outlier": [...]}}
     statistics    {"n_points", "n_residuals", "n_parameters", "dof", "chi2", "reduced_chi2",
                    "stderr_scale", "aic", "bic", "residual_rms_m", "residual_rms_sigma", "n_outliers",
@@ -35,10 +34,7 @@ determine the quantity)::
 A shot of a marked-BB track also has ``spin_measured`` (spin from its brightness flicker; layout in
 :func:`fitting.spin.shot_spin_to_json`).
 
-Estimates also carry ``stderr_bb`` and ``bb_share`` (the BB mass/diameter tolerance's part, null when not
-included). Muzzle state (``shots[i].muzzle``, ``group``) and ``energy_limit`` are added by
-:func:`fitting.decisionfile.add_decisions`.
-
+Muzzle state (``shots[i].muzzle``, ``group``) and ``energy_limit``: :func:`fitting.decisionfile.add_decisions`.
 Residuals are observed − model. ``speed_mps`` is along the direction of flight; ``elevation_deg`` above
 horizontal. Stage I/O serialises to text; the app writes the file atomically.
 """
@@ -54,7 +50,7 @@ from typing import Any
 
 import numpy as np
 
-from hopscope.shared.parse import finite_or_none, is_finite_number
+from hopscope.shared.parse import finite_or_none, is_finite_number, json_finite
 from hopscope.shared.units import rad_to_deg
 
 from .air import Air
@@ -265,10 +261,7 @@ class _Reader:
 
     def real(self, obj, key, where) -> float:
         """A required finite number."""
-        v = self.number(obj, key, where)
-        if v is None:  # number() without allow_null never returns None; keeps the type checker informed
-            raise self.fail(f"{where}.{key}", "expected a finite number, got null")
-        return v
+        return json_finite(self.get(obj, key, where), f"{self.source}: key {where}.{key}")
 
     def string(self, obj, key, where) -> str:
         v = self.get(obj, key, where)
@@ -285,39 +278,34 @@ class _Reader:
         stderr = self.number(e, "stderr", path, allow_null=True)
         if stderr is not None and stderr < 0:
             raise self.fail(f"{path}.stderr", f"expected >= 0, got {stderr!r}")
-        noise = self.number(e, "stderr_noise", path, allow_null=True) if "stderr_noise" in e else None
-        cal = (
-            self.number(e, "stderr_calibration", path, allow_null=True) if "stderr_calibration" in e else None
-        )
-        bb = self.number(e, "stderr_bb", path, allow_null=True) if "stderr_bb" in e else None
-        return Estimate(value, stderr, noise, cal, bb)
+        parts = [
+            self.number(e, k, path, allow_null=True) if k in e else None
+            for k in ("stderr_noise", "stderr_calibration", "stderr_bb")
+        ]
+        return Estimate(value, stderr, *parts)
 
     def vector(self, obj, key, where, n: int | None = None) -> np.ndarray:
         v = self.get(obj, key, where)
         path = f"{where}.{key}"
         if not isinstance(v, list) or (n is not None and len(v) != n):
             raise self.fail(path, f"expected a list of {n if n is not None else 'some'} numbers")
-        out = []
         for i, x in enumerate(v):
             if not is_finite_number(x):
                 raise self.fail(f"{path}[{i}]", f"expected a finite number, got {x!r}")
-            out.append(float(x))
-        return np.array(out)
+        return np.array(v, dtype=float)
 
     def matrix(self, obj, key, where, n: int) -> np.ndarray:
         v = self.get(obj, key, where)
         path = f"{where}.{key}"
         if not isinstance(v, list) or len(v) != n:
             raise self.fail(path, f"expected a {n}×{n} matrix")
-        rows = []
         for i, row in enumerate(v):
             if not isinstance(row, list) or len(row) != n:
                 raise self.fail(f"{path}[{i}]", f"expected a row of {n} numbers")
             for j, x in enumerate(row):
                 if not is_finite_number(x):
                     raise self.fail(f"{path}[{i}][{j}]", f"expected a finite number, got {x!r}")
-            rows.append([float(x) for x in row])
-        return np.array(rows).reshape(n, n)
+        return np.array(v, dtype=float).reshape(n, n)
 
 
 @dataclass(frozen=True, eq=False)

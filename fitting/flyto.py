@@ -208,4 +208,12 @@ def fly_back(
     return out
 
 
-__all__ = ["DEFAULT_SAMPLE_S", "MAX_FLIGHT_S", "FlownPath", "fly_back", "fly_shots_to", "fly_to", "time_to_range"]
+__all__ = [
+    "DEFAULT_SAMPLE_S",
+    "MAX_FLIGHT_S",
+    "FlownPath",
+    "fly_back",
+    "fly_shots_to",
+    "fly_to",
+    "time_to_range",
+]
