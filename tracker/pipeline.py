@@ -16,9 +16,11 @@ rolling-shutter offset of the point's row, (v / rows) · readout, plus half the 
 from __future__ import annotations
 
 import math
+import queue
+import threading
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -52,6 +54,13 @@ from .video import (
 
 #: Margin around the union of a marked BB's two half windows, px.
 MARKED_PAD_PX = 3
+
+#: A bright and a dark blob side by side are fitted as a marked BB only when the BB's image radius is at
+#: least this, px (a smaller ball cannot show its two halves).
+MARKED_MIN_RADIUS_PX = 2.0
+
+#: Decoded frames the decoding thread may run ahead of detection.
+PREFETCH_DEPTH = 8
 
 #: Polarity options and their detection signs.
 POLARITIES = {"auto": 0, "bright": 1, "dark": -1}
@@ -193,6 +202,69 @@ class TrackResult:
         return self.track is not None
 
 
+_T = TypeVar("_T")
+
+
+class _Failure:
+    def __init__(self, exc: BaseException) -> None:
+        self.exc = exc
+
+
+_END = object()
+
+
+def prefetched(items: Iterator[_T], depth: int = PREFETCH_DEPTH) -> Iterator[_T]:
+    """The items of ``items``, produced by a worker thread up to ``depth`` ahead of the consumer.
+
+    Memory holds at most ``depth`` items in flight. An exception in the worker is raised here, at the point
+    of the stream where it happened; when the consumer stops early the worker stops and closes ``items``.
+    """
+    q: queue.Queue[object] = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def put(x: object) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(x, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def work() -> None:
+        try:
+            for x in items:
+                if not put(x):
+                    break
+            else:
+                put(_END)
+        except BaseException as exc:  # handed to the consumer
+            put(_Failure(exc))
+        finally:
+            close = getattr(items, "close", None)
+            if close is not None:
+                close()
+
+    worker = threading.Thread(target=work, name="hopscope-decode", daemon=True)
+    worker.start()
+    try:
+        while True:
+            x = q.get()
+            if x is _END:
+                return
+            if isinstance(x, _Failure):
+                raise x.exc
+            yield x  # type: ignore[misc]
+    finally:
+        stop.set()
+        while True:
+            try:
+                q.get_nowait()
+            except queue.Empty:
+                break
+        worker.join(timeout=5.0)
+
+
 def check_rig_size(rig: Rig, info: VideoInfo, rig_name: str = "rig") -> None:
     """Raise a one-line ValueError when the rig was made for another image size than the video's."""
     if tuple(rig.image_size) != (info.width, info.height):
@@ -236,7 +308,8 @@ def track_video(
     check_rig_size(rig, info, rig_name)
     scale = opt.scale or default_scale(info.width, info.height)
     want = POLARITIES[opt.polarity]
-    frames: Iterable[VideoFrame] = iter_frames(video, fps_override=opt.fps_override)
+    # decoding runs in a thread (FFmpeg releases the interpreter lock) while this one detects
+    frames: Iterable[VideoFrame] = prefetched(iter_frames(video, fps_override=opt.fps_override))
     if progress is not None:
         frames = progress(frames, info.n_frames)
     times: list[float] = []
@@ -254,21 +327,25 @@ def track_video(
             still = np.array(wf.frame.luma, copy=True)
         cands = find_candidates(wf, threshold_sigma=opt.threshold_sigma, polarity=want)
         n_cand += len(cands)
+        paired: set[int] = set()
         if not want:  # a marked BB: a bright and a dark half side by side, fitted as one ball
             for box, edge in _marked_pairs(cands, info):
                 r0, r1, c0, c1 = box
                 mpp = float(rig.metres_per_pixel(np.array([[0.5 * (c0 + c1), 0.5 * (r0 + r1)]]))[0])
+                radius = 0.5 * opt.bb_diameter_m / mpp if math.isfinite(mpp) and mpp > 0 else 0.0
+                if radius < MARKED_MIN_RADIUS_PX:
+                    continue
                 d = localise_marked(
                     wf.frame.luma[r0:r1, c0:c1],
                     wf.background_roi(r0, r1, c0, c1),
                     (r0, c0),
                     frame=wf.frame.index,
-                    radius_px=0.5 * opt.bb_diameter_m / mpp if math.isfinite(mpp) and mpp > 0 else None,
+                    radius_px=radius,
                     noise_floor=QUANTISATION_NOISE_DN,
                 )
                 if d.ok:
                     dets.append((d, 0, wf.frame.t_s, edge))
-            paired = {id(c) for c in _paired(cands)}
+                paired.update(id(c) for c in cands if _inside_box(c, box))
             cands = [c for c in cands if id(c) not in paired]
         for c in cands:
             r0, r1, c0, c1 = c.box
@@ -378,13 +455,9 @@ def _overlap(a: Candidate, b: Candidate) -> bool:
     return ar0 < br1 and br0 < ar1 and ac0 < bc1 and bc0 < ac1
 
 
-def _paired(cands: list[Candidate]) -> list[Candidate]:
-    """Candidates of one frame whose window overlaps one of the other polarity's."""
-    out = []
-    for c in cands:
-        if any(o.sign == -c.sign and _overlap(c, o) for o in cands):
-            out.append(c)
-    return out
+def _inside_box(c: Candidate, box: tuple[int, int, int, int]) -> bool:
+    r0, r1, c0, c1 = box
+    return r0 <= c.v_px < r1 and c0 <= c.u_px < c1
 
 
 def _marked_pairs(cands: list[Candidate], info: VideoInfo) -> list[tuple[tuple[int, int, int, int], bool]]:
