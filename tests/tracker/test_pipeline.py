@@ -184,3 +184,36 @@ def test_start_speed_is_the_derivative_at_the_first_point():
     assert start_speed(t[:2], x[:2], y[:2]) == pytest.approx(
         np.hypot(np.diff(x[:2]), np.diff(y[:2]))[0] * 240.0
     )
+
+
+def test_prefetched_keeps_order_raises_in_place_and_stops_early():
+    from hopscope.tracker.pipeline import prefetched
+
+    assert list(prefetched(iter(range(50)), depth=3)) == list(range(50))
+
+    def broken():
+        yield 1
+        yield 2
+        raise ValueError("clip.mp4: video is corrupt")
+
+    got = []
+    with pytest.raises(ValueError, match="clip.mp4: video is corrupt"):
+        for x in prefetched(broken()):
+            got.append(x)
+    assert got == [1, 2]
+
+    closed = []
+
+    def endless():
+        try:
+            k = 0
+            while True:
+                yield k
+                k += 1
+        finally:
+            closed.append(True)
+
+    stream = prefetched(endless(), depth=2)
+    assert [next(stream) for _ in range(5)] == [0, 1, 2, 3, 4]
+    stream.close()
+    assert closed == [True]
