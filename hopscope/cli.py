@@ -23,8 +23,13 @@ def _on_interrupt(handler) -> None:
         signal.signal(signal.SIGINT, handler)
 
 
-# First of all: the heavy imports below and in the commands take about a second.
-_on_interrupt(_interrupted_while_starting)
+# First of all: the heavy imports below and in the commands take about a second. Only when this is the
+# program (the ``hopscope`` script or ``python -m hopscope.cli``), not when a test or a script imports it.
+_AS_PROGRAM = __name__ == "__main__" or os.path.basename(sys.argv[0] if sys.argv else "").startswith(
+    "hopscope"
+)
+if _AS_PROGRAM:
+    _on_interrupt(_interrupted_while_starting)
 
 # The numerical work is many small matrices: BLAS threads only oversubscribe the cores (a joint fit's SVD
 # took 50x longer on a loaded 2-core machine). Set before numpy is first imported; the user may override.
@@ -77,13 +82,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+_INTERRUPTS: list[int] = []  # SIGINTs seen while main() runs
+
+
+def _raise_interrupt(signum, _frame) -> None:
+    _INTERRUPTS.append(signum)
+    raise KeyboardInterrupt
+
+
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     debug = "--debug" in argv
     prog = "hopscope"
+    _INTERRUPTS.clear()
     try:
         # from here on Ctrl-C raises KeyboardInterrupt, so half-written files and locks are cleaned up
-        _on_interrupt(signal.default_int_handler)
+        _on_interrupt(_raise_interrupt)
         if not debug:
             quiet_libraries()
             warnings.simplefilter("ignore")
@@ -95,21 +109,46 @@ def main(argv: list[str] | None = None) -> int:
         prog = f"hopscope {args.command}"
         return int(args._run(args) or 0)
     except KeyboardInterrupt:
-        print(f"{prog}: interrupted", file=sys.stderr)
-        return EXIT_INTERRUPTED
-    except (ValueError, OSError) as exc:
+        return _interrupted(prog)
+    except Exception as exc:
+        # Ctrl-C inside a compiled module's initialisation surfaces as another error (ImportError)
+        if _INTERRUPTS or _caused_by_interrupt(exc):
+            return _interrupted(prog)
         if debug:
             raise
-        print(f"{prog}: error: {_one_line(exc)}", file=sys.stderr)
-        return EXIT_BAD_INPUT
-    except Exception as exc:  # the contract: one line, exit 1
-        if debug:
-            raise
+        if isinstance(exc, ValueError | OSError):
+            print(f"{prog}: error: {_one_line(exc)}", file=sys.stderr)
+            return EXIT_BAD_INPUT
+        # the contract: one line, exit 1
         print(
             f"{prog}: unexpected error: {type(exc).__name__}: {_one_line(exc)} (rerun with --debug for the traceback)",
             file=sys.stderr,
         )
         return EXIT_UNEXPECTED
+
+
+def _caused_by_interrupt(exc: BaseException) -> bool:
+    seen: BaseException | None = exc
+    while seen is not None:
+        if isinstance(seen, KeyboardInterrupt):
+            return True
+        seen = seen.__cause__ or seen.__context__
+    return False
+
+
+def _interrupted(prog: str) -> int:
+    """One line for Ctrl-C, exit 130. Files and locks were cleaned up while the interrupt unwound.
+
+    As the program, the process ends here: a Ctrl-C that landed inside a library's embedded Python code
+    (during its import) leaves the interpreter set to re-raise SIGINT at exit, which would end it with
+    -2 instead of 130.
+    """
+    print(f"{prog}: interrupted", file=sys.stderr)
+    if _AS_PROGRAM:  # pragma: no cover - exercised in a subprocess by the tests
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(EXIT_INTERRUPTED)
+    return EXIT_INTERRUPTED
 
 
 #: The temporary name :func:`hopscope.shared.fileio.atomic_path` gives an output: ``.STEM.XXXX.partialSUFFIX``.

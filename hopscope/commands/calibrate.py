@@ -19,6 +19,7 @@ from hopscope.calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, par
 from hopscope.calibration.pipeline import calibrate_files
 from hopscope.calibration.rig import rig_to_json
 from hopscope.console import progress, summary, warn
+from hopscope.folders import check_output_file
 from hopscope.options import count, finite_float, positive_float
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 from hopscope.shared.fileio import write_text_atomic
@@ -121,6 +122,7 @@ def register(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    check_output_file(args.output)  # before the slow work
     cols, rows = parse_grid(args.grid)
     spec = GridSpec(cols, rows, mm_to_m(args.square_mm))
     if args.offset_sigma_mm < 0:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+import shutil
 import signal
 import subprocess
 import sys
@@ -160,10 +161,13 @@ def test_the_fast_loop_needs_no_browser_but_the_plain_run_has_it():
 INTERRUPT_AFTER_S = (0.8, 2.5)
 
 
-def _interrupt(argv: list[str], after_s: float, cwd: Path) -> subprocess.CompletedProcess[str]:
+def _interrupt(
+    argv: list[str], after_s: float, cwd: Path, *, script: bool
+) -> subprocess.CompletedProcess[str]:
+    # the installed ``hopscope`` script, as users start it, or ``python -m hopscope.cli``
+    exe = [shutil.which("hopscope") or "hopscope"] if script else [sys.executable, "-m", "hopscope.cli"]
     proc = subprocess.Popen(
-        [sys.executable, "-m", "hopscope.cli", *argv], cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-        text=True,
+        [*exe, *argv], cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
     )  # fmt: skip
     time.sleep(after_s)
     proc.send_signal(signal.SIGINT)
@@ -171,9 +175,10 @@ def _interrupt(argv: list[str], after_s: float, cwd: Path) -> subprocess.Complet
     return subprocess.CompletedProcess(proc.args, proc.returncode, out, err)
 
 
+@pytest.mark.parametrize("script", [True, False], ids=["script", "module"])
 @pytest.mark.parametrize("after_s", INTERRUPT_AFTER_S)
-def test_ctrl_c_at_any_time_exits_130_with_one_line(tmp_path, after_s):
-    res = _interrupt(["demo", "--out", str(tmp_path / "d")], after_s, tmp_path)
+def test_ctrl_c_at_any_time_exits_130_with_one_line(tmp_path, after_s, script):
+    res = _interrupt(["demo", "--out", str(tmp_path / "d")], after_s, tmp_path, script=script)
     lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
     assert res.returncode == EXIT_INTERRUPTED, res.stderr
     assert "Traceback" not in res.stderr and lines[-1].endswith(": interrupted"), res.stderr
