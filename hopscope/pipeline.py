@@ -21,10 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-from hopscope.calibration.grid import GridSpec
-from hopscope.calibration.images import Progress, no_progress
-from hopscope.calibration.pipeline import CalibrationRun, calibrate_files
-from hopscope.calibration.rig import Rig, read_rig, rig_to_json
+from hopscope.calibration.rig import Rig, read_rig
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
@@ -38,20 +35,19 @@ from hopscope.fitting.spin import (
     spin_prior_for_fit_shot,
 )
 from hopscope.shared.fileio import atomic_path, write_bytes_atomic, write_text_atomic
-from hopscope.shared.units import m_to_mm, mm_to_m, ms_to_s, s_to_ms
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
 from hopscope.tracker.trackfile import read_track, track_to_csv
 
-from . import __version__
 from .console import progress as progress_bar
 from .folders import RunFolder, run_folder
 from .inputs import expand_videos, shots_from_track, shots_from_tracks
 from .report import load_report_inputs, write_report
 from .report.build import DEFAULT_RANGE_M, SPAN_RANGE_M
+from .scene_calibration import calibrate_scene
 
 # re-exported: their documented place (DEVELOPERS.md) and the tests' import
-__all__ = ["expand_videos", "shots_from_track"]
+__all__ = ["calibrate_scene", "expand_videos", "shots_from_track"]
 
 #: Output names of a run in its folder (one clip; several clips get ``track_<stem>.csv`` and so on).
 TRACK_NAME = "track.csv"
@@ -219,80 +215,6 @@ def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan
 
 
 # ============================================================================================ steps
-
-
-def calibrate_scene(
-    rendered,
-    rig_path: str | os.PathLike[str],
-    *,
-    seed: int = 0,
-    parallax_mm: float = 0.0,
-    parallax_sigma_mm: float = 0.0,
-    progress: Progress = no_progress,
-) -> CalibrationRun:
-    """Calibrate from a rendered scene's files as a user would (``hopscope calibrate``), write the rig.
-
-    The grid is given as the user would type it (inner corners, square side in mm, converted back to m as
-    the command does); the lens views are the rendered lens images, each plane view is ``IMAGE:OFFSET_M``,
-    and the drop clip (when the scene has one) gives the g / level check.
-
-    Parameters
-    ----------
-    rendered : :class:`hopscope.scenes.RenderedScene`.
-    rig_path : where to write ``rig.json``.
-    seed : seed of the calibration's ensemble resampling.
-    parallax_mm, parallax_sigma_mm : how far the boards stood behind the flight line and its standard
-        uncertainty, mm, as for ``hopscope calibrate --parallax-mm/--parallax-sigma-mm``.
-    progress : wraps the lens views' iterable (a progress bar).
-
-    Returns
-    -------
-    CalibrationRun (rig, lens, figures).
-
-    Notes
-    -----
-    OpenCV runs single-threaded for the calibration (restored afterwards): with its worker threads the
-    lens solution differs between runs in the last digits, and the demo promises identical files for the
-    same seed.
-    """
-    board = rendered.truth["board"]
-    square_mm = m_to_mm(float(board["square_m"]))
-    spec = GridSpec(int(board["cols"]), int(board["rows"]), mm_to_m(square_mm))
-    planes = [f"{path}:{offset!r}" for path, offset in rendered.plane_views]
-    with _opencv_threads(1):
-        run = calibrate_files(
-            [str(p) for p in rendered.lens_view_paths],
-            planes,
-            spec,
-            drop=None if rendered.drop_clip_path is None else str(rendered.drop_clip_path),
-            # the drop is filmed with the flight's camera: the same rolling-shutter readout, as the user
-            # enters it (ms on the command line)
-            drop_readout_s=ms_to_s(s_to_ms(float(rendered.truth["camera"]["readout_s"]))),
-            plane_z_m=mm_to_m(parallax_mm),
-            plane_z_sigma_m=mm_to_m(parallax_sigma_mm),
-            rng=seed,
-            provenance={
-                "tool": f"hopscope {__version__}",
-                "seed": seed,
-                "scene": rendered.truth.get("scene"),
-            },
-            progress=progress,
-        )
-    write_text_atomic(rig_path, rig_to_json(run.rig))
-    return run
-
-
-@contextlib.contextmanager
-def _opencv_threads(n: int):
-    """Run the block with OpenCV limited to ``n`` threads, then restore the previous setting."""
-    import cv2
-
-    before = cv2.getNumThreads()
-    cv2.setNumThreads(n)
-    try:
-        yield
-    finally:
-        cv2.setNumThreads(before)
 
 
 def track_to_files(
