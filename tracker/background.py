@@ -50,7 +50,6 @@ NOISE_EVERY = 24
 NOISE_FLOOR_DN = 1.0
 
 
-
 def default_scale(width: int, height: int) -> int:
     """Block size for detection, a power of two, so the low-resolution image is about 480 px wide."""
     target = max(1.0, min(width / 480.0, height / 270.0))

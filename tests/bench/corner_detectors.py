@@ -38,7 +38,9 @@ def truth_corners(truth, view, spec):
     k = np.array(cam["camera_matrix"])
     d = np.array(cam["dist_coeffs"])
     rvec, _ = cv2.Rodrigues(np.array(view["rotation"]))
-    img, _ = cv2.projectPoints(spec.board_points().reshape(-1, 1, 3), rvec, np.array(view["translation"]), k, d)
+    img, _ = cv2.projectPoints(
+        spec.board_points().reshape(-1, 1, 3), rvec, np.array(view["translation"]), k, d
+    )
     return img.reshape(-1, 2)
 
 
@@ -80,8 +82,10 @@ def main(out_dir: str | None = None) -> None:
                     found_n += 1
                     errs.append(match(c.reshape(-1, 2).astype(float), want))
             e = np.concatenate(errs) if errs else np.array([np.nan])
-            print(f"  {name:45s} found {found_n:2d}/{len(imgs)}  rms {np.sqrt(np.mean(e**2)):.4f} px  "
-                  f"p95 {np.percentile(e, 95):.4f} px  {1e3 * dt / len(imgs):6.0f} ms/image")
+            print(
+                f"  {name:45s} found {found_n:2d}/{len(imgs)}  rms {np.sqrt(np.mean(e**2)):.4f} px  "
+                f"p95 {np.percentile(e, 95):.4f} px  {1e3 * dt / len(imgs):6.0f} ms/image"
+            )
 
 
 if __name__ == "__main__":
