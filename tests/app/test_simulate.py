@@ -310,9 +310,9 @@ def test_bad_input_is_one_line_exit_2_and_no_file(tmp_path, capsys, option, valu
 
 #: Non-finite BB and air values are rejected by the shared options' types (argparse usage errors).
 USAGE_ERRORS = [
-    ("--mass-g", "nan", "--mass-g: expected a finite number"),
-    ("--mass-g", "inf", "--mass-g: expected a finite number"),
-    ("--diameter-mm", "nan", "--diameter-mm: expected a finite number"),
+    ("--mass-g", "nan", "argument --mass-g: expected"),
+    ("--mass-g", "inf", "argument --mass-g: expected"),
+    ("--diameter-mm", "nan", "argument --diameter-mm: expected"),
     ("--humidity-pct", "nan", "--humidity-pct: expected a finite number"),
     ("--temp-c", "nan", "--temp-c: expected a finite number"),
     ("--pressure-hpa", "inf", "--pressure-hpa: expected a positive number"),
@@ -326,7 +326,7 @@ def test_non_finite_bb_and_air_are_usage_errors(tmp_path, capsys, option, value,
         main(["simulate", *_replace(BASE, option, value), "-o", str(out_csv)])
     assert exc.value.code == 2
     lines = capsys.readouterr().err.strip().splitlines()
-    assert len(lines) == 1 and message in lines[0]
+    assert len(lines) == 1 and message in lines[0] and repr(value) in lines[0]
     assert not out_csv.exists()
 
 
