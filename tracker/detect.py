@@ -28,6 +28,11 @@ GROW_SIGMA = 2.5
 #: Most candidates kept per frame and polarity (the strongest).
 MAX_CANDIDATES = 4
 
+#: Seeds are grouped in tiles of this many low-resolution px for labelling, each crop grown by
+#: SEED_MARGIN px (a blob longer than the margin makes the whole image be labelled instead).
+SEED_TILE = 32
+SEED_MARGIN = 24
+
 #: Margin added around a blob's box for the fit window, full-resolution px (at least this, or 2 blocks).
 PAD_PX = 5
 
@@ -127,6 +132,69 @@ def _inside(c: Candidate, f: Candidate) -> bool:
     return r0 <= c.v_px < r1 and c0 <= c.u_px < c1
 
 
+def _seed_boxes(seeds: np.ndarray) -> list[tuple[int, int, int, int]]:
+    """Crops (r0, r1, c0, c1) of the low-resolution image around the seed pixels, merged where they overlap.
+
+    Seeds are grouped by :data:`SEED_TILE` tiles, each grown by :data:`SEED_MARGIN`; labelling the blobs
+    in these crops instead of the whole image keeps the cost with the blobs, not the frame size.
+    """
+    h, w = seeds.shape
+    ys, xs = np.nonzero(seeds)
+    boxes: list[list[int]] = []
+    for ty, tx in sorted(set(zip((ys // SEED_TILE).tolist(), (xs // SEED_TILE).tolist(), strict=True))):
+        b = [
+            max(0, ty * SEED_TILE - SEED_MARGIN),
+            min(h, (ty + 1) * SEED_TILE + SEED_MARGIN),
+            max(0, tx * SEED_TILE - SEED_MARGIN),
+            min(w, (tx + 1) * SEED_TILE + SEED_MARGIN),
+        ]
+        merged = True
+        while merged:
+            merged = False
+            for o in boxes:
+                if b[0] < o[1] and o[0] < b[1] and b[2] < o[3] and o[2] < b[3]:
+                    b = [min(b[0], o[0]), max(b[1], o[1]), min(b[2], o[2]), max(b[3], o[3])]
+                    boxes.remove(o)
+                    merged = True
+                    break
+        boxes.append(b)
+    return [(b[0], b[1], b[2], b[3]) for b in boxes]
+
+
+def _label_blobs(
+    sd: np.ndarray, noise: np.ndarray, seeds: np.ndarray, grow_sigma: float, box: tuple[int, int, int, int]
+) -> tuple[list[tuple[float, float, float, int, int, int, int]], bool]:
+    """Blobs grown from the seeds inside one crop: (snr, cu, cv, x, y, w, h) in low-res image coordinates,
+    and whether one of them touches a crop edge that is not the image's edge."""
+    r0, r1, c0, c1 = box
+    H, W = sd.shape
+    sd_c, noise_c, seeds_c = sd[r0:r1, c0:c1], noise[r0:r1, c0:c1], seeds[r0:r1, c0:c1]
+    grow = (sd_c > noise_c * np.float32(grow_sigma)).astype(np.uint8)
+    _n, labels, stats, _ = cv2.connectedComponentsWithStats(grow, connectivity=8)
+    seed_labels = np.unique(labels[seeds_c])
+    seed_labels = seed_labels[seed_labels > 0]
+    found = []
+    clipped = False
+    for lab in seed_labels:
+        x, y, w, h, _area = (int(q) for q in stats[lab])
+        if (
+            (x == 0 and c0 > 0)
+            or (y == 0 and r0 > 0)
+            or (x + w == c1 - c0 and c1 < W)
+            or (y + h == r1 - r0 and r1 < H)
+        ):
+            clipped = True
+        sub_l = labels[y : y + h, x : x + w] == lab
+        sub = np.where(sub_l, sd_c[y : y + h, x : x + w].astype(np.float32), 0.0)
+        snr = float(np.max(sub / noise_c[y : y + h, x : x + w]))
+        tot = float(sub.sum())
+        yy, xx = np.mgrid[y : y + h, x : x + w]
+        cu = float((sub * xx).sum() / tot) if tot > 0 else x + w / 2
+        cv = float((sub * yy).sum() / tot) if tot > 0 else y + h / 2
+        found.append((snr, cu + c0, cv + r0, x + c0, y + r0, w, h))
+    return found, clipped
+
+
 def _blobs(
     wf: WindowFrame,
     sd: np.ndarray,
@@ -137,21 +205,13 @@ def _blobs(
     grow_sigma: float,
     max_candidates: int,
 ) -> list[Candidate]:
-    grow = (sd > noise * np.float32(grow_sigma)).astype(np.uint8)
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(grow, connectivity=8)
-    seed_labels = np.unique(labels[seeds])
-    seed_labels = seed_labels[seed_labels > 0]
     found = []
-    for lab in seed_labels:
-        x, y, w, h, _area = stats[lab]
-        sub_l = labels[y : y + h, x : x + w] == lab
-        sub = np.where(sub_l, sd[y : y + h, x : x + w].astype(np.float32), 0.0)
-        snr = float(np.max(sub / noise[y : y + h, x : x + w]))
-        tot = float(sub.sum())
-        yy, xx = np.mgrid[y : y + h, x : x + w]
-        cu = float((sub * xx).sum() / tot) if tot > 0 else x + w / 2
-        cv = float((sub * yy).sum() / tot) if tot > 0 else y + h / 2
-        found.append((snr, cu, cv, x, y, w, h))
+    for br0, br1, bc0, bc1 in _seed_boxes(seeds):
+        blobs, clipped = _label_blobs(sd, noise, seeds, grow_sigma, (br0, br1, bc0, bc1))
+        if clipped:  # a blob reaches past its crop: label the whole image once
+            found = _label_blobs(sd, noise, seeds, grow_sigma, (0, sd.shape[0], 0, sd.shape[1]))[0]
+            break
+        found.extend(blobs)
     found.sort(key=lambda f: -f[0])
     H, W = wf.frame.luma.shape
     pad = max(PAD_PX, 2 * s)

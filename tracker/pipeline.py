@@ -27,7 +27,7 @@ import numpy as np
 from hopscope.calibration.rig import Rig
 from hopscope.shared.constants import DEFAULT_BB_DIAMETER_M, STANDARD_GRAVITY_MPS2
 
-from .associate import SIGMA_FLOOR_PX, LinkOptions, link, scatter_ratio
+from .associate import MIN_STEP_PX, SIGMA_FLOOR_PX, LinkOptions, link, scatter_ratio
 from .background import default_scale, windowed
 from .detect import THRESHOLD_SIGMA, Candidate, find_candidates
 from .localise import QUANTISATION_NOISE_DN, Detection, localise, localise_marked
@@ -58,6 +58,10 @@ MARKED_PAD_PX = 3
 #: A bright and a dark blob side by side are fitted as a marked BB only when the BB's image radius is at
 #: least this, px (a smaller ball cannot show its two halves).
 MARKED_MIN_RADIUS_PX = 2.0
+
+#: A blob that moved less than this since the frame before is not localised, px (the linker's least step
+#: per frame of a BB in flight, :data:`tracker.associate.MIN_STEP_PX`).
+SLOW_STEP_PX = MIN_STEP_PX
 
 #: Decoded frames the decoding thread may run ahead of detection.
 PREFETCH_DEPTH = 8
@@ -155,6 +159,8 @@ class TrackSummary:
     rejected_tracks : reasons for the tracks that were not accepted (a few).
     rejected_track_count : candidate tracks turned down (too short or not smooth, or smooth but not a BB:
         size, speed band, fall, drag, or of the other polarity).
+    slow_candidates : blobs within :data:`SLOW_STEP_PX` of one in the frame before (not localised: no BB
+        in flight moves so little).
     """
 
     frames_read: int
@@ -169,6 +175,7 @@ class TrackSummary:
     shot_speeds_mps: tuple[float, ...]
     rejected_tracks: tuple[str, ...]
     rejected_track_count: int = 0
+    slow_candidates: int = 0
 
 
 @dataclass(frozen=True)
@@ -320,6 +327,8 @@ def track_video(
             yield fr
 
     dets: list[tuple[Detection, int, float, bool]] = []
+    previous: dict[int, list[Candidate]] = {}
+    n_slow = 0
     n_cand = 0
     still: np.ndarray | None = None
     for wf in windowed(timed(frames), gap_frames=opt.gap_frames, scale=scale):
@@ -327,6 +336,12 @@ def track_video(
             still = np.array(wf.frame.luma, copy=True)
         cands = find_candidates(wf, threshold_sigma=opt.threshold_sigma, polarity=want)
         n_cand += len(cands)
+        # a blob within a pixel of one in the frame before is no BB in flight (the linker's least step):
+        # it is counted, not localised
+        moving = [c for c in cands if not _slow(c, previous)]
+        n_slow += len(cands) - len(moving)
+        previous = {wf.frame.index: cands}
+        cands = moving
         paired: set[int] = set()
         if not want:  # a marked BB: a bright and a dark half side by side, fitted as one ball
             for box, edge in _marked_pairs(cands, info):
@@ -417,6 +432,7 @@ def track_video(
         polarity=pol_name,
         rejected_tracks=rejected_reasons,
         rejected_track_count=chosen.n_rejected_tracks,
+        slow_candidates=n_slow,
     )
     det_pairs = tuple((d, sgn) for d, sgn, _, _ in dets)
     if not points:
@@ -453,6 +469,14 @@ def _overlap(a: Candidate, b: Candidate) -> bool:
     ar0, ar1, ac0, ac1 = a.box
     br0, br1, bc0, bc1 = b.box
     return ar0 < br1 and br0 < ar1 and ac0 < bc1 and bc0 < ac1
+
+
+def _slow(c: Candidate, previous: dict[int, list[Candidate]]) -> bool:
+    """A candidate within :data:`SLOW_STEP_PX` of one of the same sign in the frame before."""
+    before = previous.get(c.frame - 1, ())
+    return any(
+        o.sign == c.sign and math.hypot(o.u_px - c.u_px, o.v_px - c.v_px) < SLOW_STEP_PX for o in before
+    )
 
 
 def _inside_box(c: Candidate, box: tuple[int, int, int, int]) -> bool:
