@@ -171,9 +171,9 @@ def limit_of_file(fit: FitFile) -> float | None:
     if block is None:
         return None
     v = block.get("limit_j") if isinstance(block, Mapping) else None
-    if not (is_finite_number(v) and v > 0):
+    if not is_finite_number(v) or not float(v) > 0:  # type: ignore[arg-type]
         raise ValueError(f"{fit.source}: energy_limit.limit_j: expected a positive number, got {v!r}")
-    return float(v)
+    return float(v)  # type: ignore[arg-type]
 
 
 @dataclass(frozen=True, eq=False)

@@ -132,6 +132,8 @@ def check_groups(specs: Sequence[GroupSpec]) -> None:
             raise ValueError(f"--group {g.name}: two groups have this name")
         names.add(g.name)
         for t in g.tracks:
+            if not t.is_file():  # before the first group's fit, so bad input costs nothing
+                raise FileNotFoundError(f"{t}: no such track file (group {g.name!r})")
             key = t.resolve()
             if key in owner:
                 raise ValueError(f"{t}: given in group {owner[key]!r} and in group {g.name!r}")

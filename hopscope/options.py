@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from hopscope.fitting.air import Air
-from hopscope.fitting.bb import BB
+from hopscope.fitting.bb import BB, DEFAULT_DIAMETER_SIGMA_M, DEFAULT_MASS_REL_SIGMA, BBTolerance
 from hopscope.fitting.estimate import DEFAULT_LOSS, LOSSES, ChronoPrior
 from hopscope.fitting.laws import DECAY_LAWS, DRAG_LAWS, LIFT_LAWS
 from hopscope.fitting.predict import DEFAULT_RANGE_M
@@ -25,6 +25,7 @@ from hopscope.shared.constants import (
 )
 from hopscope.shared.units import (
     celsius_to_kelvin,
+    fraction_to_percent,
     grams_to_kg,
     hpa_to_pa,
     m_to_mm,
@@ -87,16 +88,48 @@ def parse_chrono(text: str) -> tuple[float, float]:
 # ---------------------------------------------------------------------------------------------- BB, air
 
 
+def _value_sigma(option: str, unit: str):
+    """argparse action for ``VALUE[:SIGMA]``: the value goes to the option's dest (a float, as before),
+    the standard uncertainty to ``<dest>_sigma`` (None when not given)."""
+
+    class ValueSigma(argparse.Action):
+        def __call__(self, parser, namespace, values, option_string=None):
+            text = str(values)
+            parts = text.split(":")
+            try:
+                nums = [float(p) for p in parts]
+            except ValueError:
+                nums = []
+            if len(parts) > 2 or not nums or not all(math.isfinite(v) for v in nums):
+                raise argparse.ArgumentError(self, f"expected VALUE or VALUE:SIGMA in {unit}, got {text!r}")
+            setattr(namespace, self.dest, nums[0])
+            setattr(namespace, f"{self.dest}_sigma", nums[1] if len(nums) == 2 else None)
+
+    ValueSigma.__name__ = f"ValueSigma_{option}"
+    return ValueSigma
+
+
 def add_bb_options(parser: argparse._ActionsContainer, *, required: bool = True) -> None:
-    """--mass-g and --diameter-mm. ``required=False`` (``simulate``, where a fit can give the BB): both
-    default to None, and the command fills in the diameter's default before :func:`bb_from_args`."""
-    parser.add_argument("--mass-g", required=required, type=finite_float, metavar="M", help="BB mass, g")
+    """--mass-g M[:SIGMA] and --diameter-mm D[:SIGMA] (SIGMA: the standard uncertainty, in the same unit;
+    default :data:`fitting.bb.DEFAULT_MASS_REL_SIGMA` of the mass and :data:`fitting.bb.DEFAULT_DIAMETER_SIGMA_M`).
+    ``required=False`` (``simulate``, where a fit can give the BB): both default to None, and the command
+    fills in the diameter's default before :func:`bb_from_args`."""
+    parser.set_defaults(mass_g_sigma=None, diameter_mm_sigma=None)
+    parser.add_argument(
+        "--mass-g",
+        required=required,
+        action=_value_sigma("mass", "g"),
+        metavar="M[:SIGMA]",
+        help=f"BB mass and its standard uncertainty, g (default uncertainty "
+        f"{fraction_to_percent(DEFAULT_MASS_REL_SIGMA):g} %% of the mass; common practice, no published source)",
+    )
     parser.add_argument(
         "--diameter-mm",
-        type=finite_float,
+        action=_value_sigma("diameter", "mm"),
         default=m_to_mm(DEFAULT_BB_DIAMETER_M) if required else None,
-        metavar="D",
-        help=f"BB diameter, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g})",
+        metavar="D[:SIGMA]",
+        help=f"BB diameter and its standard uncertainty, mm (default {m_to_mm(DEFAULT_BB_DIAMETER_M):g}:"
+        f"{m_to_mm(DEFAULT_DIAMETER_SIGMA_M):g}; common practice, no published source)",
     )
 
 
@@ -112,6 +145,33 @@ def bb_from_args(args: argparse.Namespace) -> BB:
         return BB(grams_to_kg(args.mass_g), mm_to_m(args.diameter_mm))
     except ValueError as exc:
         raise ValueError(f"--mass-g/--diameter-mm: {exc}") from None
+
+
+def bb_tolerance_from_args(args: argparse.Namespace, bb: BB) -> BBTolerance:
+    """The BB's mass and diameter tolerance from ``--mass-g M:SIGMA`` / ``--diameter-mm D:SIGMA`` (SI),
+    each defaulting to :meth:`fitting.bb.BBTolerance.default_for`; ``origin`` says which were given."""
+    default = BBTolerance.default_for(bb)
+    m_sig = getattr(args, "mass_g_sigma", None)
+    d_sig = getattr(args, "diameter_mm_sigma", None)
+    for option, sig, value, unit in (
+        ("--mass-g", m_sig, args.mass_g, "g"),
+        ("--diameter-mm", d_sig, args.diameter_mm, "mm"),
+    ):
+        if sig is not None and not 0 <= sig < value:
+            raise ValueError(
+                f"{option}: the standard uncertainty SIGMA must be >= 0 and below the value, "
+                f"got {value:g}:{sig:g} {unit}"
+            )
+    mass_sigma = default.mass_sigma_kg if m_sig is None else grams_to_kg(m_sig)
+    diameter_sigma = default.diameter_sigma_m if d_sig is None else mm_to_m(d_sig)
+    given = [name for name, sig in (("mass", m_sig), ("diameter", d_sig)) if sig is not None]
+    if len(given) == 2:
+        origin = "given"
+    elif given:
+        origin = f"{given[0]} given, {'diameter' if given[0] == 'mass' else 'mass'} default"
+    else:
+        origin = "default"
+    return BBTolerance(mass_sigma, diameter_sigma, origin)
 
 
 def add_air_options(parser: argparse.ArgumentParser) -> None:
@@ -175,17 +235,56 @@ def add_chrono_options(parser: argparse.ArgumentParser) -> None:
         "--muzzle-x-m",
         type=finite_float,
         metavar="X",
-        help="downrange position of the muzzle/chronograph, m (the prior then applies there, not at the "
-        "first tracked point)",
+        help="downrange position of the muzzle (or the chronograph), world x, m: speed and energy are "
+        "flown back to it (default: at each shot's first tracked point); with --chrono-mps the prior applies there",
     )
 
 
 def chrono_from_args(args: argparse.Namespace) -> ChronoPrior | None:
-    if args.muzzle_x_m is not None and args.chrono_mps is None:
-        raise ValueError("--muzzle-x-m: needs --chrono-mps (it says where the chronograph speed applies)")
     if args.chrono_mps is None:
         return None
     return ChronoPrior(args.chrono_mps[0], args.chrono_mps[1], args.muzzle_x_m)
+
+
+def add_limit_option(parser: argparse.ArgumentParser) -> None:
+    """--limit-j: the field's muzzle-energy limit (``fit``, ``run``, ``report``, ``compare``)."""
+    parser.add_argument(
+        "--limit-j",
+        type=positive_float,
+        metavar="J",
+        help="the field's muzzle-energy limit, J: verdict below / within the uncertainty of / above it "
+        "(the field's own chronograph rules)",
+    )
+
+
+def add_forecast_options(parser: argparse.ArgumentParser) -> None:
+    """The prediction's and the hop verdict's convention: muzzle height, band, engagement range."""
+    from hopscope.fitting.forecast import DEFAULT_BAND_M, DEFAULT_MUZZLE_HEIGHT_M
+    from hopscope.fitting.verdict import DEFAULT_ENGAGEMENT_M
+
+    group = parser.add_argument_group("prediction and hop verdict")
+    group.add_argument(
+        "--muzzle-height-m",
+        type=positive_float,
+        default=DEFAULT_MUZZLE_HEIGHT_M,
+        metavar="H",
+        help=f"muzzle height above level ground, m; paths end at the ground (default {DEFAULT_MUZZLE_HEIGHT_M:g})",
+    )
+    group.add_argument(
+        "--band-m",
+        type=positive_float,
+        default=DEFAULT_BAND_M,
+        metavar="B",
+        help=f"half-height of the band about the line of sight, m: flat distance and hop verdict (default {DEFAULT_BAND_M:g})",
+    )
+    group.add_argument(
+        "--engagement-m",
+        type=positive_float,
+        default=DEFAULT_ENGAGEMENT_M,
+        metavar="R",
+        help=f"engagement range the hop verdict judges the path over, and where speed and energy are given, m "
+        f"(default {DEFAULT_ENGAGEMENT_M:g})",
+    )
 
 
 # ---------------------------------------------------------------------------------------------- timing
@@ -273,8 +372,9 @@ def fit_settings(args: argparse.Namespace) -> FitSettings:
     from hopscope.pipeline import FitSettings
 
     air, notes = air_from_args(args)
+    bb = bb_from_args(args)
     return FitSettings(
-        bb_from_args(args),
+        bb,
         air,
         args.drag,
         args.lift,
@@ -282,6 +382,9 @@ def fit_settings(args: argparse.Namespace) -> FitSettings:
         chrono_from_args(args),
         args.loss,
         tuple(notes),
+        bb_tolerance_from_args(args, bb),
+        args.muzzle_x_m,
+        getattr(args, "limit_j", None),
     )
 
 
@@ -297,6 +400,8 @@ def add_run_options(parser: argparse.ArgumentParser) -> None:
     add_air_options(parser)
     add_timing_options(parser, polarities=POLARITIES)
     add_fit_options(parser)
+    add_limit_option(parser)
+    add_forecast_options(parser)
     parser.add_argument(
         "--range-m",
         type=positive_float,
@@ -324,4 +429,9 @@ def run_request(args: argparse.Namespace, *, title: str | None = None) -> RunReq
     rig = Path(args.rig)
     if not rig.is_file():
         raise FileNotFoundError(f"--rig {rig}: no such rig file")
-    return RunRequest(videos, rig, settings, track, Path(args.out), args.range_m, title or args.title)
+    from hopscope.decisions import convention_from_args
+
+    return RunRequest(
+        videos, rig, settings, track, Path(args.out), args.range_m, title or args.title,
+        convention_from_args(args),
+    )  # fmt: skip

@@ -23,7 +23,7 @@ import numpy as np
 
 from hopscope.calibration.rig import Rig, read_rig
 from hopscope.fitting.air import Air
-from hopscope.fitting.bb import BB
+from hopscope.fitting.bb import BB, BBTolerance
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from hopscope.fitting.fitfile import fit_to_dict, fit_to_json
 from hopscope.fitting.predict import predict_path
@@ -40,6 +40,7 @@ from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
 from hopscope.tracker.trackfile import read_track, track_to_csv
 
 from .console import progress as progress_bar
+from .decisions import Convention, FitDecisions, decide, with_decisions
 from .folders import RunFolder, run_folder
 from .inputs import expand_videos, shots_from_track, shots_from_tracks
 from .report import load_report_inputs, write_report
@@ -94,6 +95,8 @@ class FittedTracks:
     fit_path: Path
     result: FlightFit
     track_paths: tuple[Path, ...]
+    #: muzzle state and energy verdict (:func:`hopscope.decisions.decide`); ``result`` is its fit
+    decisions: FitDecisions | None = None
 
 
 @dataclass(frozen=True)
@@ -127,6 +130,9 @@ class FitSettings:
     chrono : a chronograph prior, or None.
     loss : robust loss asked for (used only when a residual calls for it).
     notes : warnings made before the fit (for example defaulted air conditions), shown first.
+    tolerance : the BB's mass/diameter tolerance (None: the default for the BB).
+    muzzle_x_m : the muzzle's downrange position, m (None: values at each shot's first tracked point).
+    limit_j : the field's energy limit, J, or None.
     """
 
     bb: BB
@@ -137,6 +143,9 @@ class FitSettings:
     chrono: ChronoPrior | None = None
     loss: str = DEFAULT_LOSS
     notes: tuple[str, ...] = ()
+    tolerance: BBTolerance | None = None
+    muzzle_x_m: float | None = None
+    limit_j: float | None = None
 
 
 @dataclass(frozen=True)
@@ -152,6 +161,7 @@ class RunRequest:
     out : the output folder.
     range_m : distance of the report's predicted path, m.
     title : the report's title (None: the first clip's name).
+    convention : muzzle height, band and engagement range of the report's prediction and hop verdict.
     """
 
     videos: tuple[Path, ...]
@@ -161,6 +171,7 @@ class RunRequest:
     out: Path
     range_m: float = DEFAULT_RANGE_M
     title: str | None = None
+    convention: Convention = Convention()
 
 
 @dataclass(frozen=True, eq=False)
@@ -280,8 +291,10 @@ def fit_track_files(
     pre = (*f.notes, *tracks.warnings)
     if pre:
         result = replace(result, warnings=tuple(pre) + result.warnings)
-    write_text_atomic(fit_path, _fit_text_with_spin(result, tracks.records))
-    return FittedTracks(Path(fit_path), result, tuple(Path(p) for p in track_paths))
+    decisions = decide(result, tolerance=f.tolerance, muzzle_x_m=f.muzzle_x_m, limit_j=f.limit_j)
+    text = with_decisions(_fit_text_with_spin(decisions.fit, tracks.records), decisions)
+    write_text_atomic(fit_path, text)
+    return FittedTracks(Path(fit_path), decisions.fit, tuple(Path(p) for p in track_paths), decisions)
 
 
 def _fit_text_with_spin(result: FlightFit, records: Sequence[dict]) -> str:
@@ -414,7 +427,7 @@ def _run_in(request: RunRequest, rig: Rig, plan: RunPlan, folder: RunFolder, on_
     title = request.title or (plan.videos[0].stem if n == 1 else f"{n} clips")
     inputs = load_report_inputs(
         plan.fit_path, track_paths=plan.track_paths, rig_path=plan.rig_path, range_m=request.range_m,
-        links=links, title=title,
+        links=links, title=title, limit_j=request.fit.limit_j, convention=request.convention,
     )  # fmt: skip
     folder.own(*write_report(plan.report_path, inputs, figures_dir=plan.report_path.parent))
     return RunOutcome(plan, tuple(clips), fitted, plan.report_path, folder.owned, folder.removed)

@@ -17,6 +17,7 @@ import argparse
 
 from hopscope import options
 from hopscope.console import warn
+from hopscope.decision_summaries import decisions_table
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.folders import check_output_file
 from hopscope.pipeline import fit_track_files
@@ -35,14 +36,18 @@ DESCRIPTION = (
 def register(parser: argparse.ArgumentParser) -> None:
     options.add_track_inputs(parser)
     options.add_fit_options(parser)
+    options.add_limit_option(parser)
     parser.add_argument("-o", "--output", required=True, metavar="FIT_JSON", help="the fit.json to write")
 
 
 def run(args: argparse.Namespace) -> int:
     settings = options.fit_settings(args)
     out = check_output_file(args.output)
-    result = fit_track_files(args.tracks, out, settings).result
+    fitted = fit_track_files(args.tracks, out, settings)
+    result = fitted.result
     print(parameter_table(result))
+    if fitted.decisions is not None:
+        print(decisions_table(fitted.decisions))
     for line in result.warnings:
         warn(line)
     chrono = settings.chrono

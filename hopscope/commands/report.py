@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import argparse
 
+from hopscope import options
 from hopscope.console import summary, warn
+from hopscope.decisions import convention_from_args
 from hopscope.folders import check_output_file
 from hopscope.report import load_report_inputs, write_report
 from hopscope.report.build import DEFAULT_RANGE_M
@@ -38,14 +40,17 @@ def register(parser: argparse.ArgumentParser) -> None:
         help=f"distance of the predicted path, m (default {DEFAULT_RANGE_M:g})",
     )
     parser.add_argument("--title", help="title of the page (default: the fit file's name)")
+    options.add_limit_option(parser)
+    options.add_forecast_options(parser)
     parser.add_argument("-o", "--output", required=True, metavar="REPORT_HTML", help="the HTML file to write")
 
 
 def run(args: argparse.Namespace) -> int:
     out = check_output_file(args.output)
     inputs = load_report_inputs(
-        args.fit, track_paths=args.tracks, rig_path=args.rig, range_m=args.range_m, title=args.title
-    )
+        args.fit, track_paths=args.tracks, rig_path=args.rig, range_m=args.range_m, title=args.title,
+        limit_j=args.limit_j, convention=convention_from_args(args),
+    )  # fmt: skip
     write_report(out, inputs)
     fit = inputs.fit
     for w in fit.warnings:

@@ -28,8 +28,10 @@ from hopscope.shared.fileio import write_bytes_atomic, write_text_atomic
 from hopscope.tracker.trackfile import Track, read_track
 
 from .. import __version__
+from ..decisions import Convention
 from ..inputs import match_track_to_fit
 from . import figures, tables
+from .decision_sections import decision_section
 
 #: Safety cautions shown on every report (and in the README).
 CAUTIONS = (
@@ -63,6 +65,8 @@ class ReportInputs:
     title : the page's title.
     extra_rows : more rows for the calibration table.
     rig_name : the rig file's name (its warnings are listed under it).
+    limit_j : the field's energy limit, J (None: the fit file's, if it has one).
+    convention : muzzle height, band and engagement range of the prediction and hop verdict (None: defaults).
     """
 
     fit: FitFile
@@ -73,6 +77,8 @@ class ReportInputs:
     title: str = ""
     extra_rows: tuple[tuple[str, str], ...] = field(default=())
     rig_name: str = "rig"
+    limit_j: float | None = None
+    convention: Convention | None = None
 
 
 def _fit_times(fit: FitFile) -> dict[str, np.ndarray]:
@@ -91,6 +97,8 @@ def load_report_inputs(
     range_m: float = DEFAULT_RANGE_M,
     links: Sequence[tuple[str, str]] = (),
     title: str | None = None,
+    limit_j: float | None = None,
+    convention: Convention | None = None,
 ) -> ReportInputs:
     """Read and validate the files behind a report (each reader names the file in its errors)."""
     if not (math.isfinite(range_m) and range_m > 0):
@@ -107,8 +115,9 @@ def load_report_inputs(
                 raise ValueError(f"{path}: was mapped with another rig than {rig_path} (rig digests differ)")
     rig_name = "rig" if rig_path is None else Path(rig_path).name
     return ReportInputs(
-        fit, tracks, rig, range_m, tuple(links), title or Path(fit_path).stem, rig_name=rig_name
-    )
+        fit, tracks, rig, range_m, tuple(links), title or Path(fit_path).stem, rig_name=rig_name,
+        limit_j=limit_j, convention=convention,
+    )  # fmt: skip
 
 
 # ---------------------------------------------------------------------------------------------- helpers
@@ -185,6 +194,7 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
     fit = inputs.fit
     curves = _shot_curves(inputs)
     verdict = tables.verdict(fit)
+    decided = decision_section(inputs)
     prof = lift_profile(fit, shot=0, range_m=inputs.range_m)
     pred = predict_path(fit, shot=0, range_m=inputs.range_m, n_samples=BAND_SAMPLES, rng=BAND_SEED)
     spread = effective_range(fit, rng=BAND_SEED) if fit.n_shots >= 2 else None
@@ -242,7 +252,7 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
             )
         )
     # the fit already carries its tracks' warnings (prefixed with the track's name); the rig's own come after
-    warnings = list(dict.fromkeys([*fit.warnings, *tables.rig_warnings(inputs)]))
+    warnings = list(dict.fromkeys([*fit.warnings, *decided.warnings, *tables.rig_warnings(inputs)]))
     if not fit.converged:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
     env = jinja2.Environment(
@@ -260,8 +270,9 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         n_shots=fit.n_shots,
         n_points=n_points,
         cautions=CAUTIONS,
-        cards=tables.cards(fit, verdict, spread),
-        verdict=verdict,
+        cards=decided.merge_cards(tables.cards(fit, verdict, spread)),
+        verdict=None if decided.context else verdict,  # the path's verdict replaces the ratio's
+        decisions=decided.context,
         warnings=warnings,
         parameters=tables.parameter_rows(fit),
         model_note=model_note,

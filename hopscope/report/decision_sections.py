@@ -61,7 +61,7 @@ def _stat_detail(g: GroupStat, unit: str, fmt: str) -> str:
 
 
 def _values(est: list[Estimate]) -> list[float]:
-    return [float(e.value) for e in est if finite(e.value)]
+    return [float(e.value) for e in est if e.value is not None and finite(e.value)]
 
 
 def _cards(fit: FitFile, d: FileDecisions) -> list[dict[str, str]]:

@@ -104,7 +104,7 @@ def test_chronograph_prior_tightens_speed(tmp_path, capsys):
         (["--mass-g", "0"], r"--mass-g"),
         (["--mass-g", "-1"], r"--mass-g"),
         (["--mass-g", "0.25", "--chrono-mps", "abc"], r"--chrono-mps"),
-        (["--mass-g", "0.25", "--muzzle-x-m", "0"], r"--muzzle-x-m: needs --chrono-mps"),
+        (["--mass-g", "0.25", "--muzzle-x-m", "5"], r"--muzzle-x-m: 5 m lies downrange"),
         (["--mass-g", "0.25", "--drag", "cubic"], r"--drag"),
         (["--mass-g", "0.25", "--temp-c", "500"], r"--temp-c"),
     ],

@@ -299,9 +299,9 @@ def test_failed_step_in_an_existing_folder_leaves_it_as_it_was(inputs, tmp_path,
     assert sorted(p.name for p in out.iterdir()) == ["keep.txt"]
 
 
-def test_muzzle_position_without_chronograph(inputs, tmp_path, capsys):
+def test_muzzle_position_not_a_number(inputs, tmp_path, capsys):
     out = tmp_path / "out"
-    _bad(capsys, [*_base(inputs, out), "--muzzle-x-m", "-1"], out, "--muzzle-x-m")
+    _bad(capsys, [*_base(inputs, out), "--muzzle-x-m", "nan"], out, "--muzzle-x-m")
 
 
 def test_run_shows_a_progress_bar_when_asked(inputs, tmp_path, capsys, monkeypatch):
