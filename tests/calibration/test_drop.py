@@ -187,8 +187,8 @@ def _holder_clip(tmp_path, rng, contact_frames, contact_accel, *, lead=15, n=150
     return rig, path
 
 
-#: The release may be found a frame or two either side of the true one (the first free frames differ
-#: from the held path by less than the noise).
+#: The fit may start a frame or two before the true release (the last held frames differ from the free
+#: path by less than the noise), never earlier; it may start later (the first slow frames are left out).
 RELEASE_TOL_FRAMES = 5
 
 
@@ -200,7 +200,7 @@ def test_ball_resting_in_a_holder_first_reads_g_from_the_free_fall_only(tmp_path
     check, warns = check_drop(rig, path)
     assert check.verdict == "consistent", warns
     assert abs(check.g_measured_mps2.value - G) / G < G_RTOL_RENDERED
-    assert abs(check.release_frame - (lead + contact)) <= RELEASE_TOL_FRAMES
+    assert check.release_frame >= lead + contact - RELEASE_TOL_FRAMES  # no held frame in the fit
     assert check.clean_parabola
 
 
@@ -216,3 +216,20 @@ def test_non_parabolic_start_is_never_blamed_on_the_frame_rate(tmp_path):
     if check.verdict == "consistent":
         assert abs(check.g_measured_mps2.value - G) / G < G_RTOL_RENDERED
     assert not any("frame rate is probably wrong" in w for w in warns)
+
+
+@pytest.mark.slow
+def test_holder_scene_reads_g_from_the_free_fall(tmp_path):
+    # the scene renderer's own holder drop (lane-close-holder: 1000 fps, the BB rests in a holder for 30
+    # frames, then falls), through the true camera: g to the 0.5 %, no held frame fitted
+    from test_rendered import _truth_rig
+
+    from hopscope.scenes import builtin_scene, render_scene
+
+    scene = render_scene(builtin_scene("lane-close-holder"), tmp_path, rng=0, parts=("drop",))
+    d = scene.truth["drop"]
+    check, warns = check_drop(_truth_rig(scene.truth), scene.drop_clip_path)
+    assert check.verdict == "consistent", warns
+    assert abs(check.g_measured_mps2.value - d["g_mps2"]) / d["g_mps2"] < G_RTOL_RENDERED
+    release_frame = d["release"]["t_s"] * d["fps"]
+    assert check.release_frame >= release_frame - RELEASE_TOL_FRAMES
