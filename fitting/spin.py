@@ -1061,10 +1061,14 @@ def fit_spin_decay(
 
 
 #: Grid of the coherent decay fit: rates at the mean time (± this many cycles over the span, this many steps)
-#: and decay constants (from −1/span to 4/span, at most this many steps).
+#: and decay constants (± :data:`MAX_DECAY_OVER_SERIES` over the span, at most this many steps).
 _COHERENT_RATE_CYCLES = 1.5
 _COHERENT_RATE_STEPS = 31
 _COHERENT_DECAY_STEPS_MAX = 200
+#: Largest decay the coherent fit accepts over the series, λ·(x_last − x_first): the spin falling by more
+#: than a factor e within one series is no decay a BB shows (its spin lasts seconds) but a brightness that
+#: is not a clean flicker, which a free chirp follows into nonsense.  # common practice, no published source
+MAX_DECAY_OVER_SERIES = 1.0
 #: Largest phase change (rad) at the series' ends between neighbouring decay constants of the grid.
 _COHERENT_PHASE_STEP_RAD = 0.3
 
@@ -1133,7 +1137,7 @@ def fit_spin_decay_coherent(
     dw = 2.0 * math.pi / c * _COHERENT_RATE_CYCLES / span
     rates = w_start + np.linspace(-dw, dw, _COHERENT_RATE_STEPS)
     lam_step = _COHERENT_PHASE_STEP_RAD / max(c * w_start * (0.5 * span) * (0.5 * x_span) / 2.0, 1e-300)
-    lam_lo, lam_hi = -1.0 / x_span, 4.0 / x_span
+    lam_lo, lam_hi = -MAX_DECAY_OVER_SERIES / x_span, MAX_DECAY_OVER_SERIES / x_span
     n_lam = int(min(_COHERENT_DECAY_STEPS_MAX, max(11, math.ceil((lam_hi - lam_lo) / lam_step))))
     best = (math.inf, w_start, 0.0)
     for lam in np.linspace(lam_lo, lam_hi, n_lam):
@@ -1187,6 +1191,13 @@ def fit_spin_decay_coherent(
     unit = "s" if per_time else "m"
     if not (lam_sig > 0 and math.isfinite(lam_sig) and math.isfinite(var_ref) and var_ref > 0):
         why = f"decay not measured: the coherent fit did not settle ({sol.message})"
+        return SpinDecay(per, x0, None, None, None, None, None, None, 0, math.nan, "coherent phase fit", why)
+    if abs(lam) * x_span > MAX_DECAY_OVER_SERIES:
+        why = (
+            f"decay not measured: the coherent fit wants the spin to change by a factor "
+            f"{math.exp(abs(lam) * x_span):.2g} within the series (more than e): the brightness is not a "
+            "clean flicker"
+        )
         return SpinDecay(per, x0, None, None, None, None, None, None, 0, math.nan, "coherent phase fit", why)
     method = f"coherent phase fit of {int(keep.sum())} samples, exponential in {per}" + (
         f" ({n - int(keep.sum())} outliers left out)" if not np.all(keep) else ""

@@ -12,10 +12,12 @@ import argparse
 from hopscope import options
 from hopscope.console import summary, warn
 from hopscope.fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
+from hopscope.fitting.spin import SpinOptions, measure_shot_spin
 from hopscope.folders import check_output_file
 from hopscope.inputs import shots_from_tracks
 from hopscope.shared.fileio import atomic_path
 from hopscope.summaries import profile_rows
+from hopscope.tracker.trackfile import read_track
 
 NAME = "profile"
 HELP = "pool shots of one BB type into a drag/lift profile (C_D vs Reynolds number, C_L per shot)"
@@ -51,6 +53,27 @@ def register(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def measured_spin_radps(records) -> dict[str, float]:
+    """Spin (rad/s) from the brightness flicker of each shot of the marked-BB tracks (polarity ``marked``),
+    by shot label: at the first tracked point where the flicker shows the decay, else over the shot's few
+    milliseconds. A shot whose flicker gives no rate (aliased without a prior, too short, no significant
+    flicker) is left out with a warning saying why."""
+    out: dict[str, float] = {}
+    for rec in records:
+        track = read_track(rec["path"])
+        if track.meta.polarity != "marked":
+            continue
+        opts = SpinOptions(exposure_s=track.meta.exposure_s or 0.0)
+        for label, sid in zip(rec["shots"], track.shot_ids, strict=True):
+            pts = track.select_shot(sid)
+            spin = measure_shot_spin(pts.t_s, pts.brightness, first_t_s=pts.t_s[0], options=opts)
+            if spin.rate_radps is None:
+                warn(f"{label}: spin not measured from the marked BB's flicker: {spin.reason}")
+            else:
+                out[label] = spin.rate_radps
+    return out
+
+
 def run(args: argparse.Namespace) -> int:
     out = check_output_file(args.output)
     if out.suffix.lower() != ".json":
@@ -63,12 +86,14 @@ def run(args: argparse.Namespace) -> int:
     shots = list(tracks.shots)
     if len(shots) < 2:
         raise ValueError(f"{', '.join(args.tracks)}: a profile needs at least two shots, found {len(shots)}")
+    spins = measured_spin_radps(tracks.records)
     prof = build_profile(
         shots,
         bb=bb,
         air=air,
         label=args.label,
         n_bins=min(args.bins, len(shots)),
+        spin_radps=[spins.get(s.label) for s in shots],
         assumed_lift_k=args.assumed_lift_k,
     )
     csv_path = out.with_suffix(".csv")
