@@ -23,6 +23,7 @@ import argparse
 
 from hopscope import options
 from hopscope.console import warn
+from hopscope.decision_summaries import decisions_table
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
 from hopscope.pipeline import RunOutcome, run_to_folder
 from hopscope.summaries import show_run
@@ -48,6 +49,8 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
 def report_outcome(outcome: RunOutcome, title: str = "hopscope run") -> int:
     """Print the parameter table, the run summary and the fit's warnings; the exit code."""
     show_run(outcome, title)
+    if outcome.fitted.decisions is not None:
+        print(decisions_table(outcome.fitted.decisions))
     return EXIT_OK if outcome.fitted.result.converged else EXIT_UNEXPECTED
 
 

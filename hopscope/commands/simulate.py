@@ -20,13 +20,20 @@ from pathlib import Path
 import numpy as np
 
 from hopscope.console import summary, warn
+from hopscope.decisions import tolerance_of_file
 from hopscope.fitting.air import Air
-from hopscope.fitting.bb import BB
+from hopscope.fitting.bb import BB, DEFAULT_MASS_REL_SIGMA
 from hopscope.fitting.fitfile import read_fit
 from hopscope.fitting.flyto import MAX_FLIGHT_S, fly_shots_to
 from hopscope.fitting.laws import LinearLift, SaturatingLift
 from hopscope.fitting.observe import ModelSpec, RowParams
-from hopscope.options import add_air_options, add_bb_options, air_from_args, bb_from_args
+from hopscope.options import (
+    add_air_options,
+    add_bb_options,
+    air_from_args,
+    bb_from_args,
+    bb_tolerance_from_args,
+)
 from hopscope.shared.constants import (
     DEFAULT_BB_DIAMETER_M,
     MAX_PLAUSIBLE_SPEED_MPS,
@@ -140,6 +147,8 @@ class ShotInputs:
     spin_decay_s: float  # inf: no decay
     source: str
     warnings: tuple[str, ...]
+    #: the BB mass's relative standard uncertainty (--mass-g M:SIGMA, the fit's, or the default)
+    mass_rel_sigma: float = DEFAULT_MASS_REL_SIGMA
 
 
 # --------------------------------------------------------------------------------------------- validation
@@ -218,7 +227,8 @@ def _manual_inputs(args: argparse.Namespace) -> ShotInputs:
             )
         tau = float(args.spin_decay_s)
     air, note = _air_from_args(args)
-    return ShotInputs(bb, air, note, speed, deg_to_rad(elevation), cd, cl, tau, "command line", ())
+    rel = bb_tolerance_from_args(args, bb).mass_rel(bb)
+    return ShotInputs(bb, air, note, speed, deg_to_rad(elevation), cd, cl, tau, "command line", (), rel)
 
 
 # ---------------------------------------------------------------------------------------------- fit.json
@@ -292,8 +302,10 @@ def _fit_inputs(args: argparse.Namespace) -> ShotInputs:
         air = fit.air
         note = f"from the fit ({path})"
     source = f"{path} (shots[0]; path starts at its first tracked point)"
+    tol = tolerance_of_file(fit)
+    rel = DEFAULT_MASS_REL_SIGMA if tol is None else tol.mass_rel(fit.bb)
     return ShotInputs(
-        fit.bb, air, note, speed, deg_to_rad(elevation_deg), cd, cl, tau, source, tuple(warnings)
+        fit.bb, air, note, speed, deg_to_rad(elevation_deg), cd, cl, tau, source, tuple(warnings), rel
     )
 
 
@@ -422,7 +434,10 @@ def _summary(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace) ->
     v_end = float(np.linalg.norm(end[3:6]))
     rows = [
         ("muzzle speed", f"{v0:.1f} m/s ({mps_to_fps(v0):.0f} fps)"),
-        ("muzzle energy", f"{0.5 * m * v0 * v0:.3f} J"),
+        (
+            "muzzle energy",
+            f"{0.5 * m * v0 * v0:.3f} ± {0.5 * m * v0 * v0 * shot.mass_rel_sigma:.2g} J (BB mass tolerance)",
+        ),
         ("air density", f"{shot.air.density_kgm3:.4f} kg/m³"),
         ("max height", f"{float(np.max(path.state[:, 1])):+.3f} m (above launch)"),
     ]

@@ -222,3 +222,16 @@ def test_report_shows_the_group_the_limit_the_path_verdict_and_the_prediction(tm
     assert "speed at 25 m" in html and 'id="prediction"' in html
     assert 'id="bb-tolerance"' in html
     assert "lift/weight" not in html  # the ratio verdict is replaced by the path's
+
+
+def test_simulate_shows_the_mass_tolerance_in_the_energy(tmp_path, capsys):
+    argv = ["simulate", "--mass-g", "0.25:0.005", "--speed-mps", "95", "--elevation-deg", "0", "--cd", "0.42",
+            "--lift-coefficient", "0.03", "--range-m", "20", "-o", str(tmp_path / "p.csv")]  # fmt: skip
+    rc, text, err = _cli(capsys, argv)
+    assert rc == EXIT_OK, err
+    m = re.search(r"muzzle energy +([\d.]+) ± ([\d.]+) J \(BB mass tolerance\)", text)
+    assert m, text
+    assert float(m[2]) == pytest.approx(float(m[1]) * 0.005 / 0.25, rel=0.05)  # shown to two digits
+    argv[2] = "0.25:0.25"
+    rc, _, err = _cli(capsys, argv)
+    assert rc == EXIT_BAD_INPUT and "--mass-g" in err and len(err.strip().splitlines()) == 1
