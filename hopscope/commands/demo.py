@@ -9,8 +9,10 @@ reaches the stages except through those options. Finally it prints the recovered
 ones: speed and elevation at the first tracked point, C_D, C_L0 and τ, each with the fit's ±σ and the
 deviation in σ units, plus the wall and CPU time.
 
-Outputs in DIR: ``rig.json``, ``track.csv``, ``overlay.png``, ``fit.json``, ``report.html`` and the
-scene's folder. Exit codes as for ``hopscope run``.
+Outputs in DIR: ``rig.json``, ``track.csv``, ``overlay.png``, ``fit.json``, ``report.html`` (with its
+figures) and the scene's folder; DIR is held like a run's folder (lock, manifest of what was written:
+:mod:`hopscope.folders`). A render that fails or is interrupted removes its half-written scene folder.
+Exit codes as for ``hopscope run``; Ctrl-C exits 130.
 """
 
 from __future__ import annotations
