@@ -10,11 +10,13 @@ from __future__ import annotations
 import json
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
 
 from hopscope import cli
+from hopscope.decisions import VERDICT_SAMPLES as DECISION_VERDICT_SAMPLES
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.bb import DEFAULT_DIAMETER_SIGMA_M, DEFAULT_MASS_REL_SIGMA
 
@@ -235,3 +237,26 @@ def test_simulate_shows_the_mass_tolerance_in_the_energy(tmp_path, capsys):
     argv[2] = "0.25:0.25"
     rc, _, err = _cli(capsys, argv)
     assert rc == EXIT_BAD_INPUT and "--mass-g" in err and len(err.strip().splitlines()) == 1
+
+
+def test_readme_states_the_conventions_the_code_uses():
+    from hopscope.fitting import compare, energy_limit, forecast, plausibility, verdict
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("## Decisions: our conventions") :]
+    section = section[: section.index("\n## ", 5)]
+    assert f"exceeds {energy_limit.COVERAGE_FACTOR:g}σ" in section
+    assert f"`--muzzle-height-m` (default {forecast.DEFAULT_MUZZLE_HEIGHT_M:g} m)" in section
+    assert f"`--engagement-m` (default {verdict.DEFAULT_ENGAGEMENT_M:g} m)" in section
+    assert f"`--band-m` (default {forecast.DEFAULT_BAND_M:g} m)" in section
+    assert (
+        f"at least {100 * verdict.MIN_VERDICT_PROBABILITY:g} % of {DECISION_VERDICT_SAMPLES} draws" in section
+    )
+    assert f"(default {compare.DEFAULT_ALPHA:g}" in section
+    assert f"slope exceeds {compare.SLOPE_MIN_SIGMAS:g} standard" in section
+    assert f"good to {100 * DEFAULT_MASS_REL_SIGMA:g} %" in section
+    assert f"{1e3 * DEFAULT_DIAMETER_SIGMA_M:g} mm" in section
+    lo, hi = plausibility.PLAUSIBLE_CD
+    assert (
+        f"C_D outside {lo:.2f}–{hi:.2f}" in section and f"to {plausibility.PLAUSIBLE_CL_MAX:.2f}" in section
+    )
