@@ -637,12 +637,13 @@ def marked_ball_model(p: np.ndarray, x: np.ndarray, y: np.ndarray, background: n
 def _numeric_jacobian(
     fun: Callable[[np.ndarray], np.ndarray], p: np.ndarray, steps: np.ndarray
 ) -> np.ndarray:
-    """Central-difference Jacobian of ``fun`` at ``p`` with per-parameter ``steps``."""
+    """Forward-difference Jacobian of ``fun`` at ``p`` with per-parameter ``steps``."""
+    base = fun(p)
     cols = []
     for i, h in enumerate(steps):
         dp = np.zeros_like(p)
         dp[i] = h
-        cols.append((fun(p + dp) - fun(p - dp)) / (2.0 * h))
+        cols.append((fun(p + dp) - base) / h)
     return np.column_stack(cols)
 
 
