@@ -31,6 +31,7 @@ from .. import __version__
 from ..decisions import Convention
 from ..inputs import match_track_to_fit
 from . import figures, tables
+from .decision_figures import forecast_figure
 from .decision_sections import decision_section
 
 #: Safety cautions shown on every report (and in the README).
@@ -251,6 +252,19 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
                 + " ".join(n[0].upper() + n[1:] + "." for n in spread.notes),
             )
         )
+    if decided.decisions is not None:  # each shot's predicted path to the ground, with the verdict's band
+        d = decided.decisions
+        titles["prediction"] = "Predicted paths from the muzzle to the ground"
+        figs.append(
+            (
+                "prediction",
+                forecast_figure(d.forecasts, band_m=d.convention.band_m, engagement_m=d.convention.engagement_m,
+                                title=titles["prediction"]),
+                f"Each shot flown level from {d.convention.muzzle_height_m:g} m with its ±1σ band over the fit's "
+                f"covariance; dashed: the ±{d.convention.band_m:g} m band the hop verdict judges, and the "
+                "engagement range.",
+            )
+        )  # fmt: skip
     # the fit already carries its tracks' warnings (prefixed with the track's name); the rig's own come after
     warnings = list(dict.fromkeys([*fit.warnings, *decided.warnings, *tables.rig_warnings(inputs)]))
     if not fit.converged:

@@ -222,7 +222,7 @@ def test_report_shows_the_group_the_limit_the_path_verdict_and_the_prediction(tm
     assert 'id="hop-verdict"' in html and "hop-up adjuster" in html
     assert html.count("group.csv#") >= 3 * 3  # each shot in the verdict, muzzle and prediction tables
     assert "speed at 25 m" in html and 'id="prediction"' in html
-    assert 'id="bb-tolerance"' in html
+    assert 'id="bb-tolerance"' in html and 'id="fig-prediction"' in html
     assert "lift/weight" not in html  # the ratio verdict is replaced by the path's
 
 
