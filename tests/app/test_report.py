@@ -31,8 +31,9 @@ from track_synth import simple_rig
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "test-artifacts"
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
-#: plane, residuals, speed/lift, range, and (two shots or more) the spread behind the effective range
-N_FIGURES = 5
+#: plane, residuals, speed/lift, range, (two shots or more) the spread behind the effective range, and the
+#: predicted paths from the muzzle height (when the fit converged)
+N_FIGURES = 6
 
 
 @pytest.fixture(scope="module")

@@ -114,7 +114,10 @@ def test_run_one_clip_writes_everything(one_run):
 
 
 #: The report's figures, also written beside it (sorted by name; two shots or more add the spread figure).
-ONE_SHOT_FIGURES = ["figure_plane.png", "figure_range.png", "figure_residuals.png", "figure_speed-lift.png"]
+ONE_SHOT_FIGURES = [
+    "figure_plane.png", "figure_prediction.png", "figure_range.png", "figure_residuals.png",
+    "figure_speed-lift.png",
+]  # fmt: skip
 
 #: The fitted path, projected back into the image, passes the tracked points within this (px): the fit's
 #: residuals are a few tenths of a pixel on the small scene.
