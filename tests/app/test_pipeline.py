@@ -124,7 +124,8 @@ def test_calibrate_scene_writes_the_rig_with_the_parallax(scene):
     rig = read_rig(scene["rig_path"])
     assert rig.digest == scene["run"].rig.digest
     assert rig.plane_z_m == mm_to_m(PARALLAX_MM)
-    assert len(scene["run"].lens.views_used) == N_LENS_VIEWS
+    # the lens fit also uses the plane view (joint refinement of lens and plane poses)
+    assert len(scene["run"].lens.views_used) == N_LENS_VIEWS + len(scene["rendered"].plane_views)
 
 
 def test_track_to_files_writes_track_and_overlay(scene, tmp_path):
