@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,7 +18,10 @@ import pytest
 from hopscope import cli
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 
+from .browser import open_report
 from .groups_synth import write_group
+
+ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 
 BASE_CL = 0.02
 #: Shot-to-shot spread within a group: C_L0 (relative) and speed (m/s).
@@ -64,11 +68,11 @@ def three_settings(tmp_path_factory):
     out, page = tmp / "compare.json", tmp / "compare.html"
     rc = cli.main(["compare", *argv, "--mass-g", "0.25", "--muzzle-x-m", "0", "--limit-j", "1.3", *FAST,
                    "-o", str(out), "--report", str(page)])  # fmt: skip
-    return rc, json.loads(out.read_text()), page.read_text(encoding="utf-8")
+    return rc, json.loads(out.read_text()), page.read_text(encoding="utf-8"), page
 
 
 def test_a_25_percent_lift_difference_is_significant(three_settings):
-    rc, doc, _ = three_settings
+    rc, doc, _, _ = three_settings
     assert rc == EXIT_OK
     assert doc["schema"] == "hopscope.compare/1" and doc["alpha"] == 0.05 and doc["reference"] == "low"
     lift = next(
@@ -91,7 +95,7 @@ def test_a_25_percent_lift_difference_is_significant(three_settings):
 
 
 def test_each_group_has_its_statistics_range_verdict_and_energy(three_settings):
-    _, doc, _ = three_settings
+    _, doc, _, _ = three_settings
     assert [g["name"] for g in doc["groups"]] == ["low", "mid", "high"]
     assert [g["setting"] for g in doc["groups"]] == [1.0, 2.0, 3.0]
     for g in doc["groups"]:
@@ -111,7 +115,7 @@ def test_each_group_has_its_statistics_range_verdict_and_energy(three_settings):
 
 
 def test_tuning_recommends_a_setting_or_says_the_data_cannot_tell(three_settings):
-    _, doc, _ = three_settings
+    _, doc, _, _ = three_settings
     t = doc["tuning"]
     assert t is not None and t["engagement_m"] == 30.0
     assert t["slope"]["value"] > 0  # lift rises with the setting, as simulated
@@ -122,7 +126,7 @@ def test_tuning_recommends_a_setting_or_says_the_data_cannot_tell(three_settings
 
 
 def test_the_page_shows_groups_differences_and_the_caution(three_settings):
-    _, doc, html = three_settings
+    _, doc, html, _ = three_settings
     assert "Groups compared" in html and 'id="differences"' in html
     for name in ("low", "mid", "high"):
         assert f"<h3>{name} (setting" in html
@@ -185,3 +189,14 @@ def test_bad_groups_exit_2_with_one_line_and_write_nothing(tmp_path, capsys, gro
     assert len(err.strip().splitlines()) == 1, err
     assert re.search(match, err), err
     assert not out.exists()
+
+
+@pytest.mark.browser
+def test_compare_page_in_headless_chromium(three_settings):
+    _, doc, _, page_path = three_settings
+    page = open_report(page_path, ARTIFACTS / "compare.png")
+    assert page.console_errors == ()
+    assert {"Safety", "Groups", "Differences", "Tuning", "Tests"} <= set(page.headings)
+    assert sum(" (setting " in h for h in page.headings) == len(doc["groups"])  # one section per group
+    assert "Eye protection" in page.text and "significant" in page.text
+    assert (ARTIFACTS / "compare.png").stat().st_size > 10_000
