@@ -1,10 +1,14 @@
 """Camera model, grid detection, flight-plane pose, world frame, drop check and rig files.
 
-Flow: lens views → :func:`calibration.grid.detect_grid` → :func:`calibration.lens.calibrate_lens`
-(Zhang 2000); plane images → corners in reading order → :func:`calibration.plane.solve_plane` (joint PnP of
-all placements); :func:`calibration.build.make_rig` (with the bootstrap ensemble that carries the
-calibration's uncertainty); optional :func:`calibration.drop.check_drop` / :func:`calibration.drop.apply_level`.
-:func:`calibration.pipeline.calibrate_files` does all of it from file arguments.
+Flow: lens and plane images → :func:`calibration.grid.detect_grid` (every detector's corners, ``--grid`` in
+either order) → :func:`calibration.corners.choose_by_evidence` (per image, the corners with the smallest
+residual under a provisional lens model) → :func:`calibration.lens.calibrate_lens` (Zhang 2000; the plane
+views join the lens views) → :func:`calibration.plane.solve_plane` (joint PnP of all placements, their
+offsets solved with the tape as prior); :func:`calibration.build.make_rig` (with the bootstrap ensemble
+that carries the calibration's uncertainty); optional :func:`calibration.drop.check_drop` (release-aware,
+a typed :class:`calibration.dropcheck.DropCheck`) / :func:`calibration.drop.apply_level`.
+:func:`calibration.pipeline.calibrate_files` does all of it from file arguments, and refuses a rig that
+fails its own drop check unless asked to keep it (``drop_check.kept_by_user``).
 
 The product is a :class:`calibration.rig.Rig` (``rig.json``, schema ``hopscope.rig/1``): ``pixel_to_world``,
 ``world_to_pixel``, ``pixel_to_world_jacobian``, ``ensemble_pixel_to_world``, ``digest``; I/O
