@@ -148,7 +148,7 @@ def _quantity_value(q: str, v: float | None, unit: str) -> str:
 def compare_rows(o: CompareOutcome) -> Rows:
     """``hopscope compare``'s summary: each group, each difference with its test, flatter / more
     consistent, the tuning advice."""
-    from hopscope.groups import NAMES, UNITS
+    from hopscope.groups import NAMES, UNITS, group_stats
 
     rows: Rows = []
     for r in o.groups:
@@ -156,7 +156,7 @@ def compare_rows(o: CompareOutcome) -> Rows:
         setting = "" if s.setting is None else f" (setting {s.setting:g})"
         rows.append((f"group {s.name}{setting}", f"{s.n_shots} shot{'s' if s.n_shots != 1 else ''}"))
         for q in ("speed_mps", "energy_j", "lift_coefficient", "flat_distance_m"):
-            st = s.stats.get(q)
+            st = group_stats(r).get(q)
             if st is not None:
                 sd = "?" if st.sd is None else _quantity_value(q, st.sd, UNITS[q])
                 rows.append(

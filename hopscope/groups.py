@@ -52,6 +52,7 @@ from hopscope.fitting.dispersion import DEFAULT_BOOTSTRAP, DEFAULT_SHOTS, Disper
 from hopscope.fitting.energy_limit import CAUTION
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import estimate_to_dict
+from hopscope.fitting.muzzle import GroupStat
 from hopscope.fitting.verdict import PathVerdict, judge_group_hop_path
 from hopscope.shared.parse import finite_or_none
 
@@ -159,6 +160,17 @@ class GroupResult:
     shot_verdicts: tuple[PathVerdict, ...]
     spread: DispersionResult | None
     warnings: tuple[str, ...]
+
+
+def group_stats(r: GroupResult) -> dict[str, GroupStat]:
+    """The group's statistics per quantity; muzzle speed and energy from its muzzle state, whose mean
+    carries the shared errors too (calibration, and the BB mass for the energy). The differences use the
+    per-shot values only: one BB and one rig are common to every group and cancel."""
+    stats = dict(r.summary.stats)
+    m = r.decisions.muzzle
+    if m is not None:
+        stats["speed_mps"], stats["energy_j"] = m.speed_mps, m.energy_j
+    return stats
 
 
 @dataclass(frozen=True, eq=False)
@@ -270,7 +282,7 @@ def _group_dict(r: GroupResult) -> dict[str, Any]:
         "labels": list(s.labels),
         "converged": fit.converged,
         "drag_coefficient": estimate_to_dict(s.drag_coefficient),
-        "stats": {q: group_stat_to_dict(st) for q, st in s.stats.items()},
+        "stats": {q: group_stat_to_dict(st) for q, st in group_stats(r).items()},
         "per_shot": {q: [finite_or_none(float(x)) for x in v] for q, v in s.values.items()},
         "effective_range_m": er,
         "effective_range_reason": "" if sp is None else sp.reason,
@@ -374,6 +386,7 @@ __all__ = [
     "GroupResult",
     "GroupSpec",
     "check_groups",
+    "group_stats",
     "compare_to_dict",
     "compare_to_json",
     "compare_tracks",

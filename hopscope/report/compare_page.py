@@ -17,7 +17,7 @@ from hopscope.shared.units import mps_to_fps
 
 from .. import __version__
 from ..decision_summaries import LIMIT_WORDS, pm, verdict_text
-from ..groups import NAMES, TESTS, UNITS, CompareOutcome
+from ..groups import NAMES, TESTS, UNITS, CompareOutcome, group_stats
 from .build import CAUTIONS
 
 
@@ -33,7 +33,7 @@ def _group_rows(o: CompareOutcome) -> list[dict[str, Any]]:
         s = r.summary
         stats = []
         for q in ("speed_mps", "energy_j", "lift_coefficient", "flat_distance_m"):
-            st = s.stats.get(q)
+            st = group_stats(r).get(q)
             if st is None:
                 continue
             extra = ""
