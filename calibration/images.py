@@ -19,6 +19,7 @@ from typing import TypeVar
 import cv2
 import numpy as np
 
+from hopscope.shared.files import folder_files
 from hopscope.shared.parse import parse_finite
 from hopscope.shared.video import VIDEO_SUFFIXES, frame_count, iter_frames
 
@@ -61,9 +62,7 @@ def expand_views(items: Sequence[str], *, option: str = "--views") -> list[ViewS
     for item in items:
         p = Path(item)
         if p.is_dir():
-            files = sorted(f for f in p.iterdir() if f.is_file() and f.suffix.lower() in IMAGE_SUFFIXES)
-            if not files:
-                raise ValueError(f"{option} {item}: the folder holds no images ({', '.join(IMAGE_SUFFIXES)})")
+            files = folder_files(p, IMAGE_SUFFIXES, what="images", where=f"{option} {item}")
             out += [ViewSource(f, False) for f in files]
         elif p.is_file():
             out.append(ViewSource(p, p.suffix.lower() in VIDEO_SUFFIXES))

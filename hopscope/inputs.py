@@ -18,6 +18,7 @@ import numpy as np
 
 from hopscope.calibration.images import VIDEO_SUFFIXES
 from hopscope.fitting.observe import ShotData
+from hopscope.shared.files import folder_files
 from hopscope.tracker.trackfile import Track, read_track
 
 #: Two times closer than this are the same sample when a track is matched to a fit's residuals, s
@@ -167,10 +168,7 @@ def expand_videos(items: Sequence[str | os.PathLike[str]], *, option: str = "VID
     for item in items:
         p = Path(item)
         if p.is_dir():
-            found = sorted(f for f in p.iterdir() if f.is_file() and f.suffix.lower() in VIDEO_SUFFIXES)
-            if not found:
-                raise ValueError(f"{p}: the folder holds no video files ({', '.join(VIDEO_SUFFIXES)})")
-            out += found
+            out += folder_files(p, VIDEO_SUFFIXES, what="video files", where=str(p))
         elif p.is_file():
             out.append(p)
         else:
