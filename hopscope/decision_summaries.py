@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING
 
 from hopscope.console import summary
 from hopscope.shared.units import kg_to_grams, m_to_mm, mps_to_fps
+from hopscope.summaries import estimate_text
 
 if TYPE_CHECKING:  # types only
     from hopscope.decisions import FitDecisions
@@ -32,12 +33,8 @@ LIMIT_WORDS = {
 
 
 def pm(e: Estimate | None, fmt: str = ".4g", scale: float = 1.0) -> str:
-    """``value ± stderr`` (``± ?`` without a standard error; "not determined" without a value)."""
-    if e is None or e.value is None:
-        return "not determined"
-    if e.stderr is None:
-        return f"{e.value * scale:{fmt}} ± ?"
-    return f"{e.value * scale:{fmt}} ± {e.stderr * scale:.2g}"
+    """``value ± stderr`` (:func:`hopscope.summaries.estimate_text` with the format first)."""
+    return estimate_text(e, scale, fmt)
 
 
 def bb_share_text(e: Estimate | None) -> str:

@@ -15,7 +15,7 @@ writes ``compare.json``.
     bb {"mass_kg", "diameter_m", "mass_sigma_kg", "diameter_sigma_m", "tolerance_origin"}; air; model
     groups[]      {"name", "setting", "tracks", "n_shots", "labels", "converged",
                    "drag_coefficient" (estimate), "stats": {quantity: {"mean", "sd", "extreme_spread",
-                   "min", "max", "n"}}, "per_shot": {quantity: [values]},
+                   "min", "max", "n"}}, "values": {quantity: [per-shot values]},
                    "effective_range_m" (estimate or null), "effective_range_reason",
                    "hop_verdict": {"category", "exit_m", "probabilities", "adjuster", "detail"},
                    "energy_limit" (null without --limit-j), "warnings"}
@@ -47,11 +47,15 @@ from hopscope.fitting.compare import (
     summarize_group,
     tune,
 )
-from hopscope.fitting.decisionfile import energy_limit_to_dict, group_stat_to_dict
+from hopscope.fitting.decisionfile import (
+    COMPARE_SCHEMA,
+    comparison_to_dict,
+    energy_limit_to_dict,
+    group_stat_to_dict,
+)
 from hopscope.fitting.dispersion import DEFAULT_BOOTSTRAP, DEFAULT_SHOTS, DispersionResult, effective_range
 from hopscope.fitting.energy_limit import CAUTION
 from hopscope.fitting.estimate import fit_shots
-from hopscope.fitting.fitfile import estimate_to_dict
 from hopscope.fitting.muzzle import GroupStat
 from hopscope.fitting.verdict import PathVerdict, judge_group_hop_path
 from hopscope.shared.parse import finite_or_none
@@ -60,7 +64,7 @@ from .decisions import DECISION_SEED, VERDICT_SAMPLES, Convention, FitDecisions,
 from .inputs import shots_from_tracks
 from .pipeline import FitSettings
 
-SCHEMA = "hopscope.compare/1"
+SCHEMA = COMPARE_SCHEMA
 
 #: The unit of each compared quantity (SI), for the file and the page.
 UNITS = {
@@ -268,108 +272,65 @@ def _verdict_dict(v: PathVerdict) -> dict[str, Any]:
     }
 
 
-def _group_dict(r: GroupResult) -> dict[str, Any]:
-    s, fit = r.summary, r.decisions.fit
+def _group_extra(r: GroupResult) -> dict[str, Any]:
+    """What a group adds to :func:`fitting.decisionfile.comparison_to_dict`'s entry."""
     sp = r.spread
     er = None
     if sp is not None and sp.effective_range_m is not None:
         er = {"value": sp.effective_range_m, "stderr": finite_or_none(sp.effective_range_stderr_m)}
+    lim = r.decisions.energy_limit
     return {
-        "name": s.name,
-        "setting": s.setting,
         "tracks": [str(t) for t in r.spec.tracks],
-        "n_shots": s.n_shots,
-        "labels": list(s.labels),
-        "converged": fit.converged,
-        "drag_coefficient": estimate_to_dict(s.drag_coefficient),
+        "converged": r.decisions.fit.converged,
         "stats": {q: group_stat_to_dict(st) for q, st in group_stats(r).items()},
-        "per_shot": {q: [finite_or_none(float(x)) for x in v] for q, v in s.values.items()},
         "effective_range_m": er,
         "effective_range_reason": "" if sp is None else sp.reason,
         "hop_verdict": _verdict_dict(r.verdict),
         "shot_verdicts": [{"label": v.label, **_verdict_dict(v)} for v in r.shot_verdicts],
-        "energy_limit": None
-        if r.decisions.energy_limit is None
-        else energy_limit_to_dict(r.decisions.energy_limit),
+        "energy_limit": None if lim is None else energy_limit_to_dict(lim),
         "warnings": list(r.warnings),
     }
 
 
 def compare_to_dict(o: CompareOutcome) -> dict[str, Any]:
-    """The ``compare.json`` object (see the module docstring)."""
-    bb = o.settings.bb
+    """The ``compare.json`` object: :func:`fitting.decisionfile.comparison_to_dict` plus the app's
+    blocks (see the module docstring)."""
+    doc = comparison_to_dict([r.summary for r in o.groups], list(o.comparisons), o.tuning)
+    doc["alpha"] = o.alpha
+    for entry, r in zip(doc["groups"], o.groups, strict=True):
+        entry.update(_group_extra(r))
+    for d in doc["differences"]:
+        d["unit"] = UNITS.get(d["quantity"], "")
+    bb, air = o.settings.bb, o.settings.air
     tol = o.groups[0].decisions.fit.bb_tolerance
-    air = o.settings.air
-    diffs = [
-        {
-            "quantity": d.quantity,
-            "unit": UNITS.get(d.quantity, ""),
-            "a": d.a,
-            "b": d.b,
-            "value": finite_or_none(d.value),
-            "stderr": finite_or_none(d.stderr),
-            "test": d.test,
-            "p_value": finite_or_none(d.p_value),
-            "significant": d.significant,
-        }
-        for cmp in o.comparisons
-        for d in cmp.differences
-    ]
-    comps = [
-        {
-            "a": cmp.a,
-            "b": cmp.b,
-            "flatter": cmp.flatter,
-            "more_consistent": cmp.more_consistent,
-            "consistency_p_value": finite_or_none(cmp.consistency_p_value),
-            "notes": list(cmp.notes),
-        }
-        for cmp in o.comparisons
-    ]
-    tuning = None
-    if o.tuning is not None:
-        t = o.tuning
-        tuning = {
-            "setting": estimate_to_dict(t.setting) if t.setting is not None else None,
-            "reason": t.reason,
-            "slope": estimate_to_dict(t.slope),
-            "intercept": estimate_to_dict(t.intercept),
-            "target_lift_coefficient": finite_or_none(t.target_lift_coefficient),
-            "engagement_m": t.engagement_m,
-        }
     c = o.convention
-    return {
-        "schema": SCHEMA,
-        "alpha": o.alpha,
-        "tests": dict(TESTS),
-        "reference": o.groups[0].spec.name,
-        "convention": {
+    doc.update(
+        tests=dict(TESTS),
+        reference=o.groups[0].spec.name,
+        convention={
             "muzzle_height_m": c.muzzle_height_m,
             "band_m": c.band_m,
             "engagement_m": c.engagement_m,
             "muzzle_x_m": o.settings.muzzle_x_m,
         },
-        "bb": {
+        bb={
             "mass_kg": bb.mass_kg,
             "diameter_m": bb.diameter_m,
             "mass_sigma_kg": None if tol is None else tol.mass_sigma_kg,
             "diameter_sigma_m": None if tol is None else tol.diameter_sigma_m,
             "tolerance_origin": None if tol is None else tol.origin,
         },
-        "air": {
+        air={
             "density_kgm3": air.density_kgm3,
             "temperature_k": air.temperature_k,
             "pressure_pa": air.pressure_pa,
         },
-        "model": {"drag": o.settings.drag, "lift": o.settings.lift, "decay": o.settings.decay},
-        "groups": [_group_dict(r) for r in o.groups],
-        "differences": diffs,
-        "comparisons": comps,
-        "tuning": tuning,
-        "tuning_note": o.tuning_note,
-        "warnings": list(o.warnings),
-        "caution": CAUTION,
-    }
+        model={"drag": o.settings.drag, "lift": o.settings.lift, "decay": o.settings.decay},
+        tuning_note=o.tuning_note,
+        warnings=list(o.warnings),
+        caution=CAUTION,
+    )
+    return doc
 
 
 def compare_to_json(o: CompareOutcome) -> str:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from hopscope import cli
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.flyto import fly_shots_to
@@ -78,3 +79,13 @@ def write_group(path, **kw):
     """Write :func:`group_track` to ``path`` and return it."""
     path.write_text(track_to_csv(group_track(**kw)), encoding="utf-8")
     return path
+
+
+def run_cli(capsys, argv):
+    """(exit code, stdout, stderr) of ``hopscope ARGV`` (argparse's usage errors exit through SystemExit)."""
+    try:
+        rc = cli.main(argv)
+    except SystemExit as exc:
+        rc = exc.code
+    cap = capsys.readouterr()
+    return rc, cap.out, cap.err

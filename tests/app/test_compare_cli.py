@@ -19,6 +19,7 @@ from hopscope import cli
 from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 
 from .browser import open_report
+from .groups_synth import run_cli as _cli
 from .groups_synth import write_group
 
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
@@ -36,15 +37,6 @@ N_POINTS = 150
 FAST = ["--range-shots", "200", "--range-bootstrap", "0"]
 #: Of 10 seeds from one distribution at most this many may be called significant.
 MAX_FALSE_CALLS = 1
-
-
-def _cli(capsys, argv):
-    try:
-        rc = cli.main(argv)
-    except SystemExit as exc:
-        rc = exc.code
-    cap = capsys.readouterr()
-    return rc, cap.out, cap.err
 
 
 def _groups(tmp, specs):
@@ -82,9 +74,9 @@ def test_a_25_percent_lift_difference_is_significant(three_settings):
     )
     assert lift["significant"] is True and lift["p_value"] < doc["alpha"]
     low, mid = doc["groups"][0], doc["groups"][1]
-    means = [np.mean(g["per_shot"]["lift_coefficient"]) for g in (low, mid)]
+    means = [np.mean(g["values"]["lift_coefficient"]) for g in (low, mid)]
     assert lift["value"] == pytest.approx(means[1] - means[0], rel=1e-9)
-    sds = [np.std(g["per_shot"]["lift_coefficient"], ddof=1) for g in (low, mid)]
+    sds = [np.std(g["values"]["lift_coefficient"], ddof=1) for g in (low, mid)]
     assert lift["stderr"] == pytest.approx(
         np.hypot(*sds) / np.sqrt(N_SHOTS), rel=1e-9
     )  # Welch's standard error
@@ -101,7 +93,7 @@ def test_each_group_has_its_statistics_range_verdict_and_energy(three_settings):
     for g in doc["groups"]:
         assert g["n_shots"] == N_SHOTS and g["converged"]
         st = g["stats"]["speed_mps"]
-        v = g["per_shot"]["speed_mps"]
+        v = g["values"]["speed_mps"]
         assert st["sd"] == pytest.approx(np.std(v, ddof=1), rel=1e-9)
         assert st["extreme_spread"] == pytest.approx(np.ptp(v), rel=1e-9)
         assert g["effective_range_m"] is None or g["effective_range_m"]["value"] > 0

@@ -21,6 +21,7 @@ from hopscope.errors import EXIT_BAD_INPUT, EXIT_OK
 from hopscope.fitting.bb import DEFAULT_DIAMETER_SIGMA_M, DEFAULT_MASS_REL_SIGMA
 
 from .groups_synth import MASS_KG, write_group
+from .groups_synth import run_cli as _cli
 
 SPEED_MPS = 95.0
 TRUE_ENERGY_J = 0.5 * MASS_KG * SPEED_MPS**2
@@ -31,15 +32,6 @@ SAME_REL_TOL = 1e-9
 #: Energy within this fraction of the limit (either side) must read "within" (issue 13: within 2 %; with the
 #: default 1 % mass tolerance and the k = 2 rule the boundary sits at about 2.0 %, so probe inside it).
 WITHIN_FRACTION = 0.015
-
-
-def _cli(capsys, argv):
-    try:
-        rc = cli.main(argv)
-    except SystemExit as exc:
-        rc = exc.code
-    cap = capsys.readouterr()
-    return rc, cap.out, cap.err
 
 
 @pytest.fixture(scope="module")
