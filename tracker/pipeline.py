@@ -4,6 +4,12 @@ One streaming pass over the clip (memory bounded by the background window), then
 mapping through the rig. The result is a :class:`TrackResult`: the :class:`~tracker.trackfile.Track` (or
 the reason there is none), a summary for the user and what the overlay needs.
 
+Which track is the BB: every smooth track of either polarity (and, where the BB's image is large enough,
+of bright and dark halves fitted together as a marked ball) is judged by :mod:`tracker.select` (image size
+at the flight plane from the rig and ``bb_diameter_m``, ``speed_band_mps``, fall under gravity within a
+plausible lift, drag); the BB's tracks of the polarity with most points are the shots, the rest are counted
+in the summary with their reasons. Decoding runs in a thread (:func:`prefetched`).
+
 Uncertainty of a point: the fit's σ from the local noise (:mod:`tracker.localise`), then checked against the
 shot's own scatter about a smooth path (:func:`tracker.associate.scatter_ratio`) and scaled up by that
 ratio when it is larger than 1 (a warning when it exceeds :data:`SIGMA_SCALE_WARN`).
