@@ -436,7 +436,7 @@ def _summary(shot: ShotInputs, path: SimulatedPath, args: argparse.Namespace) ->
         ("muzzle speed", f"{v0:.1f} m/s ({mps_to_fps(v0):.0f} fps)"),
         (
             "muzzle energy",
-            f"{0.5 * m * v0 * v0:.3f} ± {0.5 * m * v0 * v0 * shot.mass_rel_sigma:.2g} J (BB mass tolerance)",
+            f"{0.5 * m * v0 * v0:.3f} J ± {0.5 * m * v0 * v0 * shot.mass_rel_sigma:.2g} J (BB mass tolerance)",
         ),
         ("air density", f"{shot.air.density_kgm3:.4f} kg/m³"),
         ("max height", f"{float(np.max(path.state[:, 1])):+.3f} m (above launch)"),

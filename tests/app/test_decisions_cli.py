@@ -223,7 +223,7 @@ def test_simulate_shows_the_mass_tolerance_in_the_energy(tmp_path, capsys):
             "--lift-coefficient", "0.03", "--range-m", "20", "-o", str(tmp_path / "p.csv")]  # fmt: skip
     rc, text, err = _cli(capsys, argv)
     assert rc == EXIT_OK, err
-    m = re.search(r"muzzle energy +([\d.]+) ± ([\d.]+) J \(BB mass tolerance\)", text)
+    m = re.search(r"muzzle energy +([\d.]+) J ± ([\d.]+) J \(BB mass tolerance\)", text)
     assert m, text
     assert float(m[2]) == pytest.approx(float(m[1]) * 0.005 / 0.25, rel=0.05)  # shown to two digits
     argv[2] = "0.25:0.25"
