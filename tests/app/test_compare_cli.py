@@ -192,3 +192,30 @@ def test_compare_page_in_headless_chromium(three_settings):
     assert sum(" (setting " in h for h in page.headings) == len(doc["groups"])  # one section per group
     assert "Eye protection" in page.text and "significant" in page.text
     assert (ARTIFACTS / "compare.png").stat().st_size > 10_000
+
+
+#: Lift coefficients at the muzzle that make a 95 m/s, 0.25 g BB drop out of, stay in and climb out of the
+#: ±0.15 m band over 30 m (invented demo values; the verdict is read off the predicted path).
+HOP_LIFTS = {"under-hopped": 0.010, "flat": 0.024, "over-hopped": 0.045}
+
+
+@pytest.mark.slow
+def test_the_hop_verdict_agrees_with_the_predicted_path(tmp_path, capsys):
+    argv = _groups(tmp_path, [(name, cl, 30 + i) for i, (name, cl) in enumerate(HOP_LIFTS.items())])
+    out = tmp_path / "c.json"
+    rc, _, err = _cli(
+        capsys, ["compare", *argv, "--mass-g", "0.25", "--muzzle-x-m", "0", *FAST, "-o", str(out)]
+    )
+    assert rc == EXIT_OK, err
+    doc = json.loads(out.read_text())
+    engagement = doc["convention"]["engagement_m"]
+    for g in doc["groups"]:
+        v = g["hop_verdict"]
+        assert v["category"] == g["name"], v
+        flats = g["values"]["flat_distance_m"]
+        if g["name"] == "flat":
+            assert v["exit_m"] is None and min(flats) >= engagement  # every path stays in the band
+            assert "leave the hop-up adjuster" in v["adjuster"]
+        else:  # the group's (mean) path leaves the band where its shots' paths do
+            assert v["exit_m"] < engagement and min(flats) <= v["exit_m"] <= max(flats)
+            assert ("more hop" if g["name"] == "under-hopped" else "less hop") in v["adjuster"]
