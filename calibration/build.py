@@ -35,6 +35,9 @@ from .rig import CameraState, Rig
 #: Ensemble members by default: enough for a spread to ±15 % (1/sqrt(2K)) at a second or two of work.
 DEFAULT_ENSEMBLE_SIZE = 24
 
+#: Pixel grid (columns, rows) over the frame on which two distortion models' mappings are compared.
+MODEL_PROBE_GRID = (9, 5)
+
 #: Standard error of a taped downrange offset, m. # common practice, no published source (a steel tape
 #: read to the millimetre over a few tens of metres, held straight along the flight line).
 DEFAULT_OFFSET_SIGMA_M = 1.0e-3
@@ -76,8 +79,8 @@ def build_ensemble(
     plane_z_m: float = 0.0,
     plane_z_sigma_m: float = 0.0,
     rng: int | np.random.Generator | None = None,
-) -> tuple[CameraState, ...]:
-    """Perturbed camera states that carry the calibration's uncertainty.
+) -> tuple[tuple[CameraState, ...], ModelChoice | None]:
+    """Perturbed camera states that carry the calibration's uncertainty, and the distortion-model check.
 
     Each member: bootstrap resample of the lens views (with replacement) → cv2.calibrateCamera from the
     nominal solution; plane corners + N(0, σ²) (σ from :func:`plane_corner_sigma_px`); the taped offsets
@@ -88,7 +91,9 @@ def build_ensemble(
     the board drawn independently at the left and right edges of the field, z ± N(0, plane_z_sigma_m²)
     each, which gives the member both an offset and a slope (a flight line not quite parallel to the
     board: its changing depth changes the apparent scale along the path, which a single camera cannot
-    see and which biases the drag coefficient, so it belongs in the error bars).
+    see and which biases the drag coefficient, so it belongs in the error bars). When the other k3 choice
+    maps the field differently by more than this spread (:func:`model_choice`), every other member is
+    drawn with that model instead.
     """
     gen = _rng(rng)
     used = {s for s in lens.views_used}
@@ -104,12 +109,12 @@ def build_ensemble(
     sigma = plane_corner_sigma_px(plane, len(image0), lens)
     start = (cv2.Rodrigues(plane.rotation)[0], plane.translation)
     x_left, x_right = _field_x_extent(lens, plane)
-    members = []
-    for _ in range(size):
+
+    def member(model: LensCalibration) -> CameraState:
         idx = gen.integers(0, n, n)
         while len(set(idx.tolist())) < min(3, n):
             idx = gen.integers(0, n, n)
-        k, d = recalibrate([views[i] for i in idx], lens)
+        k, d = recalibrate([views[i] for i in idx], model)
         taped = np.array([p.offset_m for p in placements], float)
         drawn = taped.copy()
         drawn[1:] += gen.normal(0.0, offset_sigma_m, len(taped) - 1)  # the tape's own error, as a prior
@@ -131,8 +136,87 @@ def build_ensemble(
             z_left, z_right = plane_z_m + gen.normal(0.0, plane_z_sigma_m, 2)
             slope = (z_right - z_left) / (x_right - x_left)
             z0 = z_left - slope * x_left
-        members.append(CameraState(k, d, rot, t, z0, slope))
-    return tuple(members)
+        return CameraState(k, d, rot, t, z0, slope)
+
+    members = [member(lens) for _ in range(size)]
+    if not members:
+        return (), None
+    alt = model_choice(views, lens, placements, spec, plane, members)
+    if alt.included and alt.lens is not None:  # every other member from the other model, own resample
+        members[1::2] = [member(alt.lens) for _ in members[1::2]]
+    return tuple(members), alt
+
+
+@dataclass(frozen=True, eq=False)
+class ModelChoice:
+    """The other reasonable distortion model and what it does to the mapping over the field.
+
+    Attributes
+    ----------
+    distortion_model : its terms (k3 kept or dropped, the opposite of the nominal choice).
+    max_difference_m : distance between its mapping and the nominal one where it is largest in units of
+        the noise ensemble's spread, m.
+    noise_spread_m : the noise ensemble's RMS spread at that point, m.
+    included : the difference exceeds the spread, so half the ensemble uses this model.
+    lens : the lens calibration with this model (None when not fitted).
+    """
+
+    distortion_model: str
+    max_difference_m: float
+    noise_spread_m: float
+    included: bool
+    lens: LensCalibration | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "alternative": self.distortion_model,
+            "max_difference_m": self.max_difference_m,
+            "noise_spread_m": self.noise_spread_m,
+            "included": self.included,
+        }
+
+
+def model_choice(
+    views: Sequence[ViewPoints],
+    lens: LensCalibration,
+    placements: Sequence[Placement],
+    spec: GridSpec,
+    plane: PlanePose,
+    members: Sequence[CameraState],
+) -> ModelChoice:
+    """Compare the mapping of the other k3 choice (kept ↔ dropped) with the nominal over the field.
+
+    The alternative lens is fitted on the same views, the plane posed through it on the same corners; the
+    two mappings are compared on a grid over the whole frame (:data:`MODEL_PROBE_GRID`), each difference
+    against the noise ensemble's spread at that point. When it is larger, the model choice is part
+    of the uncertainty (the issue's rule: two reasonable models that disagree by more than the noise both
+    belong in the ensemble).
+    """
+    other = "free" if lens.flags & cv2.CALIB_FIX_K3 else "off"
+    alt_lens = dataclasses.replace(lens, k3_rule=other)
+    k, d = recalibrate(views, alt_lens)
+    flags = lens.flags | cv2.CALIB_FIX_K3 if other == "off" else lens.flags & ~cv2.CALIB_FIX_K3
+    alt_lens = dataclasses.replace(alt_lens, camera_matrix=k, dist_coeffs=d, flags=flags)
+    world = placement_world_points(spec, placements)
+    image = np.concatenate([p.image_points for p in placements])
+    rot, t = solve_pose(world, image, k, d, start=(cv2.Rodrigues(plane.rotation)[0], plane.translation))
+    nominal = CameraState(lens.camera_matrix, lens.dist_coeffs, plane.rotation, plane.translation)
+    alternative = CameraState(k, d, rot, t)
+    w, h = lens.image_size
+    gu, gv = np.meshgrid(
+        np.linspace(0, w - 1, MODEL_PROBE_GRID[0]), np.linspace(0, h - 1, MODEL_PROBE_GRID[1])
+    )
+    uv = np.column_stack([gu.ravel(), gv.ravel()])
+    base = nominal.pixel_to_world(uv)
+    diff = np.linalg.norm(alternative.pixel_to_world(uv) - base, axis=1)
+    name = distortion_model(alt_lens.flags)
+    if not members or not np.any(np.isfinite(diff)):
+        return ModelChoice(name, float("nan"), float("nan"), False, alt_lens)
+    spread = np.sqrt(
+        np.nanmean([np.sum((m.pixel_to_world(uv) - base) ** 2, axis=1) for m in members], axis=0)
+    )
+    i = int(np.nanargmax(diff / np.maximum(spread, 1e-12)))  # where the models differ most, in noise units
+    return ModelChoice(name, float(diff[i]), float(spread[i]), bool(diff[i] > spread[i]), alt_lens)
 
 
 def _field_x_extent(lens: LensCalibration, plane: PlanePose) -> tuple[float, float]:
@@ -198,7 +282,7 @@ def make_rig(
             f"parallax: the flight plane {plane_z_m * 1e3:g} mm in front of the board would be at or behind "
             f"the camera ({centre_z:.3f} m from the board)"
         )
-    members = build_ensemble(
+    members, choice = build_ensemble(
         lens_views, lens, placements, spec, plane, size=ensemble_size, offset_sigma_m=offset_sigma_m,
         plane_z_m=plane_z_m, plane_z_sigma_m=plane_z_sigma_m, rng=rng,
     )  # fmt: skip
@@ -242,8 +326,11 @@ def make_rig(
         },
         "ensemble": {
             "size": ensemble_size,
-            "method": "bootstrap over lens views (k3 rule repeated) + plane-corner noise + taped-offset error"
-            + (" + parallax error" if plane_z_sigma_m > 0 else ""),
+            "method": "bootstrap over lens views (k3 rule repeated) + plane-corner noise + taped offsets as the "
+            "prior of a joint pose and offset solve"
+            + (" + parallax error" if plane_z_sigma_m > 0 else "")
+            + (" + the other distortion model in every other member" if choice and choice.included else ""),
+            "model_choice": None if choice is None else choice.to_dict(),
         },
     }
     if provenance:

@@ -232,3 +232,23 @@ def test_offsets_are_solved_with_the_tape_as_prior():
     wrong = [*placements[:2], Placement(placements[2].source, placements[2].image_points, 2.02)]
     bad = solve_plane(wrong, BOARD, CLOSE_K, CLOSE_DIST, lens_rms_px=0.07, offset_sigma_m=1e-3)
     assert any("plane2.png" in w and "the tape at 2.02 m" in w for w in bad.warnings)
+
+
+def test_model_choice_joins_the_ensemble_only_beyond_the_noise():
+    from hopscope.calibration.build import model_choice
+    from hopscope.calibration.lens import distortion_model
+    from hopscope.calibration.rig import CameraState
+
+    truth, views, lens, placements, rng = _close_setup(seed=13)
+    plane = solve_plane(placements, BOARD, lens.camera_matrix, lens.dist_coeffs)
+    nominal = CameraState(lens.camera_matrix, lens.dist_coeffs, plane.rotation, plane.translation)
+    # a noise ensemble without spread: any difference of the other model is beyond it
+    tight = model_choice(views, lens, placements, BOARD, plane, [nominal] * 3)
+    assert tight.distortion_model != distortion_model(lens.flags)
+    assert tight.max_difference_m > 0 and tight.included
+    # an ensemble spread far wider than the models' difference leaves the choice out
+    far = CameraState(
+        lens.camera_matrix, lens.dist_coeffs, plane.rotation, plane.translation + [0.5, 0.0, 0.0]
+    )
+    loose = model_choice(views, lens, placements, BOARD, plane, [far] * 3)
+    assert not loose.included and loose.noise_spread_m > loose.max_difference_m
