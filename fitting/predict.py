@@ -29,6 +29,13 @@ DEFAULT_SAMPLES = 300
 BAND_POINTS = 80
 #: Longest flight predicted, s.
 MAX_TIME_S = 10.0
+#: Range given to the predictor for a fitted path over the tracked span, m: far beyond any field, so the
+#: span's time ends the path first.
+SPAN_RANGE_M = 1e3
+#: Shortest tracked span a fitted path is drawn over, s (a shot of one point still gets a path).
+MIN_SPAN_S = 1e-6
+#: Points of a fitted path over the tracked span.
+DEFAULT_SPAN_POINTS = 300
 
 
 @dataclass(frozen=True, eq=False)
@@ -135,6 +142,55 @@ def predict_path(
         y_sig = np.interp(x, band_x, ys_sd)
         v_sig = np.interp(x, band_x, vs_sd)
     return PredictedPath(fm.labels[shot], t, x, y, speed, y_sig, v_sig, reached, n_samples)
+
+
+def tracked_span_s(fit: FlightFit | FitFile, shot: int) -> float:
+    """Time from a shot's first tracked point to its last fitted point, s (at least :data:`MIN_SPAN_S`)."""
+    if isinstance(fit, FlightFit):
+        if not (isinstance(shot, int | np.integer) and 0 <= shot < len(fit.shots)):
+            raise ValueError(f"shot: expected an index 0..{len(fit.shots) - 1}, got {shot!r}")
+        s = fit.shots[shot]
+        last, first = float(s.residual_t_s[-1]), float(s.t0_s)
+    elif isinstance(fit, FitFile):
+        if not (isinstance(shot, int | np.integer) and 0 <= shot < fit.n_shots):
+            raise ValueError(f"shot: expected an index 0..{fit.n_shots - 1}, got {shot!r}")
+        d = fit.shot(shot)
+        last, first = float(d["residuals"]["t_s"][-1]), float(d["initial"]["t_s"])
+    else:
+        raise ValueError(f"fit: expected a FlightFit or FitFile, got {type(fit).__name__}")
+    return max(last - first, MIN_SPAN_S)
+
+
+def fitted_span_path(
+    fit: FlightFit | FitFile,
+    *,
+    shot: int = 0,
+    points: int = DEFAULT_SPAN_POINTS,
+    n_samples: int = 0,
+    rng: int | np.random.Generator | None = None,
+) -> PredictedPath:
+    """The fitted path of one shot over its tracked span (first to last fitted point), with a ±1σ band
+    from ``n_samples`` parameter samples (0: none), on ``points`` equal time steps.
+
+    Parameters
+    ----------
+    fit : the fit (result or file; the span comes from its residuals' times).
+    shot : which shot (index).
+    points : time steps over the span (≥ 1).
+    n_samples, rng : as for :func:`predict_path`.
+    """
+    if not (isinstance(points, int) and points >= 1):
+        raise ValueError(f"points must be a positive integer, got {points!r}")
+    span = tracked_span_s(fit, shot)
+    return predict_path(
+        fit,
+        shot=shot,
+        range_m=SPAN_RANGE_M,
+        max_time_s=span,
+        sample_s=span / points,
+        n_samples=n_samples,
+        rng=rng,
+    )
 
 
 def heights_at(traj: Trajectory, x_m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

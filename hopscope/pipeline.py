@@ -26,7 +26,7 @@ from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB, BBTolerance
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from hopscope.fitting.fitfile import fit_to_dict, fit_to_json
-from hopscope.fitting.predict import predict_path
+from hopscope.fitting.predict import fitted_span_path
 from hopscope.fitting.spin import (
     ShotSpin,
     SpinOptions,
@@ -44,7 +44,7 @@ from .decisions import Convention, FitDecisions, decide, with_decisions
 from .folders import RunFolder, run_folder
 from .inputs import expand_videos, shots_from_track, shots_from_tracks
 from .report import load_report_inputs, write_report
-from .report.build import DEFAULT_RANGE_M, SPAN_RANGE_M
+from .report.build import DEFAULT_RANGE_M
 from .scene_calibration import calibrate_scene
 
 # re-exported: their documented place (DEVELOPERS.md) and the tests' import
@@ -328,11 +328,7 @@ def fitted_paths_px(fit: FlightFit, rig: Rig, *, points: int = 200) -> dict[str,
     """
     out = {}
     for i, shot in enumerate(fit.shots):
-        span = float(shot.residual_t_s[-1] - shot.t0_s)
-        span = max(span, 1e-6)
-        path = predict_path(
-            fit, shot=i, range_m=SPAN_RANGE_M, max_time_s=span, n_samples=0, sample_s=span / points
-        )
+        path = fitted_span_path(fit, shot=i, points=points)
         out[shot.label] = rig.world_to_pixel(np.column_stack([path.x_m, path.y_m]))
     return out
 

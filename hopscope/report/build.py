@@ -22,7 +22,7 @@ from hopscope.calibration.rig import Rig, read_rig
 from hopscope.fitting.dispersion import effective_range
 from hopscope.fitting.fitfile import FitFile, read_fit
 from hopscope.fitting.predict import DEFAULT_RANGE_M as PREDICT_DEFAULT_RANGE_M
-from hopscope.fitting.predict import predict_path
+from hopscope.fitting.predict import fitted_span_path, predict_path
 from hopscope.fitting.verdict import lift_profile
 from hopscope.shared.fileio import write_bytes_atomic, write_text_atomic
 from hopscope.tracker.trackfile import Track, read_track
@@ -47,8 +47,6 @@ DEFAULT_RANGE_M = PREDICT_DEFAULT_RANGE_M
 
 #: Samples of the fit's covariance behind the ±1σ bands (fixed seed: the report is reproducible).
 BAND_SAMPLES = 200
-#: Range given to the predictor when only the tracked span is wanted (it stops at the span's time first).
-SPAN_RANGE_M = 1e3
 BAND_SEED = 20261201
 
 
@@ -146,12 +144,8 @@ def _shot_curves(inputs: ReportInputs) -> list[figures.ShotCurves]:
         dx = np.asarray(res["dx_m"], dtype=float)
         dy = np.asarray(res["dy_m"], dtype=float)
         t0 = float(shot["initial"]["t_s"])
-        duration = max(float(t[-1] - t0), 1e-6)
-        # the fitted path over the tracked span (range and ground far beyond it), with its ±1σ band
-        span = predict_path(
-            fit, shot=i, range_m=SPAN_RANGE_M, max_time_s=duration, n_samples=BAND_SAMPLES, rng=BAND_SEED,
-            sample_s=duration / 300,
-        )  # fmt: skip
+        # the fitted path over the tracked span, with its ±1σ band
+        span = fitted_span_path(fit, shot=i, n_samples=BAND_SAMPLES, rng=BAND_SEED)
         path = span
         mx = np.interp(t - t0, path.t_s, path.x_m)
         my = np.interp(t - t0, path.t_s, path.y_m)

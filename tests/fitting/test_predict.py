@@ -11,7 +11,7 @@ from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import fit_from_json, fit_to_json
 from hopscope.fitting.flight import fly
 from hopscope.fitting.observe import ModelSpec, flight_for, simulate_shot
-from hopscope.fitting.predict import heights_at, predict_path, shot_rows
+from hopscope.fitting.predict import fitted_span_path, heights_at, predict_path, shot_rows, tracked_span_s
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()
@@ -101,3 +101,20 @@ def test_max_time_ends_the_path_at_that_time_on_the_same_curve(fit):
     np.testing.assert_allclose(cut.y_m[:n], full.y_m[:n], atol=SAME_PATH_TOL_M)
     with pytest.raises(ValueError, match="max_time_s"):
         predict_path(fit, max_time_s=0.0)
+
+
+def test_span_path_covers_the_tracked_points_from_result_and_file_alike(fit):
+    tracked = float(fit.shots[0].residual_t_s[-1] - fit.shots[0].t0_s)  # 59 frames at 2000 frames/s
+    assert tracked_span_s(fit, 0) == pytest.approx(59 / 2000.0, abs=END_TIME_TOL_S)
+    p = fitted_span_path(fit, points=50)
+    assert p.reached == "time" and p.t_s[-1] == pytest.approx(tracked, abs=END_TIME_TOL_S)
+    assert p.t_s.size == 51 and p.n_samples == 0
+    ff = fit_from_json(fit_to_json(fit), "fit.json")
+    assert tracked_span_s(ff, 0) == pytest.approx(tracked, abs=END_TIME_TOL_S)
+    np.testing.assert_allclose(fitted_span_path(ff, points=50).y_m, p.y_m, atol=SAME_PATH_TOL_M)
+    banded = fitted_span_path(fit, points=50, n_samples=50, rng=1)
+    assert banded.n_samples == 50 and np.all(banded.y_sigma_m[1:] > 0)
+    with pytest.raises(ValueError, match="points must be a positive integer"):
+        fitted_span_path(fit, points=0)
+    with pytest.raises(ValueError, match="shot: expected an index 0..0"):
+        tracked_span_s(fit, 2)
