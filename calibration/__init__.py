@@ -6,11 +6,13 @@ residual under a provisional lens model) → :func:`calibration.lens.calibrate_l
 views join the lens views) → :func:`calibration.plane.solve_plane` (joint PnP of all placements, their
 offsets solved with the tape as prior); :func:`calibration.build.make_rig` (with the bootstrap ensemble
 that carries the calibration's uncertainty); optional :func:`calibration.drop.check_drop` (release-aware,
-a typed :class:`calibration.dropcheck.DropCheck`) / :func:`calibration.drop.apply_level`.
+a typed :class:`calibration.dropcheck.DropCheck`; the fall fit in :mod:`calibration.freefall`, the ball's
+detection in :mod:`calibration.dropclip`) / :func:`calibration.drop.apply_level`.
 :func:`calibration.pipeline.calibrate_files` does all of it from file arguments, and refuses a rig that
 fails its own drop check unless asked to keep it (``drop_check.kept_by_user``).
 
-The product is a :class:`calibration.rig.Rig` (``rig.json``, schema ``hopscope.rig/1``): ``pixel_to_world``,
+The product is a :class:`calibration.rig.Rig` (``rig.json``, schema ``hopscope.rig/1``; one camera state,
+nominal or ensemble member, is a :class:`calibration.camera.CameraState`): ``pixel_to_world``,
 ``world_to_pixel``, ``pixel_to_world_jacobian``, ``ensemble_pixel_to_world``, ``digest``; I/O
 ``rig_to_json``, ``rig_from_json``, ``read_rig``.
 

@@ -45,6 +45,10 @@ from hopscope.shared.parse import json_finite
 VERDICTS = ("consistent", "inconsistent", "failed")
 CAUSES = ("", "frame rate", "scale", "not free fall")
 
+#: The words that open :attr:`calibration.rig.Rig.drop_check_warning`; the report looks for them in the
+#: warnings it carries (from the rig, or from tracks mapped with such a rig) to mark the page.
+DROP_FAILED_MARK = "this rig failed its own drop check"
+
 
 @dataclass(frozen=True)
 class Measured:
