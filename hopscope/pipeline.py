@@ -37,7 +37,7 @@ from hopscope.fitting.spin import (
 from hopscope.shared.fileio import atomic_path, write_bytes_atomic, write_text_atomic
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
-from hopscope.tracker.trackfile import read_track, track_to_csv
+from hopscope.tracker.trackfile import read_track, replace_meta, track_to_csv
 
 from .console import progress as progress_bar
 from .decisions import Convention, FitDecisions, decide, with_decisions
@@ -228,6 +228,19 @@ def plan_run(videos: Sequence[Path], out_dir: str | os.PathLike[str]) -> RunPlan
 # ============================================================================================ steps
 
 
+def with_rig_warning(result: TrackResult, rig: Rig, rig_name: str) -> TrackResult:
+    """``result`` with the rig's failed-drop-check warning (:attr:`Rig.drop_check_warning`, named by the rig
+    file) first in its warnings and in its track's ``# warning:`` lines; unchanged for a rig that passed."""
+    line = rig.drop_check_warning
+    if line is None:
+        return result
+    line = f"{rig_name}: {line}"
+    track = result.track
+    if track is not None:
+        track = replace_meta(track, warnings=(line, *track.meta.warnings))
+    return replace(result, track=track, warnings=(line, *result.warnings))
+
+
 def track_to_files(
     video: str | os.PathLike[str],
     rig: Rig,
@@ -242,7 +255,8 @@ def track_to_files(
     """Track a clip through the rig and write its track file (and overlay), both or neither.
 
     ``on_warning`` is called with each of the tracker's warnings before anything is written (so they are
-    shown even when no BB is found).
+    shown even when no BB is found); a rig that failed its own drop check adds its warning first
+    (:func:`with_rig_warning`), which the track file then carries on to the fit and the report.
 
     Raises
     ------
@@ -252,7 +266,9 @@ def track_to_files(
     """
     if overlay_path is not None:
         check_overlay_path(overlay_path)
-    result = track_video(str(video), rig, options, progress=progress, rig_name=rig_name)
+    result = with_rig_warning(
+        track_video(str(video), rig, options, progress=progress, rig_name=rig_name), rig, rig_name
+    )
     if on_warning is not None:
         for w in result.warnings:
             on_warning(w)

@@ -55,6 +55,8 @@ def run(args: argparse.Namespace) -> int:
     fit = inputs.fit
     for w in fit.warnings:
         warn(w)
+    if inputs.rig is not None and inputs.rig.drop_check_warning:
+        warn(f"{args.rig}: {inputs.rig.drop_check_warning}")
     print(
         summary(
             "hopscope report",

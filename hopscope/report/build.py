@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from hopscope.calibration.dropcheck import DROP_FAILED_MARK
 from hopscope.calibration.rig import Rig, read_rig
 from hopscope.fitting.dispersion import effective_range
 from hopscope.fitting.fitfile import FitFile, read_fit
@@ -263,6 +264,8 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
     warnings = list(dict.fromkeys([*fit.warnings, *decided.warnings, *tables.rig_warnings(inputs)]))
     if not fit.converged:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
+    # a rig that failed its own drop check (given with --rig, or named in the tracks' warnings) marks the page
+    drop_failed = next((w for w in warnings if DROP_FAILED_MARK in w), None)
     env = jinja2.Environment(
         loader=jinja2.PackageLoader("hopscope.report", "templates"),
         autoescape=jinja2.select_autoescape(["html"]),
@@ -282,6 +285,7 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         verdict=None if decided.context else verdict,  # the path's verdict replaces the ratio's
         decisions=decided.context,
         warnings=warnings,
+        drop_failed=drop_failed,
         parameters=tables.parameter_rows(fit),
         model_note=model_note,
         figures=[
