@@ -27,6 +27,7 @@ from typing import Any
 import cv2
 import numpy as np
 
+from .dragbound import DragBound, drag_bound
 from .grid import GridSpec
 from .lens import LensCalibration, ViewPoints, distortion_model, recalibrate
 from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose, solve_with_offsets
@@ -363,6 +364,7 @@ class RigFigures:
     field_width_m : width of the plane seen across the middle row of the image, m.
     edge_error_mm : ensemble RMS spread of the mapped position at the left / right edge of the middle
         row and at the image corners (max), mm.
+    drag_bound : the C_D error the geometry allows a reference BB (:func:`calibration.dragbound.drag_bound`).
     """
 
     focal_px: float
@@ -371,6 +373,7 @@ class RigFigures:
     mm_per_px_centre: float
     field_width_m: float
     edge_error_mm: dict[str, float]
+    drag_bound: DragBound | None = None
 
 
 def rig_figures(rig: Rig) -> RigFigures:
@@ -403,4 +406,5 @@ def rig_figures(rig: Rig) -> RigFigures:
         mm_per_px_centre=float(rig.metres_per_pixel(centre)[0] * 1e3),
         field_width_m=width,
         edge_error_mm=errs,
+        drag_bound=drag_bound(rig),
     )

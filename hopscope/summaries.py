@@ -16,9 +16,10 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from hopscope.console import summary, warn
-from hopscope.shared.units import m_to_mm, mps_to_fps, rad_to_deg, radps_to_rpm
+from hopscope.shared.units import kg_to_grams, m_to_mm, mps_to_fps, rad_to_deg, radps_to_rpm
 
 if TYPE_CHECKING:  # types only: the presenters never run the stages
+    from hopscope.calibration.dragbound import DragBound
     from hopscope.calibration.pipeline import CalibrationRun
     from hopscope.fitting.estimate import Estimate, FlightFit
     from hopscope.fitting.profile import BBProfile
@@ -149,6 +150,7 @@ def calibration_rows(result: CalibrationRun) -> list[tuple[str, str]]:
         )
     else:
         rows.append(("mapping error", "not estimated (--ensemble 0)"))
+    rows.append(drag_bound_row(fig.drag_bound))
     if rig.plane_z_m:
         rows.append(("flight plane", f"{m_to_mm(rig.plane_z_m):.1f} mm in front of the board (parallax)"))
     d = rig.drop_check
@@ -172,6 +174,26 @@ def calibration_rows(result: CalibrationRun) -> list[tuple[str, str]]:
             )
     rows.append(("rig digest", rig.digest[:16]))
     return rows
+
+
+def drag_bound_row(bound: DragBound | None) -> tuple[str, str]:
+    """The summary row of the C_D bound the plane pose allows (:func:`calibration.dragbound.drag_bound`):
+    what the ensemble's scale error over the field costs a reference BB's C_D, and what helps."""
+    label = "C_D bound from geometry"
+    if bound is None or not np.isfinite(bound.cd_relative):
+        return label, "not estimated (no ensemble)"
+    bb = f"{kg_to_grams(bound.reference_mass_kg):g} g BB"
+    if bound.n_placements == 1:
+        advice = (
+            "one board placement: its pose sets this (it tilts the plane and bends the scale toward the "
+            "field's edges); placing the board at two or three more places along the field lowers it"
+        )
+    else:
+        advice = f"{bound.n_placements} placements; more along the field lower it further"
+    return (
+        label,
+        f"±{100 * bound.cd_relative:.2g} % (1σ, a {bb} across the {bound.field_m:.2f} m field): {advice}",
+    )
 
 
 def _worst_view(lens) -> str:

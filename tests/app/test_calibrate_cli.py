@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 import cv2
 import numpy as np
@@ -73,6 +74,11 @@ def test_calibrate_writes_rig_and_summary(scene, tmp_path, capsys):
     ):
         assert label in cap.out
     assert f"{12 + len(scene.plane_views)} / 1" in cap.out  # the plane views are lens views too
+    # the C_D bound the plane pose allows, in one line with what the placements cost
+    bound = re.search(
+        r"C_D bound from geometry +±([\d.]+) % \(1σ, a 0\.25 g BB across the [\d.]+ m field\)", cap.out
+    )
+    assert bound and 0 < float(bound.group(1)) < 100, cap.out
 
 
 def _bad(scene, tmp_path, capsys, argv, match):
