@@ -16,7 +16,7 @@ where the data cannot determine the quantity; the ``bb`` parts are the BB tolera
                    "loss" (of the final fit), "loss_requested", "f_scale_sigma", "method", "decay_fixed_value", "spin_note", "residuals"}
     aero          {"drag_coefficient", "drag_scale" (sphere law, else null), "spin_decay_time_s",
                    "spin_decay_parameter" (1/τ in 1/s or torque slope; null when fixed),
-                   "spin_decay_parameter_name"}
+                   "spin_decay_parameter_name", "spin_decay" (λ, τ and their source: fitting.decay_source)}
     shots[i]      {"label", "rig_digest", "n_points", "n_outliers",
                    "initial": {"t_s" (a number: the first tracked time), "x_m", "y_m", "speed_mps",
                                "elevation_deg" (degrees, the one non-SI field)},
@@ -31,8 +31,7 @@ where the data cannot determine the quantity; the ``bb`` parts are the BB tolera
     parameters    {"names", "values", "free", "covariance" (free × free), "correlation" (free × free),
                    "covariance_calibration" (free × free)}
 
-A shot of a marked-BB track also has ``spin_measured`` (spin from its brightness flicker; layout in
-:func:`fitting.spin.shot_spin_to_json`).
+A shot of a marked-BB track also has ``spin_measured`` (its flicker's spin; :func:`fitting.spin.shot_spin_to_json`).
 
 Muzzle state (``shots[i].muzzle``, ``group``) and ``energy_limit``: :func:`fitting.decisionfile.add_decisions`.
 Residuals are observed − model. ``speed_mps`` is along the direction of flight; ``elevation_deg`` above
@@ -55,6 +54,7 @@ from hopscope.shared.units import rad_to_deg
 
 from .air import Air
 from .bb import BB
+from .decay_source import trajectory_decay_block
 from .layout import ParamLayout, decay_param_name
 from .observe import ModelSpec
 from .results import ChronoPrior, Estimate, FittedModel, FlightFit
@@ -184,6 +184,7 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
             "spin_decay_time_s": estimate_to_dict(result.spin_decay_time_s),
             "spin_decay_parameter": estimate_to_dict(result.spin_decay_parameter),
             "spin_decay_parameter_name": decay_param_name(spec),
+            "spin_decay": trajectory_decay_block(result),
         },
         "shots": shots,
         "statistics": {

@@ -17,6 +17,7 @@ import numpy as np
 
 from hopscope.shared.parse import finite_or_none, is_finite_number
 
+from .decay_source import with_decay_source
 from .laws import spin_ratio
 from .spin_aliases import MARKINGS, SpinPrior
 from .spin_estimate import MIN_POINTS, SpinEstimate, SpinOptions
@@ -265,7 +266,8 @@ def check_spin_measured(obj: Any, where: str) -> None:
 
 def add_spin_measured(doc: Mapping[str, Any], spins: Mapping[str, ShotSpin]) -> dict[str, Any]:
     """A copy of a fit's document with ``shots[i].spin_measured`` for the shots in ``spins`` (by label),
-    and one warning for each of them without a rate, saying why (and listing the candidates when aliased).
+    and one warning for each of them without a rate, saying why (and listing the candidates when aliased);
+    ``aero.spin_decay`` is remade with their measured decays (:func:`fitting.decay_source.with_decay_source`).
 
     Raises
     ------
@@ -292,7 +294,7 @@ def add_spin_measured(doc: Mapping[str, Any], spins: Mapping[str, ShotSpin]) -> 
             warnings.append(
                 f"{s['label']}: spin not measured from the marked BB's flicker: {spin.reason}{listed}"
             )
-    return {**doc, "shots": shots, "warnings": warnings}
+    return with_decay_source({**doc, "shots": shots, "warnings": warnings})
 
 
 __all__ = [

@@ -4,6 +4,7 @@ files and errors."""
 from __future__ import annotations
 
 import json
+import math
 
 import fluids.drag
 import numpy as np
@@ -11,6 +12,7 @@ import pytest
 
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
+from hopscope.fitting.laws import SaturatingLift
 from hopscope.fitting.observe import ModelSpec, simulate_shot
 from hopscope.fitting.profile import (
     SCHEMA,
@@ -20,6 +22,7 @@ from hopscope.fitting.profile import (
     profile_to_json,
     read_profile,
 )
+from hopscope.fitting.spin import measure_shot_spin, measured_spin_ratio
 
 BB_025 = BB(2.5e-4)
 AIR = Air.standard()
@@ -115,3 +118,55 @@ def test_bad_inputs(shots):
         build_profile(shots, bb=BB_025, air=AIR, assumed_lift_k=-1.0)
     with pytest.raises(ValueError, match="re_edges"):
         build_profile(shots, bb=BB_025, air=AIR, re_edges=[3e4, 2e4])
+
+
+#: The lift law of the rendered spin scenes (``lane-spin.toml``: ``lift_slope = 0.1``): C_L = k·S.
+SCENE_LIFT_SLOPE = 0.1
+#: A measured (C_L, S) point lies within this many combined σ of the law it was made with.
+LIFT_POINT_PULL_MAX = 4.0
+#: Each shot's C_L is known to this relative σ or better (30 ms at 10 000 frames/s, 0.2 mm noise), so the
+#: agreement is a test: the published saturating law (C_L ≈ 0.2 at S = 0.2) lies hundreds of σ off.
+CL_REL_SIGMA_MAX = 0.15
+SPIN_FPS = 10_000.0
+SPIN_DECAY_TIME_S = 2.0  # the scene's
+
+
+def _flicker(t: np.ndarray, rate0: float, rng: np.random.Generator) -> np.ndarray:
+    """A half-marked BB's brightness: one cycle per turn, spin decaying over SPIN_DECAY_TIME_S."""
+    phase = rate0 * SPIN_DECAY_TIME_S * -np.expm1(-(t - t[0]) / SPIN_DECAY_TIME_S)
+    return 1.0 + 0.3 * np.cos(phase) + 0.02 * rng.standard_normal(t.size)
+
+
+def test_measured_lift_points_follow_the_lift_law_the_shots_were_made_with():
+    # Simulated tracks, not the rendered lane-spin scenes: those fields are 3-5 ms long (32 frames at
+    # 10 000 frames/s), over which C_L = 0.02 moves the BB by tens of micrometres, so their fitted C_L
+    # carries a standard error of the order of C_L itself and could not test the law.
+    spec = ModelSpec(BB_025, AIR)
+    rng = np.random.default_rng(7)
+    t = np.arange(300) / SPIN_FPS
+    shots, spins = [], []
+    for speed, ratio in ((80.0, 0.3), (100.0, 0.2), (120.0, 0.15), (100.0, 0.25)):
+        rate0 = ratio * speed / BB_025.radius_m
+        shots.append(
+            simulate_shot(spec, t_s=t, sigma_m=2e-4, rng=rng, speed_mps=speed, elevation_rad=0.0,
+                          lift_coefficient=SCENE_LIFT_SLOPE * ratio, drag_param=0.45,
+                          decay_param=1 / SPIN_DECAY_TIME_S, label=f"v{speed:.0f}-S{ratio:g}#0")
+        )  # fmt: skip
+        spin = measure_shot_spin(t, _flicker(t, rate0, rng), first_t_s=float(t[0]))
+        assert spin.rate_radps is not None and spin.stderr_radps is not None
+        spins.append(spin)
+    prof = build_profile(shots, bb=BB_025, air=AIR, n_bins=1, spin_radps=[s.rate_radps for s in spins])
+    pulls_law, pulls_published = [], []
+    for lp, spin in zip(prof.lift, spins, strict=True):
+        assert lp.spin_source == "measured" and lp.cl is not None and lp.cl_stderr is not None
+        assert lp.spin_ratio is not None and lp.cl_stderr < CL_REL_SIGMA_MAX * lp.cl
+        s, s_sig = measured_spin_ratio(
+            spin.rate_radps, spin.stderr_radps, speed_mps=lp.speed_mps, speed_stderr_mps=0.0,
+            radius_m=BB_025.radius_m,
+        )  # fmt: skip
+        assert s == pytest.approx(lp.spin_ratio)
+        sigma = math.hypot(lp.cl_stderr, SCENE_LIFT_SLOPE * s_sig)
+        pulls_law.append((lp.cl - SCENE_LIFT_SLOPE * s) / sigma)
+        pulls_published.append((lp.cl - float(SaturatingLift().coefficient(np.array(s)))) / sigma)
+    assert max(abs(p) for p in pulls_law) < LIFT_POINT_PULL_MAX, pulls_law
+    assert min(abs(p) for p in pulls_published) > LIFT_POINT_PULL_MAX, pulls_published
