@@ -38,12 +38,8 @@ Failure to measure is a value (``rate_radps`` None with a ``reason``); bad array
 
 References
 ----------
-Lomb (1976), "Least-squares frequency analysis of unequally spaced data", Astrophys. Space Sci. 39:447.
-Scargle (1982), "Studies in astronomical time series analysis II", Astrophys. J. 263:835.
-Zechmeister & Kürster (2009), "The generalised Lomb-Scargle periodogram", Astron. Astrophys. 496:577,
-eqs. 4–20 (the floating-mean form used here).
-Baluev (2008), "Assessing the statistical significance of periodogram peaks", MNRAS 385:1279, Table 1 and
-eq. 6 (the false-alarm probability; read as implemented in astropy's LombScargle).
+The periodogram's and the false-alarm probability's sources (Lomb 1976, Scargle 1982, Zechmeister &
+Kürster 2009, Baluev 2008) are cited in full in :mod:`fitting.spin_periodogram`.
 """
 
 from __future__ import annotations
