@@ -91,6 +91,11 @@ class Detection:
     flags : tokens from :data:`tracker.trackfile.FLAG_TOKENS`.
     reason : empty for a good detection, else why it failed.
     sigma_floor_px : the noise bound on σ_u and σ_v (:func:`spot_position_bound_px`), px; neither is below it.
+    light_radius_px : for a marked BB, the radius its coverage (and so ``brightness``) was taken at, px
+        (NaN otherwise).
+    light_per_radius : for a marked BB, ∂brightness/∂radius there (the background hidden by a wider
+        ball), grey levels × px per px (0 otherwise): ``brightness`` at another radius R is
+        brightness + (R − light_radius_px) · light_per_radius to first order.
     """
 
     frame: int
@@ -108,6 +113,8 @@ class Detection:
     flags: tuple[str, ...] = ()
     reason: str = ""
     sigma_floor_px: float = float("nan")
+    light_radius_px: float = float("nan")
+    light_per_radius: float = 0.0
 
     @property
     def ok(self) -> bool:
@@ -586,6 +593,9 @@ MARKED_RADIUS_RANGE = (0.8, 1.25)
 #: Iterations of each trial start of the marked-ball fit before the best one is carried on.
 MARKED_START_ITERATIONS = 12
 
+#: Pixels the marked ball covers for less than this fraction of the exposure are left out of its light.
+MARKED_COVERAGE_MIN = 0.005
+
 #: Names of the marked-ball model's parameters, in order.
 MARKED_PARAMS = (
     "u0",
@@ -616,22 +626,45 @@ def marked_ball_model(p: np.ndarray, x: np.ndarray, y: np.ndarray, background: n
     :data:`MARKED_SWEEP_SAMPLES` positions along the travel. ``x``, ``y``, ``background`` are flat arrays of
     the same length (pixel centres and the background's grey levels).
     """
+    return background + _marked_ball_light(p, x, y, background)[2]
+
+
+def marked_ball_coverage(p: np.ndarray, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Fraction of each pixel's exposure the ball of :func:`marked_ball_model` covers, and its derivative.
+
+    Returns (m, ∂m/∂R) on the flat pixel arrays: the coverage m(x, y), 0..1, averaged over the exposure's
+    sweep (Σ m is the ball's image area, px²) and its derivative by the radius R, 1/px.
+    """
+    cover, dcover, _ = _marked_ball_light(p, x, y, np.zeros_like(x))
+    return cover, dcover
+
+
+def _marked_ball_light(
+    p: np.ndarray, x: np.ndarray, y: np.ndarray, background: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(coverage, its derivative by R, frame − background) of :func:`marked_ball_model`, sweep-averaged."""
     u0, v0, rad, w, phi, b, dk, g, lam, length, th = p
     k = 1.0 / (_SQRT2 * max(w, 1e-3))
     cn, sn = math.cos(phi), math.sin(phi)
     ct, st = math.cos(th), math.sin(th)
+    covered = np.zeros_like(x)
+    slope = np.zeros_like(x)
     out = np.zeros_like(x)
     for f in np.linspace(-0.5, 0.5, MARKED_SWEEP_SAMPLES):
         dx = x - (u0 + f * length * ct)
         dy = y - (v0 + f * length * st)
         r2 = dx * dx + dy * dy
         r = np.sqrt(r2)
-        cover = 0.5 * (1.0 - erf((r - rad) * k))
+        z = (r - rad) * k
+        cover = 0.5 * (1.0 - erf(z))
         side = 0.5 * (1.0 + erf((dx * cn + dy * sn) * k))
         rho2 = np.minimum(r2 / (rad * rad), 1.0)
         radiance = (dk + (b - dk) * side) * (1.0 + g * dy / rad) * (1.0 - lam * (1.0 - np.sqrt(1.0 - rho2)))
-        out += background * (1.0 - cover) + cover * radiance
-    return out / MARKED_SWEEP_SAMPLES
+        covered += cover
+        slope += (k / math.sqrt(math.pi)) * np.exp(-z * z)
+        out += cover * (radiance - background)
+    n = MARKED_SWEEP_SAMPLES
+    return covered / n, slope / n, out / n
 
 
 def _numeric_jacobian(
@@ -671,10 +704,12 @@ def localise_marked(
     Returns
     -------
     Detection
-        ``brightness`` is the integrated background-subtracted signal of the window, grey levels × px (the
-        sum of frame − background over the ball's pixels; it swings as the mark turns), ``amplitude`` the
-        bright half's radiance minus the mean background, ``width_px`` R/2 (a disk's second moment), flag
-        ``marked``.
+        ``brightness`` is the ball's own light, grey levels × px: Σ (frame − background) + Σ m·background
+        over the pixels the ball covers (m its coverage over the exposure, :func:`marked_ball_coverage`, at
+        the fitted centre, edge and travel and the expected radius ``radius_px`` when given), so the wall
+        texture the ball hides is added back instead of mixed in; it swings as the mark turns.
+        ``amplitude`` is the bright half's radiance minus the mean background, ``width_px`` R/2 (a disk's
+        second moment), flag ``marked``.
 
     Notes
     -----
@@ -754,7 +789,17 @@ def localise_marked(
     total_abs = float(np.abs(excess).sum())
     floor = spot_position_bound_px(total_abs, 0.5 * float(p[2]), noise)
     su, sv = max(su, floor), max(sv, floor)
-    signal = float((f - bg)[ball].sum())
+    # the BB's own light: frame − background over the ball, plus the background it hides there
+    # the BB's own light: frame − background over the ball, plus the background it hides there. The ball's
+    # coverage is taken at the expected radius (the fitted one wobbles as the mark turns, and its error
+    # times the background is a false flicker: on lane-spin it tripled the spin rate's standard error)
+    at_radius = p.copy()
+    if radius_px is not None:
+        at_radius[2] = radius_px
+    cover, dcover = marked_ball_coverage(at_radius, x, y)
+    on_ball = cover >= MARKED_COVERAGE_MIN
+    signal = float(np.sum((f - bg + cover * bg)[on_ball]))
+    signal_per_radius = float(np.sum((dcover * bg)[on_ball]))
     snr = total_abs / (noise * math.sqrt(max(int(ball.sum()), 1)))
     if snr < MIN_AMPLITUDE_SNR:
         return _failed(frame, u, v, f"signal {snr:.1f} σ is below {MIN_AMPLITUDE_SNR:g} σ")
@@ -776,4 +821,6 @@ def localise_marked(
         snr=float(snr),
         flags=tuple(flags),
         sigma_floor_px=floor,
+        light_radius_px=float(at_radius[2]),
+        light_per_radius=signal_per_radius,
     )

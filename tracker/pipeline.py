@@ -10,6 +10,14 @@ at the flight plane from the rig and ``bb_diameter_m``, ``speed_band_mps``, fall
 plausible lift, drag); the BB's tracks of the polarity with most points are the shots, the rest are counted
 in the summary with their reasons. Decoding runs in a thread (:func:`prefetched`).
 
+A marked BB whose mark turns one half to match the wall shows only the other half: within a few frames of
+the marked track's last ball, a lone blob where the track predicts the ball is fitted as the ball too
+(:func:`_follow_marked`).
+
+Brightness of a point (the spin signal of a marked BB): the BB's light per px² of its apparent image and per
+second of exposure (:func:`brightness_per_area`; for a marked BB its own light with the hidden background
+added back, at the fitted radius smoothed along the shot: :func:`_brightness_column`).
+
 Uncertainty of a point: the fit's σ from the local noise (:mod:`tracker.localise`), then checked against the
 shot's own scatter about a smooth path (:func:`tracker.associate.scatter_ratio`) and scaled up by that
 ratio when it is larger than 1 (a warning when it exceeds :data:`SIGMA_SCALE_WARN`).
@@ -69,6 +77,21 @@ MARKED_MIN_RADIUS_PX = 2.0
 #: per frame of a BB in flight, :data:`tracker.associate.MIN_STEP_PX`).
 SLOW_STEP_PX = MIN_STEP_PX
 
+#: A lone bright or dark blob is fitted as the marked BB when the marked track saw the ball at most this
+#: many frames before (:func:`_follow_marked`).
+MARKED_FOLLOW_FRAMES = 8
+
+#: ... and the blob lies within this many image radii of where the track predicts the ball (a half's
+#: centroid sits up to a radius off the ball's centre).
+MARKED_FOLLOW_RADII = 3.0
+
+#: ... plus this share of the predicted travel (a step that changes between detections).
+MARKED_FOLLOW_STEP_SHARE = 0.2
+
+#: Degree of the polynomial in time through a marked BB's fitted radii along its shot (its apparent size
+#: changes smoothly as it flies nearer or farther).
+RADIUS_SMOOTH_DEGREE = 2
+
 #: Decoded frames the decoding thread may run ahead of detection.
 PREFETCH_DEPTH = 8
 
@@ -94,6 +117,53 @@ def start_speed(t_s: np.ndarray, x_m: np.ndarray, y_m: np.ndarray) -> float:
     cx = np.polyfit(tt, x_m[:n], deg)
     cy = np.polyfit(tt, y_m[:n], deg)
     return float(math.hypot(cx[-2], cy[-2]))
+
+
+def brightness_per_area(light: np.ndarray, radius_px: np.ndarray, exposure_s: float | None) -> np.ndarray:
+    """The track's ``brightness``: integrated light per px² of the BB's image, per second of exposure.
+
+    Parameters
+    ----------
+    light : (N,) the detections' integrated light, grey levels × px (:attr:`Detection.brightness`).
+    radius_px : (N,) the BB's apparent image radius r at each point, px.
+    exposure_s : exposure time, s, or None when unknown (then no division by it).
+
+    Returns
+    -------
+    (N,) light / (π r²) (a ball that comes nearer looks bigger, not brighter), divided by the exposure when
+    it is known: grey levels per second of exposure, else grey levels.
+    """
+    r = np.asarray(radius_px, dtype=float)
+    out = np.asarray(light, dtype=float) / (math.pi * r * r)
+    return out / exposure_s if exposure_s else out
+
+
+def _brightness_column(
+    d: list[Detection], t_s: np.ndarray, shot: np.ndarray, rig: Rig, uv: np.ndarray, opt: TrackOptions
+) -> np.ndarray:
+    """Each point's brightness for the track (:func:`brightness_per_area`).
+
+    The apparent radius is the rig's (the BB's diameter over the metres per pixel at the point) for a plain
+    BB. For a marked BB it is the fitted ball radius smoothed along its shot (a polynomial of degree
+    :data:`RADIUS_SMOOTH_DEGREE` in time), which is the size the image shows: the light is first moved to
+    that radius (:attr:`Detection.light_per_radius`, the background a wider ball hides).
+    """
+    light = np.array([x.brightness for x in d])
+    radius = 0.5 * opt.bb_diameter_m / rig.metres_per_pixel(uv)
+    marked = np.array([math.isfinite(x.light_radius_px) for x in d], dtype=bool)
+    for s_id in np.unique(shot[marked]):
+        m = marked & (shot == s_id)
+        fitted = np.array([2.0 * d[i].width_px for i in np.flatnonzero(m)])
+        deg = min(RADIUS_SMOOTH_DEGREE, int(m.sum()) - 1)
+        tt = t_s[m] - t_s[m].mean()
+        smooth = (
+            np.polyval(np.polyfit(tt, fitted, deg), tt) if deg >= 1 else np.full(fitted.shape, fitted.mean())
+        )
+        at = np.array([d[i].light_radius_px for i in np.flatnonzero(m)])
+        slope = np.array([d[i].light_per_radius for i in np.flatnonzero(m)])
+        light[m] = light[m] + (smooth - at) * slope
+        radius[m] = smooth
+    return brightness_per_area(light, radius, opt.exposure_s)
 
 
 @dataclass(frozen=True)
@@ -333,6 +403,8 @@ def track_video(
             yield fr
 
     dets: list[tuple[Detection, int, float, bool]] = []
+    # the last marked-ball detections (frame, u px, v px, image radius px): where its next one is expected
+    marked_seen: list[tuple[int, float, float, float]] = []
     previous: dict[int, list[Candidate]] = {}
     n_slow = 0
     n_cand = 0
@@ -350,7 +422,9 @@ def track_video(
         cands = moving
         paired: set[int] = set()
         if not want:  # a marked BB: a bright and a dark half side by side, fitted as one ball
-            for box, edge in _marked_pairs(cands, info):
+            windows = _marked_pairs(cands, info)
+            followed = _follow_marked(cands, windows, marked_seen, wf.frame.index, info)
+            for box, edge in windows + followed:
                 r0, r1, c0, c1 = box
                 mpp = float(rig.metres_per_pixel(np.array([[0.5 * (c0 + c1), 0.5 * (r0 + r1)]]))[0])
                 radius = 0.5 * opt.bb_diameter_m / mpp if math.isfinite(mpp) and mpp > 0 else 0.0
@@ -366,7 +440,11 @@ def track_video(
                 )
                 if d.ok:
                     dets.append((d, 0, wf.frame.t_s, edge))
-                paired.update(id(c) for c in cands if _inside_box(c, box))
+                    marked_seen.append((d.frame, d.u_px, d.v_px, radius))
+                    del marked_seen[:-2]
+                    paired.update(id(c) for c in cands if _inside_box(c, box))
+                elif (box, edge) in windows:
+                    paired.update(id(c) for c in cands if _inside_box(c, box))
             cands = [c for c in cands if id(c) not in paired]
         for c in cands:
             r0, r1, c0, c1 = c.box
@@ -510,6 +588,44 @@ def _marked_pairs(cands: list[Candidate], info: VideoInfo) -> list[tuple[tuple[i
         edge = any(c.touches_edge for c in group) or r0 < 0 or c0 < 0 or r1 > info.height or c1 > info.width
         out.append(((max(0, r0), min(info.height, r1), max(0, c0), min(info.width, c1)), edge))
     return out
+
+
+def _follow_marked(
+    cands: list[Candidate],
+    windows: list[tuple[tuple[int, int, int, int], bool]],
+    seen: list[tuple[int, float, float, float]],
+    frame: int,
+    info: VideoInfo,
+) -> list[tuple[tuple[int, int, int, int], bool]]:
+    """A window for a marked BB seen as one half only, where the marked track predicts the ball.
+
+    When the mark turns so that one half matches the wall, only the other half stands out and no bright and
+    dark pair forms; such frames were lost from the marked track. Within :data:`MARKED_FOLLOW_FRAMES` of the
+    last marked detection, the unpaired candidates within :data:`MARKED_FOLLOW_RADII` image radii (plus the
+    travel's uncertainty) of the position extrapolated from the last two at constant velocity get one
+    window: their boxes and the predicted ball, grown by :data:`MARKED_PAD_PX`, clipped to the image.
+    """
+    if not seen or frame - seen[-1][0] > MARKED_FOLLOW_FRAMES:
+        return []
+    k1, u1, v1, rad = seen[-1]
+    du = dv = 0.0
+    if len(seen) == 2 and seen[0][0] < k1:
+        k0, u0, v0, _ = seen[0]
+        du, dv = (u1 - u0) / (k1 - k0), (v1 - v0) / (k1 - k0)
+    gap = frame - k1
+    pu, pv = u1 + du * gap, v1 + dv * gap
+    reach = MARKED_FOLLOW_RADII * rad + MARKED_FOLLOW_STEP_SHARE * math.hypot(du, dv) * gap
+    taken = [c for c in cands if any(_inside_box(c, box) for box, _ in windows)]
+    near = [c for c in cands if c not in taken and math.hypot(c.u_px - pu, c.v_px - pv) <= reach]
+    if not near:
+        return []
+    half = rad + MARKED_PAD_PX
+    r0 = min([c.box[0] for c in near] + [math.floor(pv - half)]) - MARKED_PAD_PX
+    r1 = max([c.box[1] for c in near] + [math.ceil(pv + half) + 1]) + MARKED_PAD_PX
+    c0 = min([c.box[2] for c in near] + [math.floor(pu - half)]) - MARKED_PAD_PX
+    c1 = max([c.box[3] for c in near] + [math.ceil(pu + half) + 1]) + MARKED_PAD_PX
+    edge = any(c.touches_edge for c in near) or r0 < 0 or c0 < 0 or r1 > info.height or c1 > info.width
+    return [((max(0, r0), min(info.height, r1), max(0, c0), min(info.width, c1)), edge)]
 
 
 @dataclass(frozen=True)
@@ -739,7 +855,7 @@ def _build_track(
         sigma_px=sig[sel],
         sigma_m=sig_m[sel],
         shot=shot_new,
-        brightness=np.array([d[i].brightness for i in sel]),
+        brightness=_brightness_column([d[i] for i in sel], t[sel], shot_new, rig, uv[sel], opt),
         streak_len_px=np.array([d[i].streak_len_px for i in sel]),
         flags=tuple(flags[i] for i in sel),
         cal_dx_m=cal[:, sel, 0],

@@ -162,9 +162,15 @@ class Track:
     shot : ndarray of int
         Track id: several shots in one clip become several ids (0, 1, ...).
     brightness : ndarray of float
-        Integrated signal of the blob above background, grey levels × px (negative for a dark BB). For a
-        marked BB (flag ``marked``): the sum of frame − background over the ball's pixels, not corrected
-        for its apparent size or the exposure; it swings with the mark's turn (the spin signal).
+        The BB's light per px² of its apparent image, divided by the exposure when ``meta.exposure_s`` is
+        known: grey levels per second of exposure (grey levels without a known exposure). The integrated
+        light is divided by π r², r the BB's image radius at the point, so a ball that comes nearer looks
+        bigger, not brighter. For a marked BB (flag ``marked``) the light is the ball's own:
+        Σ (frame − background) + Σ m·background over the pixels the fitted ball covers (m its coverage
+        over the exposure), which adds back the wall texture it hides instead of mixing that in, and r is
+        the fitted ball radius smoothed along the shot; it swings with the mark's turn (the spin signal).
+        For a plain bright or dark BB it is the signal above the background, Σ (frame − background)
+        (negative for a dark BB), over r² from the rig's scale at the point.
     streak_len_px : ndarray of float
         Fitted motion-blur length, px (0 for a round image).
     flags : tuple of str

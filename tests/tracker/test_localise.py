@@ -192,3 +192,60 @@ def test_correlation_factor(rng):
     smooth = white + np.roll(white, 1, axis=0)
     smooth = smooth + np.roll(smooth, 1, axis=1)
     assert 3.0 < correlation_factor(smooth, mask) < 5.0
+
+
+#: A marked ball's own light from the fit against the light drawn, relative (noise 1 DN on a 15 px window).
+OWN_LIGHT_REL_TOL = 0.01
+#: The wall texture behind the ball changes frame − background by at least this, relative (so the check
+#: above can fail when the hidden background is not added back).
+TEXTURE_EFFECT_REL = 0.05
+#: Finite-difference step and tolerance for the coverage's derivative by the radius.
+COVER_STEP_PX = 1e-5
+COVER_DERIV_TOL = 1e-4
+#: The coverage's sum against the blurred disk's area, relative (pixel sampling of a 4 px ball).
+COVER_AREA_REL_TOL = 1e-3
+
+
+def _marked_params(u=10.3, v=9.6, phi=0.7):
+    # (u0, v0, R, w, φ, B, D, G, λ, L, θ): a 4 px ball, its bright half 220 DN, dark half 30 DN, a short sweep
+    return np.array([u, v, 4.0, 0.7, phi, 220.0, 30.0, -0.3, 0.2, 1.5, 0.1])
+
+
+def test_marked_ball_brightness_is_its_own_light_whatever_hides_behind_it():
+    from hopscope.tracker.localise import localise_marked, marked_ball_coverage, marked_ball_model
+
+    rows, cols = 20, 21
+    yy, xx = np.mgrid[0:rows, 0:cols]
+    x, y = xx.ravel().astype(float), yy.ravel().astype(float)
+    p = _marked_params()
+    cover, _ = marked_ball_coverage(p, x, y)
+    own = float(np.sum(marked_ball_model(p, x, y, np.zeros_like(x))))  # the ball on black: its own light
+    rng = np.random.default_rng(5)
+    raw = []
+    for level in (60.0, 140.0):  # a dark and a bright patch of wall behind the ball
+        bg = level + 10.0 * rng.standard_normal(x.size)
+        frame = marked_ball_model(p, x, y, bg) + rng.normal(0.0, 1.0, x.size)
+        d = localise_marked(
+            frame.reshape(rows, cols), bg.reshape(rows, cols), (0, 0), frame=0, radius_px=4.0, noise_floor=0.3
+        )
+        assert d.ok, d.reason
+        assert d.brightness == pytest.approx(own, rel=OWN_LIGHT_REL_TOL)
+        assert d.light_radius_px == 4.0 and d.light_per_radius > 0
+        raw.append(float(np.sum((frame - bg)[cover > 0.005])))
+    assert abs(raw[0] - raw[1]) > TEXTURE_EFFECT_REL * own
+
+
+def test_marked_ball_coverage_derivative_matches_finite_differences():
+    from hopscope.tracker.localise import marked_ball_coverage
+
+    yy, xx = np.mgrid[0:20, 0:21]
+    x, y = xx.ravel().astype(float), yy.ravel().astype(float)
+    p = _marked_params()
+    cover, dcover = marked_ball_coverage(p, x, y)
+    q = p.copy()
+    q[2] += COVER_STEP_PX
+    numeric = (marked_ball_coverage(q, x, y)[0] - cover) / COVER_STEP_PX
+    np.testing.assert_allclose(dcover, numeric, atol=COVER_DERIV_TOL)
+    # Σ coverage is the ball's area whatever the sweep (a time average): π (R² + w²) for an edge blurred by a
+    # Gaussian of σ w (the integral of ½ erfc((r − R)/(√2 w)) over the plane)
+    assert float(cover.sum()) == pytest.approx(math.pi * (4.0**2 + 0.7**2), rel=COVER_AREA_REL_TOL)

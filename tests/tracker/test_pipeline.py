@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import math
 
 import numpy as np
 import pytest
@@ -217,3 +218,13 @@ def test_prefetched_keeps_order_raises_in_place_and_stops_early():
     assert [next(stream) for _ in range(5)] == [0, 1, 2, 3, 4]
     stream.close()
     assert closed == [True]
+
+
+def test_brightness_is_per_px2_of_the_image_and_per_second_of_exposure():
+    from hopscope.tracker.pipeline import brightness_per_area
+
+    light = np.array([1000.0, 4000.0])  # the same ball, the second seen twice as large
+    radius = np.array([2.0, 4.0])
+    per_area = brightness_per_area(light, radius, None)
+    np.testing.assert_allclose(per_area, 1000.0 / (math.pi * 4.0))
+    np.testing.assert_allclose(brightness_per_area(light, radius, 2e-4), per_area / 2e-4)
