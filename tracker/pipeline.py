@@ -600,7 +600,8 @@ def _follow_marked(
     """A window for a marked BB seen as one half only, where the marked track predicts the ball.
 
     When the mark turns so that one half matches the wall, only the other half stands out and no bright and
-    dark pair forms; such frames were lost from the marked track. Within :data:`MARKED_FOLLOW_FRAMES` of the
+    dark pair forms; such frames were lost from the marked track. Where the predicted ball lies wholly inside
+    the image, within :data:`MARKED_FOLLOW_FRAMES` of the
     last marked detection, the unpaired candidates within :data:`MARKED_FOLLOW_RADII` image radii (plus the
     travel's uncertainty) of the position extrapolated from the last two at constant velocity get one
     window: their boxes and the predicted ball, grown by :data:`MARKED_PAD_PX`, clipped to the image.
@@ -614,6 +615,8 @@ def _follow_marked(
         du, dv = (u1 - u0) / (k1 - k0), (v1 - v0) / (k1 - k0)
     gap = frame - k1
     pu, pv = u1 + du * gap, v1 + dv * gap
+    if not (rad - 0.5 <= pu <= info.width - 0.5 - rad and rad - 0.5 <= pv <= info.height - 0.5 - rad):
+        return []  # a ball cut by the image border: neither its centre nor its light can be told from half
     reach = MARKED_FOLLOW_RADII * rad + MARKED_FOLLOW_STEP_SHARE * math.hypot(du, dv) * gap
     taken = [c for c in cands if any(_inside_box(c, box) for box, _ in windows)]
     near = [c for c in cands if c not in taken and math.hypot(c.u_px - pu, c.v_px - pv) <= reach]
