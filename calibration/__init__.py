@@ -9,7 +9,10 @@ that carries the calibration's uncertainty); optional :func:`calibration.drop.ch
 a typed :class:`calibration.dropcheck.DropCheck`; the fall fit in :mod:`calibration.freefall`, the ball's
 detection in :mod:`calibration.dropclip`) / :func:`calibration.drop.apply_level`.
 :func:`calibration.pipeline.calibrate_files` does all of it from file arguments, and refuses a rig that
-fails its own drop check unless asked to keep it (``drop_check.kept_by_user``).
+fails its own drop check unless asked to keep it (``drop_check.kept_by_user``). A ChArUco board
+(:mod:`calibration.charuco`, ``--board charuco``) replaces the first two steps: its markers name each corner,
+so lens views with part of the board at the frame edges count. :func:`calibration.dragbound.drag_bound`
+states the C_D error the rig's geometry allows.
 
 The product is a :class:`calibration.rig.Rig` (``rig.json``, schema ``hopscope.rig/1``; one camera state,
 nominal or ensemble member, is a :class:`calibration.camera.CameraState`): ``pixel_to_world``,

@@ -21,6 +21,7 @@ import numpy as np
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
 from .build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M, RigFigures, make_rig, rig_figures
+from .charuco import MIN_CHARUCO_CORNERS, CharucoSpec, detect_charuco_files
 from .corners import choose_by_evidence, view_points
 from .drop import apply_level, check_drop, drop_refusal
 from .grid import DEFAULT_DETECTOR, GridSpec
@@ -33,7 +34,7 @@ from .images import (
     no_progress,
     parse_plane_arg,
 )
-from .lens import MIN_LENS_VIEWS, LensCalibration, calibrate_lens
+from .lens import MIN_LENS_VIEWS, LensCalibration, ViewPoints, calibrate_lens
 from .plane import Placement
 from .rig import Rig
 
@@ -66,6 +67,7 @@ def calibrate_files(
     rng: int | np.random.Generator | None = 0,
     progress: Progress = no_progress,
     provenance: Mapping[str, Any] | None = None,
+    charuco: CharucoSpec | None = None,
 ) -> CalibrationRun:
     """Calibrate from files.
 
@@ -88,6 +90,9 @@ def calibrate_files(
     detector : corner detector (see :data:`calibration.grid.DETECTORS`).
     rng : seed or generator of the ensemble.
     progress : wraps an iterable to show progress (the app passes its progress bar).
+    charuco : the ChArUco board when the views show one (``--board charuco``; ``spec`` is then its
+        checkerboard): lens views with part of the board count (:mod:`calibration.charuco`), and
+        ``detector`` is not used.
 
     Raises
     ------
@@ -99,6 +104,17 @@ def calibrate_files(
     check_plane_items(plane_items)  # cheap checks before the slow detection
     gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
     sources = expand_views(views)
+
+    def finish(parts: _Parts) -> CalibrationRun:
+        return _finish(parts, spec, gen, plane_z_m=plane_z_m, plane_z_sigma_m=plane_z_sigma_m,
+                       ensemble_size=ensemble_size, offset_sigma_m=offset_sigma_m, drop=drop, drop_fps=drop_fps,
+                       drop_readout_s=drop_readout_s, g_expected_mps2=g_expected_mps2,
+                       keep_failed_drop=keep_failed_drop)  # fmt: skip
+
+    if charuco is not None:
+        return finish(
+            _charuco_parts(sources, plane_items, charuco, views, planes, drop, progress, provenance)
+        )
     detections, size = detect_views(sources, spec, detector=detector, progress=progress)
     found = [d for d in detections if d.found]
     if not found:
@@ -132,17 +148,61 @@ def calibrate_files(
     }  # fmt: skip
     if provenance:
         prov.update(provenance)
+    return finish(_Parts(lens_views, lens, placements, prov, len(detections)))
+
+
+@dataclass(frozen=True, eq=False)
+class _Parts:
+    """What the detection made, before the rig: lens views and fit, placements, provenance, views given."""
+
+    lens_views: list[ViewPoints]
+    lens: LensCalibration
+    placements: list[Placement]
+    provenance: dict[str, Any]
+    n_views_given: int
+
+
+def _charuco_parts(
+    sources, plane_items, board: CharucoSpec, views, planes, drop, progress, provenance
+) -> _Parts:
+    found = detect_charuco_files(sources, plane_items, board, progress=progress)
+    usable = found.n_lens
+    if usable < MIN_LENS_VIEWS:
+        raise ValueError(
+            f"--views: only {usable} usable lens view(s) with at least {MIN_CHARUCO_CORNERS} ChArUco corners, "
+            f"need at least {MIN_LENS_VIEWS}"
+        )
+    placements = [Placement(d.source, d.points(), off, grid=d.grid) for d, off in found.plane]
+    lens = calibrate_lens(list(found.lens_views), found.image_size, rejected=list(found.rejected))
+    prov: dict[str, Any] = {
+        "inputs": {"views": list(views), "plane": list(planes), "drop": drop},
+        "detector": "charuco",
+        "board": {"kind": "charuco", "squares": list(board.squares), "square_m": board.grid.square_m,
+                  "marker_m": board.marker_m, "dictionary": board.dictionary},
+        "corners": {"chosen_by": "ChArUco markers (cv2.aruco.CharucoDetector); partial boards count",
+                    "partial_views": list(found.partial)},
+        "plane_views_in_lens_fit": True,
+    }  # fmt: skip
+    if provenance:
+        prov.update(provenance)
+    return _Parts(list(found.lens_views), lens, placements, prov, found.n_given)
+
+
+def _finish(parts: _Parts, spec: GridSpec, gen: np.random.Generator, *, plane_z_m, plane_z_sigma_m,
+            ensemble_size, offset_sigma_m, drop, drop_fps, drop_readout_s, g_expected_mps2,
+            keep_failed_drop) -> CalibrationRun:  # fmt: skip
+    """The rig from the detected parts: ensemble, then the optional drop check and levelling."""
     rig = make_rig(
-        lens_views,
-        lens,
-        placements,
+        parts.lens_views,
+        parts.lens,
+        parts.placements,
         spec,
         plane_z_m=plane_z_m,
         plane_z_sigma_m=plane_z_sigma_m,
         ensemble_size=ensemble_size,
         offset_sigma_m=offset_sigma_m,
         rng=gen,
-        provenance=prov,
+        provenance=parts.provenance,
     )
     if drop is not None:
         check, warns = check_drop(
@@ -153,4 +213,4 @@ def calibrate_files(
                 raise ValueError(drop_refusal(check))
             check = dataclasses.replace(check, kept_by_user=True)
         rig = apply_level(rig, check, warns, rng=gen)
-    return CalibrationRun(rig, lens, rig_figures(rig), len(detections))
+    return CalibrationRun(rig, parts.lens, rig_figures(rig), parts.n_views_given)

@@ -15,6 +15,7 @@ import argparse
 
 from hopscope import __version__
 from hopscope.calibration.build import DEFAULT_ENSEMBLE_SIZE, DEFAULT_OFFSET_SIGMA_M
+from hopscope.calibration.charuco import BOARDS, DEFAULT_MARKER_FRACTION, DICTIONARY, CharucoSpec
 from hopscope.calibration.grid import DEFAULT_DETECTOR, DETECTORS, GridSpec, parse_grid
 from hopscope.calibration.pipeline import calibrate_files
 from hopscope.calibration.rig import rig_to_json
@@ -117,6 +118,19 @@ def register(parser: argparse.ArgumentParser) -> None:
         help=f"members of the calibration-uncertainty ensemble (default {DEFAULT_ENSEMBLE_SIZE}; 0 for none)",
     )
     parser.add_argument("--detector", choices=DETECTORS, default=DEFAULT_DETECTOR, help="corner detector")
+    parser.add_argument(
+        "--board",
+        choices=BOARDS,
+        default="chessboard",
+        help="the pattern: a plain chessboard (default) or a ChArUco board (OpenCV's, markers "
+        f"{DICTIONARY}), whose lens views may show only part of it at the frame edges",
+    )
+    parser.add_argument(
+        "--marker-mm",
+        type=positive_float,
+        metavar="M",
+        help=f"ChArUco marker side, mm (default {DEFAULT_MARKER_FRACTION:g} × --square-mm)",
+    )
     parser.add_argument("--seed", type=int, default=0, help="seed of the ensemble's resampling (default 0)")
     parser.add_argument("-o", "--output", required=True, metavar="RIG.json", help="output rig file")
 
@@ -129,6 +143,12 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--offset-sigma-mm: expected a value >= 0, got {args.offset_sigma_mm:g}")
     if args.parallax_sigma_mm < 0:
         raise ValueError(f"--parallax-sigma-mm: expected a value >= 0, got {args.parallax_sigma_mm:g}")
+    charuco = None
+    if args.board == "charuco":
+        marker_mm = args.marker_mm if args.marker_mm is not None else DEFAULT_MARKER_FRACTION * args.square_mm
+        charuco = CharucoSpec(spec, mm_to_m(marker_mm))
+    elif args.marker_mm is not None:
+        raise ValueError("--marker-mm: only with --board charuco")
     result = calibrate_files(
         args.views,
         args.plane,
@@ -146,6 +166,7 @@ def run(args: argparse.Namespace) -> int:
         rng=args.seed,
         progress=lambda items: progress(items, desc="lens views", unit="view"),
         provenance={"tool": f"hopscope {__version__}", "seed": args.seed},
+        charuco=charuco,
     )
     write_text_atomic(args.output, rig_to_json(result.rig))
     for w in result.rig.warnings:
