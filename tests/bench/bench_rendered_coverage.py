@@ -5,6 +5,14 @@ For each seed: draw a new truth around the scene (speed, elevation, lift, spin d
 compression artefacts), then calibrate → track → fit through :mod:`hopscope.pipeline` as ``hopscope
 demo`` does, and compare with the truth in units of the fit's own standard error, z = (fit − true)/σ.
 
+The error bars carry two priors the images cannot check, so each seed's truth draws them too: the flight
+line's distance from the board at the field's left and right edges (the rig is told the scene's muzzle
+distance, parallel to the board, with σ = :data:`PARALLAX_SIGMA_MM` at each edge; the truth's line
+passes each edge that far off, N(0, σ²) each: :func:`drawn_flight_line`), and the BB's mass and
+diameter (the fit is told values drawn from the default tolerance about the true ones: :func:`told_bb`).
+Without these draws every seed shares one parallax error (the scene's fixed azimuth: +0.025 % in speed,
++0.64 % in C_D on lane-close) and none of the ±1 % mass doubt, so z came out biased and too small.
+
 Honest error bars put |z| < 1 about 68.3 % and |z| < 2 about 95.4 % of the time (normal distribution).
 With n seeds a coverage fraction p̂ has a binomial standard error √(p(1 − p)/n) (≈ 0.066 at n = 50 for
 p = 0.683), so read the fractions with that in mind; the rms of z (1 for honest bars, 0.8 for bars 25 %
@@ -18,6 +26,7 @@ too wide, 1.25 for bars 20 % too narrow) is the sharper summary. Prints one row 
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import math
 import time
 from pathlib import Path
@@ -25,9 +34,11 @@ from pathlib import Path
 import numpy as np
 
 from hopscope.fitting.air import Air
-from hopscope.fitting.bb import BB
+from hopscope.fitting.bb import BB, BBTolerance
 from hopscope.pipeline import FitSettings, calibrate_scene, fit_track_files, track_to_files
 from hopscope.scenes import builtin_scene, render_scene
+from hopscope.scenes.camera import SceneCamera
+from hopscope.scenes.spec import SceneSpec
 from hopscope.scenes.truth import SceneTruth
 from hopscope.scenes.variants import perturbed_scene
 from hopscope.tracker.pipeline import TrackOptions
@@ -51,28 +62,65 @@ def true_values(truth: SceneTruth, t0_s: float) -> dict[str, float]:
     return {"speed": speed, "C_D": fl.laws.drag_coefficient, "C_L0": cl, "tau": fl.laws.spin_decay_time_s}
 
 
+def drawn_flight_line(spec: SceneSpec, gen: np.random.Generator, sigma_m: float) -> SceneSpec:
+    """``spec`` with its flight line's distance from the board off the told one at each field edge by N(0, σ²).
+
+    The told line is the scene's muzzle distance, parallel to the board (what the rig is told). The
+    field's edges are where the image's left and right edges, at mid-height, meet the told plane; the drawn
+    line through the two edge depths sets the muzzle's z and the launch azimuth (dz/dx = tan azimuth, which
+    drag and the in-plane lift keep along the flight).
+    """
+    f, cam = spec.flight, SceneCamera.from_spec(spec.camera)
+    z_told = f.muzzle_m[2]
+    w, h = cam.image_size
+    rays = (
+        cam.rotation.T
+        @ np.column_stack(
+            [cam.undistort_pixels(np.array([[0.0, (h - 1) / 2], [w - 1.0, (h - 1) / 2]])), [1.0, 1.0]]
+        ).T
+    )
+    centre = cam.centre_m
+    x_left, x_right = sorted(centre[0] + (z_told - centre[2]) / rays[2] * rays[0])
+    z_left, z_right = (float(z) for z in z_told + gen.normal(0.0, sigma_m, 2))
+    slope = (z_right - z_left) / (x_right - x_left)
+    muzzle = (f.muzzle_m[0], f.muzzle_m[1], float(z_left + slope * (f.muzzle_m[0] - x_left)))
+    flight = dataclasses.replace(f, muzzle_m=muzzle, azimuth_deg=math.degrees(math.atan(slope)))
+    return dataclasses.replace(spec, flight=flight)
+
+
+def told_bb(mass_kg: float, diameter_m: float, gen: np.random.Generator) -> BB:
+    """The BB the fit is told: mass and diameter off the true ones by the default tolerance's N(0, σ²)."""
+    tol = BBTolerance.default_for(BB(mass_kg, diameter_m))
+    return BB(
+        mass_kg + gen.normal(0.0, tol.mass_sigma_kg), diameter_m + gen.normal(0.0, tol.diameter_sigma_m)
+    )
+
+
 def one_seed(scene: str, seed: int, root: Path, *, perturb: bool) -> dict[str, float | None]:
     """z-scores of one rendered, calibrated, tracked and fitted shot (None where not estimated)."""
     out = root / f"{scene}-seed{seed:03d}{'-p' if perturb else ''}"
     spec = builtin_scene(scene)
+    told_parallax_mm = 1e3 * spec.flight.muzzle_m[2]  # the user tapes the line's distance at the muzzle
+    gen = np.random.default_rng([seed, 1])  # the priors' draws, a stream of their own
     if perturb:
-        spec = perturbed_scene(spec, seed)
+        spec = drawn_flight_line(perturbed_scene(spec, seed), gen, 1e-3 * PARALLAX_SIGMA_MM)
     rendered = render_scene(spec, out / "scene", rng=seed)
     truth = rendered.truth
     fl = truth.flight
     assert fl is not None and rendered.flight_clip_path is not None
-    parallax_mm = 1e3 * float(np.mean(fl.path.z_m))  # the user tapes the flight line's mean distance
+    if perturb:
+        parallax_mm, bb = told_parallax_mm, told_bb(fl.mass_kg, fl.diameter_m, gen)
+    else:  # the scene's own truth: the flight line's mean distance and the BB as they are
+        parallax_mm, bb = 1e3 * float(np.mean(fl.path.z_m)), BB(fl.mass_kg, fl.diameter_m)
     cal = calibrate_scene(
         rendered, out / "rig.json", seed=seed, parallax_mm=parallax_mm, parallax_sigma_mm=PARALLAX_SIGMA_MM
     )
     options = TrackOptions(
-        readout_s=truth.camera.readout_s, exposure_s=truth.camera.exposure_s, bb_diameter_m=fl.diameter_m
+        readout_s=truth.camera.readout_s, exposure_s=truth.camera.exposure_s, bb_diameter_m=bb.diameter_m
     )
     track_to_files(rendered.flight_clip_path, cal.rig, options, track_path=out / "track.csv")
     air = Air.from_conditions(fl.air.temperature_k, fl.air.pressure_pa, fl.air.relative_humidity)
-    fitted = fit_track_files(
-        [out / "track.csv"], out / "fit.json", FitSettings(bb=BB(fl.mass_kg, fl.diameter_m), air=air)
-    )
+    fitted = fit_track_files([out / "track.csv"], out / "fit.json", FitSettings(bb=bb, air=air))
     fit = fitted.result
     shot = fit.shots[0]
     true = true_values(truth, float(shot.t0_s))
