@@ -7,14 +7,15 @@ in g, diameters in mm. Every function returns rows ``(label, value)`` for :func:
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from collections.abc import Mapping
+from typing import TYPE_CHECKING, Any
 
 from hopscope.console import summary
 from hopscope.shared.units import kg_to_grams, m_to_mm, mps_to_fps
-from hopscope.summaries import estimate_text
+from hopscope.summaries import estimate_text, measured_spin_rows
 
 if TYPE_CHECKING:  # types only
-    from hopscope.decisions import FitDecisions
+    from hopscope.decisions import FileDecisions, FitDecisions
     from hopscope.fitting.bb import BB, BBTolerance
     from hopscope.fitting.energy_limit import EnergyLimit, LimitVerdict
     from hopscope.fitting.muzzle import GroupStat, MuzzleState
@@ -131,6 +132,20 @@ def decisions_table(d: FitDecisions, title: str = "hopscope decisions") -> str:
     if d.energy_limit is not None:
         rows += limit_rows(d.energy_limit)
     return summary(title, rows)
+
+
+def spin_and_hop_table(
+    doc: Mapping[str, Any], decided: FileDecisions | None, title: str = "hopscope spin and hop verdict"
+) -> str | None:
+    """After a fit (``hopscope fit``, ``run``): one row per shot with a measured spin and the shared decay
+    (:func:`hopscope.summaries.measured_spin_rows` of the written ``fit.json``), then the hop verdict read
+    off the predicted paths for the group and each shot, with which way to turn the adjuster
+    (:func:`hopscope.decisions.decide_file`; None for a fit that did not converge). None when there is
+    nothing to show."""
+    rows = measured_spin_rows(doc)
+    if decided is not None:
+        rows += verdict_rows(decided.group_verdict, decided.shot_verdicts)
+    return summary(title, rows) if rows else None
 
 
 def _quantity_value(q: str, v: float | None, unit: str) -> str:

@@ -8,15 +8,15 @@ or, for the fit, the finished table.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from hopscope.console import summary, warn
-from hopscope.shared.units import kg_to_grams, m_to_mm, mps_to_fps, rad_to_deg, radps_to_rpm
+from hopscope.shared.units import kg_to_grams, m_to_mm, mps_to_fps, rad_to_deg, radps_to_rpm, s_to_ms
 
 if TYPE_CHECKING:  # types only: the presenters never run the stages
     from hopscope.calibration.dragbound import DragBound
@@ -111,6 +111,78 @@ def parameter_table(result: FlightFit, title: str = "hopscope fit") -> str:
     )
     rows.append(("converged", "yes" if result.converged else f"NO: {result.reason}"))
     return summary(title, rows)
+
+
+# ============================================================================================ measured spin
+
+
+def spin_rate_text(value_radps: float, stderr_radps: float | None) -> str:
+    """A measured spin rate in rpm with rad/s beside it: ``61500 ± 290 rpm (6440 ± 30 rad/s)``."""
+    e = "?" if stderr_radps is None else f"{radps_to_rpm(stderr_radps):.2g}"
+    es = "?" if stderr_radps is None else f"{stderr_radps:.2g}"
+    return f"{radps_to_rpm(value_radps):.0f} ± {e} rpm ({value_radps:.5g} ± {es} rad/s)"
+
+
+def spin_candidates_text(candidates_radps: Sequence[float]) -> str:
+    """The candidate rates of an aliased flicker, in rpm with rad/s: ``132000 rpm (13823 rad/s), ...``."""
+    return ", ".join(f"{radps_to_rpm(c):.0f} rpm ({c:.0f} rad/s)" for c in candidates_radps)
+
+
+def spin_choice_text(record: Mapping[str, Any]) -> str:
+    """Which candidate of an aliased ``spin_measured`` record was taken and by which prior (its
+    ``method`` names it), or that none was and why (its ``reason``); empty when not aliased."""
+    if len(record["candidates_radps"]) <= 1:
+        return ""
+    if record["rate_radps"]["value"] is not None:
+        return f"picked by a stated prior: {record['method']}"
+    return f"none picked: {record['reason']}"
+
+
+def spin_record_text(record: Mapping[str, Any]) -> str:
+    """One ``spin_measured`` record of ``fit.json`` in one line: the rate ± σ (rpm, rad/s) at its time,
+    the marking and the method, and the candidates when aliased; or why there is no rate."""
+    rate = record["rate_radps"]
+    cands = record["candidates_radps"]
+    aliased = (
+        f"; aliased, candidates {spin_candidates_text(cands)}; {spin_choice_text(record)}"
+        if len(cands) > 1
+        else ""
+    )
+    if rate["value"] is None:
+        return f"not measured: {record['reason']}" + (
+            f"; aliased, candidates {spin_candidates_text(cands)}" if len(cands) > 1 else ""
+        )
+    return (
+        f"{spin_rate_text(rate['value'], rate['stderr'])} at t = {s_to_ms(record['at_t_s']):.3f} ms; "
+        f"marking {record['marking']}; {record['method']}{aliased}"
+    )
+
+
+def spin_decay_text(block: Mapping[str, Any] | None) -> str:
+    """``aero.spin_decay`` of ``fit.json`` in one line: its source, λ ± σ (1/s), τ ± σ (s) and its note."""
+    if not block:
+        return "not recorded in this fit file"
+    lam, tau = block.get("rate_per_s") or {}, block.get("time_s") or {}
+    parts = [f"source {block['source']}"]
+    if lam.get("value") is not None:
+        parts.append(f"λ = {lam['value']:.3g} ± {lam['stderr']:.2g} 1/s")
+    if tau.get("value") is not None:
+        parts.append(f"τ = {tau['value']:.3g} ± {tau['stderr']:.2g} s")
+    note = block.get("note")
+    return ", ".join(parts) + (f" ({note})" if note else "")
+
+
+def measured_spin_rows(doc: Mapping[str, Any]) -> Rows:
+    """Rows for a fit document (``fit.json``): one per shot with ``spin_measured`` (its
+    :func:`spin_record_text`), then the shared decay estimate; none when no shot has a measured spin."""
+    rows: Rows = [
+        (f"{s['label']} spin (measured)", spin_record_text(s["spin_measured"]))
+        for s in doc["shots"]
+        if "spin_measured" in s
+    ]
+    if rows:
+        rows.append(("spin decay (shared)", spin_decay_text(doc.get("aero", {}).get("spin_decay"))))
+    return rows
 
 
 # ============================================================================================ calibrate

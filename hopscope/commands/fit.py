@@ -17,8 +17,10 @@ import argparse
 
 from hopscope import options
 from hopscope.console import warn
-from hopscope.decision_summaries import decisions_table
+from hopscope.decision_summaries import decisions_table, spin_and_hop_table
+from hopscope.decisions import convention_from_args, decide_file
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
+from hopscope.fitting.fitfile import read_fit
 from hopscope.folders import check_output_file
 from hopscope.pipeline import fit_track_files
 from hopscope.summaries import parameter_table, speed_text
@@ -37,6 +39,7 @@ def register(parser: argparse.ArgumentParser) -> None:
     options.add_track_inputs(parser)
     options.add_fit_options(parser)
     options.add_limit_option(parser)
+    options.add_forecast_options(parser)
     parser.add_argument("-o", "--output", required=True, metavar="FIT_JSON", help="the fit.json to write")
 
 
@@ -48,6 +51,10 @@ def run(args: argparse.Namespace) -> int:
     print(parameter_table(result))
     if fitted.decisions is not None:
         print(decisions_table(fitted.decisions))
+    written = read_fit(out)
+    after = spin_and_hop_table(written.data, decide_file(written, convention=convention_from_args(args)))
+    if after is not None:
+        print(after)
     for line in result.warnings:
         warn(line)
     chrono = settings.chrono

@@ -23,8 +23,10 @@ import argparse
 
 from hopscope import options
 from hopscope.console import warn
-from hopscope.decision_summaries import decisions_table
+from hopscope.decision_summaries import decisions_table, spin_and_hop_table
+from hopscope.decisions import Convention, decide_file
 from hopscope.errors import EXIT_OK, EXIT_UNEXPECTED
+from hopscope.fitting.fitfile import read_fit
 from hopscope.pipeline import RunOutcome, run_to_folder
 from hopscope.summaries import show_run
 
@@ -46,13 +48,21 @@ def execute(args: argparse.Namespace, *, title: str | None = None) -> RunOutcome
     return run_to_folder(options.run_request(args, title=title), on_warning=warn)
 
 
-def report_outcome(outcome: RunOutcome, title: str = "hopscope run") -> int:
-    """Print the parameter table, the run summary and the fit's warnings; the exit code."""
+def report_outcome(
+    outcome: RunOutcome, title: str = "hopscope run", *, convention: Convention | None = None
+) -> int:
+    """Print the parameter table, the run summary and the fit's warnings, then the measured spin and the
+    hop verdict (judged by ``convention``, default the README's); the exit code."""
     show_run(outcome, title)
     if outcome.fitted.decisions is not None:
         print(decisions_table(outcome.fitted.decisions))
+    written = read_fit(outcome.fitted.fit_path)
+    after = spin_and_hop_table(written.data, decide_file(written, convention=convention))
+    if after is not None:
+        print(after)
     return EXIT_OK if outcome.fitted.result.converged else EXIT_UNEXPECTED
 
 
 def run(args: argparse.Namespace) -> int:
-    return report_outcome(execute(args))
+    request = options.run_request(args)
+    return report_outcome(run_to_folder(request, on_warning=warn), convention=request.convention)

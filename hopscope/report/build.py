@@ -295,6 +295,8 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         chronograph=tables.chrono_rows(fit),
         links=[{"label": lbl, "href": href} for lbl, href in inputs.links],
         quality=tables.quality_rows(fit),
+        spin=tables.measured_spin_rows(fit),
+        spin_decay=tables.spin_decay_row(fit),
         inputs=", ".join([Path(fit.source).name] + [Path(p).name for p, _ in inputs.tracks]),
         css=css,
     )

@@ -12,9 +12,15 @@ from typing import TYPE_CHECKING
 
 from hopscope.fitting.fitfile import FitFile
 from hopscope.fitting.verdict import judge_hop, lift_to_weight
-from hopscope.shared.units import kg_to_grams, mps_to_fps, radps_to_rpm
+from hopscope.shared.units import kg_to_grams, mps_to_fps, radps_to_rpm, s_to_ms
 
-from ..summaries import loss_text
+from ..summaries import (
+    loss_text,
+    spin_candidates_text,
+    spin_choice_text,
+    spin_decay_text,
+    spin_rate_text,
+)
 
 if TYPE_CHECKING:
     from .build import ReportInputs
@@ -269,3 +275,35 @@ def chrono_rows(fit: FitFile) -> list[tuple[str, str]]:
         dev = "" if not sigma else f", {diff / sigma:+.1f} σ"
         rows.append((label, f"{v:.5g} {_unc(e)} m/s: {diff:+.3g} m/s from the chronograph{dev}"))
     return rows
+
+
+def measured_spin_rows(fit: FitFile) -> list[dict[str, str]]:
+    """One row per shot with ``spin_measured`` (a marked BB's flicker): the rate in rpm and rad/s with its σ
+    and its time, the marking, the method, and the candidates with the prior's choice when aliased; a shot
+    without a rate gives the record's reason instead."""
+    rows = []
+    for i in range(fit.n_shots):
+        s = fit.shot(i)
+        rec = s.get("spin_measured")
+        if rec is None:
+            continue
+        rate = rec["rate_radps"]
+        cands = rec["candidates_radps"]
+        measured = rate["value"] is not None
+        rows.append(
+            {
+                "shot": s["label"],
+                "rate": spin_rate_text(rate["value"], rate["stderr"]) if measured else "not measured",
+                "at": f"{s_to_ms(rec['at_t_s']):.3f} ms" if measured else "",
+                "marking": rec["marking"],
+                "method": rec["method"] if measured else str(rec.get("reason") or ""),
+                "candidates": spin_candidates_text(cands) if len(cands) > 1 else "",
+                "choice": spin_choice_text(rec),
+            }
+        )
+    return rows
+
+
+def spin_decay_row(fit: FitFile) -> str:
+    """The shared spin-decay estimate ``aero.spin_decay`` with its named source, in one line."""
+    return spin_decay_text(fit.data["aero"].get("spin_decay"))

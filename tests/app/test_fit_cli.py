@@ -57,6 +57,29 @@ def test_fit_writes_fit_json_and_prints_table(tmp_path, capsys):
     assert "warning: air conditions not given" in err
 
 
+def test_fit_prints_the_hop_verdict_read_off_the_predicted_path(tmp_path, capsys):
+    from hopscope.decision_summaries import verdict_text
+    from hopscope.decisions import Convention, decide_file
+
+    track = _write(tmp_path, n_shots=2)
+    out = tmp_path / "fit.json"
+    argv = [str(track), "--mass-g", "0.25", "--engagement-m", "25", "--band-m", "0.1", "-o", str(out)]
+    rc, text, err = _run(capsys, argv)
+    assert rc == EXIT_OK, err
+    # the same verdicts as the report's, judged by the options given (group first, then each shot)
+    decided = decide_file(read_fit(out), convention=Convention(band_m=0.1, engagement_m=25.0))
+    assert decided is not None
+    group = decided.group_verdict
+    assert group.engagement_m == 25.0 and group.band_m == 0.1
+    line = next(ln for ln in text.splitlines() if "group (mean shot)" in ln)
+    assert line.split("group (mean shot)", 1)[1].strip() == verdict_text(group)
+    assert group.adjuster in line  # which way to turn the adjuster
+    assert "within ±0.1 m of the line of sight to 25 m" in text
+    for v in decided.shot_verdicts:
+        assert f"{v.label}" in text and verdict_text(v) in text
+    assert "spin (measured)" not in text  # an unmarked BB: no measured spin row
+
+
 def test_two_files_fit_jointly_and_share_drag(tmp_path, capsys):
     a = _write(tmp_path, "a.csv", seed=1)
     b = _write(tmp_path, "b.csv", n_shots=2, seed=2)

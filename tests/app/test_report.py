@@ -273,3 +273,131 @@ def test_report_with_a_null_stderr_renders(fit_json, tmp_path):
     path.write_text(json.dumps(doc))
     html = render_report(load_report_inputs(path))
     assert "± ?" in html
+
+
+# ---------------------------------------------------------------------------------------------- measured spin
+
+#: Invented records of a marked BB's flicker (layout of fitting.spin.shot_spin_to_json): an aliased shot whose
+#: prior picked the second candidate, with a per-time decay fit, and an aliased shot no prior could settle.
+PICKED_RADPS = (13823.0, 17593.0)
+PICKED_PRIOR = "fitted C_L 0.0545 ± 0.001 under the test lift law"
+UNPICKED_REASON = "aliased: the prior 1000 ± 250 rad/s (test prior) matches no candidate within 3 σ"
+#: Flicker decay constant of the first record, 1/s (and its σ).
+FLICKER_LAMBDA = (0.5, 0.05)
+
+
+def _spin_records() -> list[dict]:
+    decay = {
+        "per": "time",
+        "reference": 0.01,
+        "rate0_radps": {"value": PICKED_RADPS[1], "stderr": 40.0},
+        "decay_constant": {"value": FLICKER_LAMBDA[0], "stderr": FLICKER_LAMBDA[1]},
+        "scale": {"value": 1.0, "stderr": 0.01},
+        "n_windows": 4,
+        "reduced_chi2": 1.1,
+        "reason": None,
+    }
+    picked = {
+        "rate_radps": {"value": PICKED_RADPS[1], "stderr": 40.0},
+        "at_t_s": 0.0104,
+        "candidates_radps": list(PICKED_RADPS),
+        "marking": "half-axis-toward-camera",
+        "method": f"lomb-scargle, alias chosen by prior ({PICKED_PRIOR})",
+        "reason": None,
+        "decay": decay,
+        "decay_reason": None,
+    }
+    unpicked = {
+        "rate_radps": {"value": None, "stderr": None},
+        "at_t_s": 0.025,
+        "candidates_radps": list(PICKED_RADPS),
+        "marking": "half-axis-toward-camera",
+        "method": "lomb-scargle",
+        "reason": UNPICKED_REASON,
+        "decay": None,
+        "decay_reason": "decay not measured: no spin rate",
+    }
+    return [picked, unpicked]
+
+
+@pytest.fixture(scope="module")
+def spin_fit_json(fit_json, tmp_path_factory) -> Path:
+    """The two-shot fit with a measured spin on each shot and ``aero.spin_decay`` remade from them."""
+    from hopscope.fitting.decay_source import with_decay_source
+
+    doc = json.loads(fit_json.read_text(encoding="utf-8"))
+    for shot, rec in zip(doc["shots"], _spin_records(), strict=True):
+        shot["spin_measured"] = rec
+    path = tmp_path_factory.mktemp("spin") / "fit.json"
+    path.write_text(json.dumps(with_decay_source(doc), allow_nan=False), encoding="utf-8")
+    return path
+
+
+def _spin_table(html: str) -> str:
+    start = html.index('id="spin"')
+    return html[start : html.index("</table>", start)]
+
+
+def test_report_shows_each_measured_spin_with_its_candidates_and_choice(spin_fit_json):
+    from hopscope.shared.units import radps_to_rpm
+
+    html = render_report(load_report_inputs(spin_fit_json))
+    rows = re.findall(r"<tr><td>(.*?)</td></tr>", _spin_table(html), flags=re.S)
+    assert len(rows) == 2  # one per shot with spin_measured
+    picked, unpicked = rows
+    # rate in rpm and rad/s with σ, its time, the marking and the method naming the prior
+    assert f"{radps_to_rpm(PICKED_RADPS[1]):.0f} ± {radps_to_rpm(40.0):.2g} rpm" in picked
+    assert f"{PICKED_RADPS[1]:.5g} ± 40 rad/s" in picked and "10.400 ms" in picked
+    assert "half-axis-toward-camera" in picked and str(escape(PICKED_PRIOR)) in picked
+    for c in PICKED_RADPS:  # both candidates, in both units
+        assert f"{radps_to_rpm(c):.0f} rpm ({c:.0f} rad/s)" in picked and f"({c:.0f} rad/s)" in unpicked
+    assert "picked by a stated prior" in picked
+    # no rate: the record's reason, and that no candidate was picked
+    assert "not measured" in unpicked and "none picked" in unpicked
+    assert str(escape(UNPICKED_REASON)) in unpicked and "rpm (" not in unpicked.split("</td>")[1]
+
+
+def test_report_shows_the_shared_spin_decay_with_its_source(spin_fit_json):
+    from hopscope.fitting.decay_source import SOURCES
+
+    doc = json.loads(spin_fit_json.read_text(encoding="utf-8"))
+    block = doc["aero"]["spin_decay"]
+    # the flicker's decay is one of the parts, so the source is "measured" or "combined", never "assumed"
+    assert block["source"] in SOURCES and block["source"] in ("measured", "combined")
+    html = render_report(load_report_inputs(spin_fit_json))
+    start = html.index('id="spin-decay"')
+    line = html[start : html.index("</p>", start)]
+    lam = block["rate_per_s"]
+    assert f"source {block['source']}" in line
+    assert f"λ = {lam['value']:.3g} ± {lam['stderr']:.2g} 1/s" in line
+
+
+def test_report_without_measured_spin_has_no_spin_section(fit_json):
+    assert 'id="spin"' not in render_report(load_report_inputs(fit_json))
+
+
+def test_spin_screen_rows_one_per_measured_shot_then_the_decay(spin_fit_json):
+    from hopscope.summaries import measured_spin_rows
+
+    doc = json.loads(spin_fit_json.read_text(encoding="utf-8"))
+    rows = measured_spin_rows(doc)
+    labels = [s["label"] for s in doc["shots"]]
+    assert [r[0] for r in rows] == [f"{lbl} spin (measured)" for lbl in labels] + ["spin decay (shared)"]
+    assert "rpm" in rows[0][1] and PICKED_PRIOR in rows[0][1]
+    assert rows[1][1].startswith(f"not measured: {UNPICKED_REASON}")
+    assert f"source {doc['aero']['spin_decay']['source']}" in rows[2][1]
+    doc_plain = {**doc, "shots": [{k: v for k, v in s.items() if k != "spin_measured"} for s in doc["shots"]]}
+    assert measured_spin_rows(doc_plain) == []
+
+
+@pytest.mark.browser
+def test_measured_spin_in_headless_chromium(spin_fit_json, tmp_path):
+    from hopscope.shared.units import radps_to_rpm
+
+    out = tmp_path / "spin.html"
+    assert cli.main(["report", str(spin_fit_json), "-o", str(out)]) == 0
+    page = open_report(out, ARTIFACTS / "report-spin.png")
+    assert page.console_errors == ()
+    assert "Measured spin" in page.headings
+    assert f"{radps_to_rpm(PICKED_RADPS[1]):.0f} ±" in page.text and "none picked" in page.text
+    assert "Spin decay (shared by all shots): source" in page.text

@@ -155,6 +155,9 @@ def test_run_prints_table_and_summary(inputs, tmp_path, capsys):
     text = capsys.readouterr()
     assert rc == EXIT_OK
     assert "hopscope fit" in text.out and "hopscope run" in text.out and "C_D" in text.out
+    # the group's hop verdict read off the predicted path, with which way to turn the adjuster
+    verdict = r"group \(mean shot\)\s+(flat|under-hopped|over-hopped|undetermined)"
+    assert re.search(verdict, text.out), text.out
     # the clip's frame rate in frames/s; fps appears only as a speed (after a number in m/s)
     assert re.search(r"\d+ frames at 2000 frames/s", text.out), text.out
     assert all("m/s" in ln for ln in text.out.splitlines() if "fps" in ln), text.out
