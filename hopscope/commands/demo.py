@@ -55,7 +55,7 @@ DESCRIPTION = (
 )
 
 #: Scenes the demo offers (the built-in lanes with a flight clip the default laws describe).
-DEMO_SCENES = ("lane-close", "lane-long", "lane-spin")
+DEMO_SCENES = ("lane-close", "lane-long", "lane-spin", "lane-spin-aliased")
 DEFAULT_SCENE = "lane-close"
 DEFAULT_OUT = "hopscope-demo"
 

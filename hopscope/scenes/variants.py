@@ -7,8 +7,8 @@
 - ``lane-close-holder``: lane-close with a 1000 fps drop clip in which the BB first rests in a holder
   (still, touching the holder's edge) and is then released.
 - ``lane-spin-*``: the marked-BB close-up with other spin rates, decay times and frame rates, one of them
-  with the flicker aliased (flicker frequency above half the frame rate); :func:`lane_spin_variant` makes
-  more.
+  with the flicker aliased (``lane-spin-aliased``: lane-spin's field and ball image, a faster spin at a
+  lower frame rate, so it aliases through the frame rate alone); :func:`lane_spin_variant` makes more.
 - :func:`with_crossing_distractor`: any scene with a dark or bright blob of about twice the BB's image size
   crossing the BB's path at about a tenth of its image speed, wobbling.
 
@@ -155,8 +155,10 @@ SPIN_VARIANTS: dict[str, tuple[float, float, float, float | None, float | None]]
     "lane-spin-5k": (1027.0, 2.0, 5000.0, None, None),
     # a fast-decaying spin over a wider 0.8 m field (≈ 8 ms in view: the spin falls by a third)
     "lane-spin-decay": (1027.0, 0.02, 10000.0, 1.0, -0.6),
-    # 1800 fps over a 1.2 m field: the 1027 Hz flicker lies above Nyquist (900 Hz), seen at |f - fps| = 773 Hz
-    "lane-spin-aliased": (1027.0, 2.0, 1800.0, 1.5, -0.8),
+    # lane-spin's 0.3 m field and 6.4 px ball at 5000 fps (16 frames in view): a 2800 rev/s spin flickers
+    # above Nyquist (2500 Hz) and is seen at |f - fps| = 2200 Hz; 2200 and 2800 rev/s both lie in the
+    # estimator's plausible band, so the flicker alone cannot tell them apart
+    "lane-spin-aliased": (2800.0, 2.0, 5000.0, None, None),
 }
 
 

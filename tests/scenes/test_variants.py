@@ -42,6 +42,8 @@ EDGE_SHARE = 0.03
 PLACEMENTS_SPAN_SHARE = 0.8
 #: Spin variants: the launch spin and decay time as asked, relative.
 SPIN_REL_TOL = 1e-9
+#: The aliased variant's ball image against lane-spin's (the flight differs only in its lift), relative.
+BALL_RADIUS_REL_TOL = 0.01
 #: Flicker frequency from the periodogram vs the expected (true or aliased) frequency, relative.
 FLICKER_FREQ_REL_TOL = 0.03
 #: Crossing distractor: size, speed (relative) and crossing point (px) as asked.
@@ -134,6 +136,21 @@ def test_marked_bb_flickers_at_the_spin_rate_or_its_alias(name):
     freqs = np.linspace(0.05 * fps, 0.5 * fps, 3000)
     power = lombscargle(t, y, 2 * np.pi * freqs)
     assert freqs[np.argmax(power)] == pytest.approx(f_seen, rel=FLICKER_FREQ_REL_TOL)
+
+
+def test_aliased_variant_keeps_lane_spins_ball_image_and_aliases_through_the_frame_rate():
+    # the marked-ball fit needs a ball of at least MARKED_MIN_RADIUS_PX: the aliased variant must be trackable
+    from hopscope.tracker.pipeline import MARKED_MIN_RADIUS_PX
+
+    base, aliased = builtin_scene("lane-spin"), builtin_scene("lane-spin-aliased")
+    assert aliased.camera.position_m == base.camera.position_m
+    assert aliased.camera.image_size == base.camera.image_size
+    assert aliased.camera.focal_px == base.camera.focal_px
+    r_base, r_aliased = bb_image_at(base).radius_px, bb_image_at(aliased).radius_px
+    assert r_aliased == pytest.approx(r_base, rel=BALL_RADIUS_REL_TOL)
+    assert r_aliased >= 3 * MARKED_MIN_RADIUS_PX
+    spin_rev_s, _, fps, _, _ = SPIN_VARIANTS["lane-spin-aliased"]
+    assert 0.5 * fps < spin_rev_s  # one flicker cycle per turn (half-dark ball) above Nyquist
 
 
 @pytest.mark.parametrize("polarity", ["dark", "bright"])
