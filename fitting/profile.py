@@ -10,6 +10,10 @@ From shots of one BB type at different speeds:
   shot). A trajectory fixes the lift force, not the spin (under the linear law only k·ω₀), so without a
   measured spin the profile says so instead of inventing S.
 
+The BB's mass and diameter tolerance (:class:`fitting.bb.BBTolerance`) widens every C_D and C_L error bar
+by its own share, added in quadrature (:func:`fitting.bbshare.with_bb_share`): at a fixed measured path
+C_D and C_L scale as m/d². Each estimate keeps that share as ``stderr_bb``.
+
 Files: ``profile.json`` (schema ``hopscope.profile/1``) and a CSV with the same rows (``kind`` = drag or
 lift) and ``#`` header lines (schema, BB, air, notes, warnings), both loadable by a trajectory simulator.
 
@@ -34,7 +38,8 @@ import numpy as np
 from hopscope.shared.parse import finite_or_none, json_finite
 
 from .air import Air
-from .bb import BB
+from .bb import BB, BBTolerance
+from .bbshare import with_bb_share
 from .estimate import fit_shots
 from .laws import reynolds_number
 from .observe import ShotData
@@ -42,14 +47,15 @@ from .observe import ShotData
 SCHEMA = "hopscope.profile/1"
 DEFAULT_BINS = 4
 CSV_COLUMNS = (
-    "kind", "label", "re_lo", "re_hi", "re", "speed_mps", "spin_ratio", "coefficient", "stderr", "n_shots",
-    "spin_source",
+    "kind", "label", "re_lo", "re_hi", "re", "speed_mps", "spin_ratio", "coefficient", "stderr", "stderr_bb",
+    "n_shots", "spin_source",
 )  # fmt: skip
 
 
 @dataclass(frozen=True)
 class DragBin:
-    """C_D of one Reynolds-number bin (SI; Re dimensionless)."""
+    """C_D of one Reynolds-number bin (SI; Re dimensionless). ``cd_stderr`` includes the BB tolerance's
+    share ``cd_stderr_bb`` (None: no tolerance applied)."""
 
     re_lo: float
     re_hi: float
@@ -59,6 +65,7 @@ class DragBin:
     cd_stderr: float | None
     n_shots: int
     converged: bool
+    cd_stderr_bb: float | None = None
 
 
 @dataclass(frozen=True)
@@ -67,7 +74,7 @@ class LiftPoint:
 
     ``spin_ratio`` is None unless the spin is known: ``spin_source`` says how — ``"measured"`` (a measured
     spin was given), ``"assumed k=…"`` (S = C_L/k under the linear law for an assumed k: model-based) or
-    ``""`` (unknown).
+    ``""`` (unknown). ``cl_stderr`` includes the BB tolerance's share ``cl_stderr_bb`` (None: none applied).
     """
 
     label: str
@@ -77,6 +84,7 @@ class LiftPoint:
     cl: float | None
     cl_stderr: float | None
     spin_source: str = ""
+    cl_stderr_bb: float | None = None
 
 
 @dataclass(frozen=True)
@@ -89,6 +97,7 @@ class BBProfile:
     drag : C_D per Reynolds-number bin. lift : C_L per shot.
     spin_decay_time_s, spin_decay_time_stderr_s : τ from the all-shot fit (None where undetermined).
     notes, warnings : one line each.
+    tolerance : the BB's mass and diameter tolerance in the C_D and C_L error bars (None: not applied).
     """
 
     label: str
@@ -102,6 +111,7 @@ class BBProfile:
     spin_decay_time_stderr_s: float | None
     notes: tuple[str, ...]
     warnings: tuple[str, ...]
+    tolerance: BBTolerance | None = None
 
 
 def _edges(re: np.ndarray, n_bins: int) -> np.ndarray:
@@ -123,6 +133,7 @@ def build_profile(
     spin_radps: Sequence[float | None] | None = None,
     assumed_lift_k: float | None = None,
     lift: str = "linear",
+    tolerance: BBTolerance | None = None,
 ) -> BBProfile:
     """Build a BB profile from shots of one BB type (see the module docstring).
 
@@ -137,6 +148,9 @@ def build_profile(
     assumed_lift_k : for shots without a measured spin, give S = C_L/k under the linear law for this
         assumed k (model-based, marked so in ``spin_source``); None: leave S unknown.
     lift : lift law for the fits.
+    tolerance : the BB's mass and diameter standard uncertainties (SI); default
+        :meth:`fitting.bb.BBTolerance.default_for`. Its share, |C|·√((σ_m/m)² + (2σ_d/d)²), is added in
+        quadrature to every C_D and C_L (:func:`fitting.bbshare.with_bb_share`).
     """
     shots = tuple(shots)
     if len(shots) < 2:
@@ -148,6 +162,8 @@ def build_profile(
             raise ValueError(f"assumed_lift_k must be positive, got {assumed_lift_k!r}")
     if spin_radps is not None and len(spin_radps) != len(shots):
         raise ValueError(f"spin_radps: expected {len(shots)} entries (one per shot), got {len(spin_radps)}")
+    tol = BBTolerance.default_for(bb) if tolerance is None else tolerance
+    rel = tol.aero_rel(bb)
     allfit = fit_shots(shots, bb=bb, air=air, lift=lift)
     warnings = [f"all shots: {w}" for w in allfit.warnings]
     if not allfit.converged:
@@ -169,16 +185,18 @@ def build_profile(
         f = fit_shots([shots[i] for i in members], bb=bb, air=air, lift=lift, decay_fixed=decay_value)
         if not f.converged:
             warnings.append(f"Re {lo:.4g}..{hi:.4g}: fit did not converge: {f.reason}")
+        cd = with_bb_share(f.drag_coefficient, rel)
         bins.append(
             DragBin(
                 re_lo=float(lo),
                 re_hi=float(hi),
                 re=float(np.mean(re[members])),
                 speed_mps=float(np.mean(speeds[members])),
-                cd=f.drag_coefficient.value,
-                cd_stderr=f.drag_coefficient.stderr,
+                cd=cd.value,
+                cd_stderr=cd.stderr,
                 n_shots=len(members),
                 converged=f.converged,
+                cd_stderr_bb=cd.stderr_bb,
             )
         )
     lift_pts = []
@@ -196,13 +214,17 @@ def build_profile(
         elif assumed_lift_k is not None and s.lift_coefficient.value is not None:
             ratio = s.lift_coefficient.value / assumed_lift_k
             source = f"assumed k={assumed_lift_k:g}"
-        cl = s.lift_coefficient
+        cl = with_bb_share(s.lift_coefficient, rel)
         lift_pts.append(
-            LiftPoint(s.label, float(re[i]), float(speeds[i]), ratio, cl.value, cl.stderr, source)
+            LiftPoint(
+                s.label, float(re[i]), float(speeds[i]), ratio, cl.value, cl.stderr, source, cl.stderr_bb
+            )
         )
     notes = [
         "drag: C_D per Reynolds-number bin (Re at the first tracked point), each bin fitted jointly",
         "lift: C_L at each shot's first tracked point from the all-shot joint fit",
+        f"BB tolerance ({tol.origin}): mass ± {tol.mass_sigma_kg:.3g} kg, diameter ± {tol.diameter_sigma_m:.3g} m "
+        f"(1σ), {100 * rel:.3g} % of C_D and C_L added in quadrature to their error bars (stderr_bb)",
     ]
     if measured < len(shots) and assumed_lift_k is not None:
         notes.append(
@@ -229,6 +251,7 @@ def build_profile(
         spin_decay_time_stderr_s=tau.stderr,
         notes=tuple(notes),
         warnings=tuple(warnings),
+        tolerance=tol,
     )
 
 
@@ -238,11 +261,24 @@ def build_profile(
 _num = finite_or_none
 
 
+def _tolerance_dict(tol: BBTolerance | None) -> dict[str, Any] | None:
+    if tol is None:
+        return None
+    return {
+        "mass_sigma_kg": tol.mass_sigma_kg,
+        "diameter_sigma_m": tol.diameter_sigma_m,
+        "origin": tol.origin,
+    }
+
+
 def profile_to_dict(p: BBProfile) -> dict[str, Any]:
+    """``profile.json`` as a dict: ``bb.tolerance`` ``{mass_sigma_kg, diameter_sigma_m, origin}`` (or null),
+    and every ``drag_coefficient``/``lift_coefficient`` ``{value, stderr, stderr_bb}`` (``stderr`` includes
+    the BB's share ``stderr_bb``)."""
     return {
         "schema": SCHEMA,
         "label": p.label,
-        "bb": {"mass_kg": p.mass_kg, "diameter_m": p.diameter_m},
+        "bb": {"mass_kg": p.mass_kg, "diameter_m": p.diameter_m, "tolerance": _tolerance_dict(p.tolerance)},
         "air": {"density_kgm3": p.density_kgm3, "viscosity_pas": p.viscosity_pas},
         "drag": [
             {
@@ -250,7 +286,11 @@ def profile_to_dict(p: BBProfile) -> dict[str, Any]:
                 "re_hi": b.re_hi,
                 "re": b.re,
                 "speed_mps": b.speed_mps,
-                "drag_coefficient": {"value": _num(b.cd), "stderr": _num(b.cd_stderr)},
+                "drag_coefficient": {
+                    "value": _num(b.cd),
+                    "stderr": _num(b.cd_stderr),
+                    "stderr_bb": _num(b.cd_stderr_bb),
+                },
                 "n_shots": b.n_shots,
                 "converged": b.converged,
             }
@@ -263,7 +303,11 @@ def profile_to_dict(p: BBProfile) -> dict[str, Any]:
                 "speed_mps": lp.speed_mps,
                 "spin_ratio": _num(lp.spin_ratio),
                 "spin_source": lp.spin_source,
-                "lift_coefficient": {"value": _num(lp.cl), "stderr": _num(lp.cl_stderr)},
+                "lift_coefficient": {
+                    "value": _num(lp.cl),
+                    "stderr": _num(lp.cl_stderr),
+                    "stderr_bb": _num(lp.cl_stderr_bb),
+                },
             }
             for lp in p.lift
         ],
@@ -296,6 +340,12 @@ def profile_to_csv(p: BBProfile) -> str:
     out.write(f"# label: {p.label}\n")
     out.write(f"# bb: mass_kg={p.mass_kg!r} diameter_m={p.diameter_m!r}\n")
     out.write(f"# air: density_kgm3={p.density_kgm3!r} viscosity_pas={p.viscosity_pas!r}\n")
+    if p.tolerance is not None:
+        t = p.tolerance
+        out.write(
+            f"# bb_tolerance: mass_sigma_kg={t.mass_sigma_kg!r} diameter_sigma_m={t.diameter_sigma_m!r} "
+            f"origin={t.origin}\n"
+        )
     if p.spin_decay_time_s is not None:
         out.write(f"# spin_decay_time_s: {p.spin_decay_time_s!r} +- {p.spin_decay_time_stderr_s!r}\n")
     for n in p.notes:
@@ -314,13 +364,14 @@ def profile_to_csv(p: BBProfile) -> str:
             None,
             _num(b.cd),
             _num(b.cd_stderr),
+            _num(b.cd_stderr_bb),
             b.n_shots,
             "",
         ]
         out.write(",".join(_cell(v) for v in row) + "\n")
     for lp in p.lift:
         row = ["lift", lp.label, None, None, lp.re, lp.speed_mps, _num(lp.spin_ratio), _num(lp.cl),
-               _num(lp.cl_stderr), 1, lp.spin_source]  # fmt: skip
+               _num(lp.cl_stderr), _num(lp.cl_stderr_bb), 1, lp.spin_source]  # fmt: skip
         out.write(",".join(_cell(v) for v in row) + "\n")
     return out.getvalue()
 
@@ -349,6 +400,10 @@ def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
         e = obj[key]
         return num(e, "value", f"{where}.{key}", True), num(e, "stderr", f"{where}.{key}", True)
 
+    def bb_part(obj, key, where):  # the BB tolerance's share (files written before it have none)
+        e = obj[key]
+        return num(e, "stderr_bb", f"{where}.{key}", True) if "stderr_bb" in e else None
+
     for key in ("drag", "lift", "notes", "warnings"):
         if not isinstance(d.get(key), list):
             raise ValueError(f"{source}: key {key}: expected a list")
@@ -357,14 +412,25 @@ def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
         w = f"drag[{i}]"
         cd, cds = est(b, "drag_coefficient", w)
         bins.append(DragBin(num(b, "re_lo", w), num(b, "re_hi", w), num(b, "re", w), num(b, "speed_mps", w),
-                            cd, cds, int(num(b, "n_shots", w)), bool(b.get("converged", True))))  # fmt: skip
+                            cd, cds, int(num(b, "n_shots", w)), bool(b.get("converged", True)),
+                            bb_part(b, "drag_coefficient", w)))  # fmt: skip
     pts = []
     for i, lp in enumerate(d["lift"]):
         w = f"lift[{i}]"
         cl, cls = est(lp, "lift_coefficient", w)
         pts.append(LiftPoint(str(lp.get("label", "")), num(lp, "re", w), num(lp, "speed_mps", w),
-                             num(lp, "spin_ratio", w, True), cl, cls, str(lp.get("spin_source", ""))))  # fmt: skip
+                             num(lp, "spin_ratio", w, True), cl, cls, str(lp.get("spin_source", "")),
+                             bb_part(lp, "lift_coefficient", w)))  # fmt: skip
     tau, taus = est(d, "spin_decay_time_s", "(top)")
+    tol_obj = d.get("bb", {}).get("tolerance") if isinstance(d.get("bb"), dict) else None
+    tolerance = None
+    if tol_obj is not None:
+        m_sig = num(tol_obj, "mass_sigma_kg", "bb.tolerance")
+        d_sig = num(tol_obj, "diameter_sigma_m", "bb.tolerance")
+        try:
+            tolerance = BBTolerance(m_sig, d_sig, str(tol_obj.get("origin", "")))
+        except ValueError as exc:
+            raise ValueError(f"{source}: key bb.tolerance: {exc}") from None
     return BBProfile(
         label=str(d.get("label", "")),
         mass_kg=num(d.get("bb"), "mass_kg", "bb"),
@@ -377,6 +443,7 @@ def profile_from_json(text: str, source: str = "<profile>") -> BBProfile:
         spin_decay_time_stderr_s=taus,
         notes=tuple(str(n) for n in d["notes"]),
         warnings=tuple(str(w) for w in d["warnings"]),
+        tolerance=tolerance,
     )
 
 

@@ -423,7 +423,17 @@ def profile_rows(prof: BBProfile, *, n_shots: int, n_files: int, written: Sequen
     rows = [("shots", f"{n_shots} from {n_files} track file(s)")]
     for b in prof.drag:
         cd = "not determined" if b.cd is None else f"{b.cd:.4f} ± {b.cd_stderr or 0.0:.2g}"
-        rows.append((f"C_D, Re {b.re_lo:.3g}..{b.re_hi:.3g}", f"{cd} ({b.n_shots} shots)"))
+        share = "" if b.cd_stderr_bb is None or b.cd is None else f", BB tolerance ± {b.cd_stderr_bb:.2g}"
+        rows.append((f"C_D, Re {b.re_lo:.3g}..{b.re_hi:.3g}", f"{cd} ({b.n_shots} shots{share})"))
+    tol = prof.tolerance
+    if tol is not None:
+        rows.append(
+            (
+                "BB tolerance",
+                f"mass ± {kg_to_grams(tol.mass_sigma_kg):.3g} g, diameter ± {m_to_mm(tol.diameter_sigma_m):.3g} mm "
+                f"(1σ, {tol.origin}), in every C_D and C_L error bar",
+            )
+        )
     tau = prof.spin_decay_time_s
     rows.append(
         ("spin decay τ", "not determined" if tau is None or not math.isfinite(tau) else f"{tau:.3g} s")

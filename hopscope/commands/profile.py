@@ -95,6 +95,7 @@ def run(args: argparse.Namespace) -> int:
         n_bins=min(args.bins, len(shots)),
         spin_radps=[spins.get(s.label) for s in shots],
         assumed_lift_k=args.assumed_lift_k,
+        tolerance=options.bb_tolerance_from_args(args, bb),
     )
     csv_path = out.with_suffix(".csv")
     with atomic_path(out) as tmp_json, atomic_path(csv_path) as tmp_csv:

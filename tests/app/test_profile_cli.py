@@ -53,6 +53,36 @@ def test_profile_recovers_drag_in_every_bin(tmp_path, capsys, tracks):
     assert json.loads(out.read_text())["schema"] == "hopscope.profile/1"
 
 
+#: The mass tolerance's share enters exactly in quadrature (relative, float rounding).
+QUADRATURE_REL_TOL = 1e-9
+
+
+def test_mass_sigma_widens_the_profiles_cd_by_its_share_in_quadrature(tmp_path, capsys, tracks):
+    profiles = {}
+    for sigma_g in ("0", "0.0125"):  # exact, then 5 % of 0.25 g
+        out = tmp_path / f"bb_{sigma_g}.json"
+        argv = [
+            str(tracks),
+            "--mass-g",
+            f"0.25:{sigma_g}",
+            "--diameter-mm",
+            "5.95:0",
+            "--bins",
+            "2",
+            "-o",
+            str(out),
+        ]
+        rc, stdout, err = _run(capsys, argv)
+        assert rc == 0, err
+        profiles[sigma_g] = read_profile(out)
+    assert "BB tolerance" in stdout and "mass ± 0.0125 g" in stdout
+    for a, b in zip(profiles["0"].drag, profiles["0.0125"].drag, strict=True):
+        assert a.cd_stderr_bb == 0.0 and b.cd is not None
+        share = abs(b.cd) * 0.0125 / 0.25
+        assert b.cd_stderr**2 - a.cd_stderr**2 == pytest.approx(share**2, rel=QUADRATURE_REL_TOL)
+    assert profiles["0.0125"].tolerance is not None and profiles["0.0125"].tolerance.origin == "given"
+
+
 def test_assumed_k_gives_model_based_spin_ratios(tmp_path, capsys, tracks):
     out = tmp_path / "bb.json"
     rc, _, err = _run(capsys, [str(tracks), "--mass-g", "0.25", "--assumed-lift-k", "0.5", "-o", str(out)])

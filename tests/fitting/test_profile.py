@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from hopscope.fitting.air import Air
-from hopscope.fitting.bb import BB
+from hopscope.fitting.bb import BB, BBTolerance
 from hopscope.fitting.laws import SaturatingLift
 from hopscope.fitting.observe import ModelSpec, simulate_shot
 from hopscope.fitting.profile import (
@@ -92,6 +92,49 @@ def test_files_round_trip_and_carry_the_schema(profile, tmp_path):
     rows = [line.split(",") for line in csv if line.startswith(("drag", "lift"))]
     assert sum(r[0] == "drag" for r in rows) == 4 and sum(r[0] == "lift" for r in rows) == 8
     assert float(rows[0][7]) == pytest.approx(profile.drag[0].cd)
+
+
+#: The BB share is added exactly in quadrature: σ² = σ_fit² + (|C|·σ_m/m)², up to float rounding (relative).
+QUADRATURE_REL_TOL = 1e-9
+#: A mass uncertainty well above a bag's 1 % (relative), so its share stands out of the fit's own σ.
+LARGE_MASS_REL_SIGMA = 0.05
+
+
+def test_a_larger_mass_sigma_widens_cd_and_cl_by_its_share_in_quadrature(shots):
+    # fitting.bb.BBTolerance: at a fixed measured path C_D and C_L scale as m/d², so σ_m/m is their share
+    exact = build_profile(shots, bb=BB_025, air=AIR, n_bins=4, tolerance=BBTolerance(0.0, 0.0))
+    loose = build_profile(
+        shots, bb=BB_025, air=AIR, n_bins=4, tolerance=BBTolerance(LARGE_MASS_REL_SIGMA * BB_025.mass_kg, 0.0)
+    )
+    assert len(exact.drag) == len(loose.drag) == 4
+    for a, b in zip(exact.drag, loose.drag, strict=True):
+        assert a.cd == b.cd and a.cd_stderr_bb == 0.0  # the values do not move, only their error bars
+        share = abs(b.cd) * LARGE_MASS_REL_SIGMA
+        assert b.cd_stderr_bb == pytest.approx(share, rel=QUADRATURE_REL_TOL)
+        assert b.cd_stderr**2 - a.cd_stderr**2 == pytest.approx(share**2, rel=QUADRATURE_REL_TOL)
+        assert b.cd_stderr > a.cd_stderr
+    for a, b in zip(exact.lift, loose.lift, strict=True):
+        share = abs(b.cl) * LARGE_MASS_REL_SIGMA
+        assert b.cl_stderr**2 - a.cl_stderr**2 == pytest.approx(share**2, rel=QUADRATURE_REL_TOL)
+    # the files carry the share and the tolerance, and read back the same
+    d = json.loads(profile_to_json(loose))
+    assert d["bb"]["tolerance"]["mass_sigma_kg"] == pytest.approx(LARGE_MASS_REL_SIGMA * BB_025.mass_kg)
+    assert d["drag"][0]["drag_coefficient"]["stderr_bb"] == loose.drag[0].cd_stderr_bb
+    assert d["lift"][0]["lift_coefficient"]["stderr_bb"] == loose.lift[0].cl_stderr_bb
+    back = profile_from_json(json.dumps(d))
+    assert back.drag == loose.drag and back.lift == loose.lift and back.tolerance == loose.tolerance
+    csv = profile_to_csv(loose).splitlines()
+    assert any(line.startswith("# bb_tolerance: mass_sigma_kg=") for line in csv)
+    header = next(line for line in csv if not line.startswith("#")).split(",")
+    first_drag = next(line for line in csv if line.startswith("drag")).split(",")
+    assert float(first_drag[header.index("stderr_bb")]) == pytest.approx(loose.drag[0].cd_stderr_bb)
+
+
+def test_profile_without_a_tolerance_takes_the_default_one(profile):
+    default = BBTolerance.default_for(BB_025)
+    assert profile.tolerance == default
+    for b in profile.drag:
+        assert b.cd_stderr_bb == pytest.approx(abs(b.cd) * default.aero_rel(BB_025), rel=QUADRATURE_REL_TOL)
 
 
 @pytest.mark.parametrize(
