@@ -172,3 +172,19 @@ def fall_from_holder(t_s, g, k_per_m, contact_s, contact_accel, start_m=(0.0, 0.
     rest = t_s[t_s >= contact_s]
     b = solve_ivp(free, (contact_s, float(t_s[-1])), state, t_eval=rest, rtol=1e-11, atol=1e-13)
     return np.vstack([a.y[:2].T, b.y[:2].T])
+
+
+def truth_rig(truth):
+    """The rig of a rendered scene's true camera (from its truth), plane at z = 0 with no slope."""
+    from hopscope.calibration.rig import Rig
+
+    cam = truth["camera"]
+    return Rig(
+        tuple(cam["image_size"]),
+        cam["camera_matrix"],
+        cam["dist_coeffs"],
+        cam["rotation"],
+        cam["translation"],
+        0.0,
+        0.0,
+    )

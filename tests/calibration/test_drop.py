@@ -222,7 +222,7 @@ def test_non_parabolic_start_is_never_blamed_on_the_frame_rate(tmp_path):
 def test_holder_scene_reads_g_from_the_free_fall(tmp_path):
     # the scene renderer's own holder drop (lane-close-holder: 1000 fps, the BB rests in a holder for 30
     # frames, then falls), through the true camera: g to the 0.5 %, no held frame fitted
-    from test_rendered import _truth_rig
+    from calib_synth import truth_rig as _truth_rig
 
     from hopscope.scenes import builtin_scene, render_scene
 

@@ -11,10 +11,11 @@ import dataclasses
 import cv2
 import numpy as np
 import pytest
+from calib_synth import truth_rig as _truth_rig
 
 from hopscope.calibration.grid import GridSpec
 from hopscope.calibration.pipeline import calibrate_files
-from hopscope.calibration.rig import Rig, read_rig, rig_to_json
+from hopscope.calibration.rig import read_rig, rig_to_json
 from hopscope.scenes import DropSpec, builtin_scene, prepare_scene, render_scene
 
 pytestmark = pytest.mark.slow
@@ -32,19 +33,6 @@ PATH_Z_LIMIT = 3.5
 PATH_Z_FLOOR_M = 0.02e-3
 #: The issue's acceptance: g within 0.5 % on a rendered drop.
 G_RTOL = 5e-3
-
-
-def _truth_rig(truth) -> Rig:
-    c = truth["camera"]
-    return Rig(
-        tuple(c["image_size"]),
-        c["camera_matrix"],
-        c["dist_coeffs"],
-        c["rotation"],
-        c["translation"],
-        0.0,
-        0.0,
-    )
 
 
 @pytest.fixture(scope="module")
