@@ -10,7 +10,7 @@ folder nor the order of the tracks.
 from __future__ import annotations
 
 import os
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -18,6 +18,7 @@ import numpy as np
 
 from hopscope.calibration.images import VIDEO_SUFFIXES
 from hopscope.fitting.observe import ShotData
+from hopscope.fitting.spin import ShotSpin, SpinOptions, SpinPrior, measure_shot_spin
 from hopscope.shared.files import folder_files
 from hopscope.tracker.trackfile import Track, read_track
 
@@ -185,3 +186,28 @@ def expand_videos(items: Sequence[str | os.PathLike[str]], *, option: str = "VID
     if not out:
         raise ValueError(f"{option}: no clips given")
     return tuple(out)
+
+
+def marked_shot_spins(
+    records: Sequence[dict], *, prior_for: Callable[[str], SpinPrior | None] | None = None
+) -> dict[str, ShotSpin]:
+    """Spin from the brightness flicker of every shot of the marked-BB tracks (polarity ``marked``).
+
+    ``records`` are the track records of :func:`shots_from_tracks` (``path``, ``shots`` labels in the
+    track's shot order); ``prior_for(label)`` may give each shot's alias prior. Returns each measured shot's
+    :class:`~hopscope.fitting.spin.ShotSpin` by label (a shot without a rate carries its reason); tracks of
+    another polarity are skipped.
+    """
+    spins: dict[str, ShotSpin] = {}
+    for rec in records:
+        track = read_track(rec["path"])
+        if track.meta.polarity != "marked":
+            continue
+        opts = SpinOptions(exposure_s=track.meta.exposure_s or 0.0)
+        for label, sid in zip(rec["shots"], track.shot_ids, strict=True):
+            pts = track.select_shot(sid)
+            prior = prior_for(label) if prior_for is not None else None
+            spins[label] = measure_shot_spin(
+                pts.t_s, pts.brightness, first_t_s=pts.t_s[0], options=opts, prior=prior
+            )
+    return spins

@@ -27,22 +27,16 @@ from hopscope.fitting.bb import BB, BBTolerance
 from hopscope.fitting.estimate import DEFAULT_LOSS, ChronoPrior, FlightFit, fit_shots
 from hopscope.fitting.fitfile import fit_to_dict, fit_to_json
 from hopscope.fitting.predict import fitted_span_path
-from hopscope.fitting.spin import (
-    ShotSpin,
-    SpinOptions,
-    add_spin_measured,
-    measure_shot_spin,
-    spin_prior_for_fit_shot,
-)
+from hopscope.fitting.spin import add_spin_measured, spin_prior_for_fit_shot
 from hopscope.shared.fileio import atomic_path, write_bytes_atomic, write_text_atomic
 from hopscope.tracker.overlay import check_overlay_path, write_overlay
 from hopscope.tracker.pipeline import TrackOptions, TrackResult, track_video
-from hopscope.tracker.trackfile import read_track, replace_meta, track_to_csv
+from hopscope.tracker.trackfile import replace_meta, track_to_csv
 
 from .console import progress as progress_bar
 from .decisions import Convention, FitDecisions, decide, with_decisions
 from .folders import RunFolder, run_folder
-from .inputs import expand_videos, shots_from_track, shots_from_tracks
+from .inputs import expand_videos, marked_shot_spins, shots_from_track, shots_from_tracks
 from .report import load_report_inputs, write_report
 from .report.build import DEFAULT_RANGE_M
 from .scene_calibration import calibrate_scene
@@ -319,18 +313,9 @@ def _fit_text_with_spin(result: FlightFit, records: Sequence[dict]) -> str:
     doc = fit_to_dict(result, inputs=records)
     radius_m = 0.5 * float(doc["bb"]["diameter_m"])
     shots = {s["label"]: s for s in doc["shots"]}
-    spins: dict[str, ShotSpin] = {}
-    for rec in records:
-        track = read_track(rec["path"])
-        if track.meta.polarity != "marked":
-            continue
-        opts = SpinOptions(exposure_s=track.meta.exposure_s or 0.0)
-        for label, sid in zip(rec["shots"], track.shot_ids, strict=True):
-            pts, shot = track.select_shot(sid), shots[label]
-            prior = spin_prior_for_fit_shot(shot, radius_m=radius_m)
-            spins[label] = measure_shot_spin(
-                pts.t_s, pts.brightness, first_t_s=pts.t_s[0], options=opts, prior=prior
-            )
+    spins = marked_shot_spins(
+        records, prior_for=lambda label: spin_prior_for_fit_shot(shots[label], radius_m=radius_m)
+    )
     if not spins:
         return fit_to_json(result, inputs=records)
     return json.dumps(add_spin_measured(doc, spins), indent=2, ensure_ascii=False, allow_nan=False) + "\n"

@@ -12,12 +12,10 @@ import argparse
 from hopscope import options
 from hopscope.console import summary, warn
 from hopscope.fitting.profile import DEFAULT_BINS, build_profile, profile_to_csv, profile_to_json
-from hopscope.fitting.spin import SpinOptions, measure_shot_spin
 from hopscope.folders import check_output_file
-from hopscope.inputs import shots_from_tracks
+from hopscope.inputs import marked_shot_spins, shots_from_tracks
 from hopscope.shared.fileio import atomic_path
 from hopscope.summaries import profile_rows
-from hopscope.tracker.trackfile import read_track
 
 NAME = "profile"
 HELP = "pool shots of one BB type into a drag/lift profile (C_D vs Reynolds number, C_L per shot)"
@@ -59,18 +57,11 @@ def measured_spin_radps(records) -> dict[str, float]:
     milliseconds. A shot whose flicker gives no rate (aliased without a prior, too short, no significant
     flicker) is left out with a warning saying why."""
     out: dict[str, float] = {}
-    for rec in records:
-        track = read_track(rec["path"])
-        if track.meta.polarity != "marked":
-            continue
-        opts = SpinOptions(exposure_s=track.meta.exposure_s or 0.0)
-        for label, sid in zip(rec["shots"], track.shot_ids, strict=True):
-            pts = track.select_shot(sid)
-            spin = measure_shot_spin(pts.t_s, pts.brightness, first_t_s=pts.t_s[0], options=opts)
-            if spin.rate_radps is None:
-                warn(f"{label}: spin not measured from the marked BB's flicker: {spin.reason}")
-            else:
-                out[label] = spin.rate_radps
+    for label, spin in marked_shot_spins(records).items():
+        if spin.rate_radps is None:
+            warn(f"{label}: spin not measured from the marked BB's flicker: {spin.reason}")
+        else:
+            out[label] = spin.rate_radps
     return out
 
 
