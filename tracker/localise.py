@@ -1,15 +1,8 @@
 """Sub-pixel position of a BB image by least-squares model fitting, with its uncertainty.
 
-Two models of the background-subtracted window, both symmetric about their centre:
-
-* **spot** — a pixel-integrated circular Gaussian (amplitude A, width s, centre (u₀, v₀), offset c):
-  each pixel holds the Gaussian's integral over its unit square, written with error functions (the
-  integrated-Gaussian model of Smith, Joseph, Rieger & Lidke 2010). A blurred disk is close to a Gaussian
-  of the same second moment; by symmetry the centre stays unbiased when the shape differs.
-* **streak** — a Gaussian-profiled line segment of length L along direction θ (the trail model of Vereš
-  et al. 2012): the image of a BB that moved a distance L during the exposure. Its centre is the
-  position at mid-exposure; L is the travel during the exposure (the visible streak is L plus the BB's
-  image diameter).
+Two models of the background-subtracted window, both symmetric about their centre: a pixel-integrated
+circular Gaussian **spot**, and a Gaussian-profiled **streak** whose centre is the position at
+mid-exposure (described, with their sources, in :mod:`tracker.profiles`).
 
 The spot is always fitted; the streak is fitted too when the blob is elongated, and kept when it lowers
 the residual sum of squares by more than :data:`STREAK_GAIN_SIGMA2` noise variances.
