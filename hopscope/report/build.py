@@ -185,7 +185,6 @@ def render_report(inputs: ReportInputs) -> str:
 
 def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
     """The report's HTML and its figures as (key, PNG bytes)."""
-    import jinja2
 
     fit = inputs.fit
     curves = _shot_curves(inputs)
@@ -266,21 +265,13 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
     # a rig that failed its own drop check (given with --rig, or named in the tracks' warnings) marks the page
     drop_failed = next((w for w in warnings if DROP_FAILED_MARK in w), None)
-    env = jinja2.Environment(
-        loader=jinja2.PackageLoader("hopscope.report", "templates"),
-        autoescape=jinja2.select_autoescape(["html"]),
-        undefined=jinja2.StrictUndefined,
-    )
-    css = env.loader.get_source(env, "report.css")[0]  # type: ignore[union-attr]
     n_points = int(fit.data["statistics"]["n_points"])
     model_note = str(fit.data["model"].get("spin_note") or "")
-    html = env.get_template("report.html").render(
+    html = render_page(
+        "report.html",
         title=inputs.title or Path(fit.source).stem,
-        version=__version__,
-        created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
         n_shots=fit.n_shots,
         n_points=n_points,
-        cautions=CAUTIONS,
         cards=decided.merge_cards(tables.cards(fit, verdict, spread)),
         verdict=None if decided.context else verdict,  # the path's verdict replaces the ratio's
         decisions=decided.context,
@@ -298,7 +289,6 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
         spin=tables.measured_spin_rows(fit),
         spin_decay=tables.spin_decay_row(fit),
         inputs=", ".join([Path(fit.source).name] + [Path(p).name for p, _ in inputs.tracks]),
-        css=css,
     )
     return html, [(k, png) for k, png, _cap in figs]
 
@@ -319,3 +309,26 @@ def write_report(
             write_bytes_atomic(written[-1], png)
     write_text_atomic(out, html)
     return written
+
+
+def render_page(template: str, **context: object) -> str:
+    """Render one of the report's pages (``report.html``, ``compare.html``) from its template.
+
+    Every page extends ``page.html`` (the style sheet, the header, the safety cautions and the footer), so
+    this supplies what every page shows: the CSS, the version, the time made and the cautions.
+    """
+    import jinja2
+
+    env = jinja2.Environment(
+        loader=jinja2.PackageLoader("hopscope.report", "templates"),
+        autoescape=jinja2.select_autoescape(["html"]),
+        undefined=jinja2.StrictUndefined,
+    )
+    css = env.loader.get_source(env, "report.css")[0]  # type: ignore[union-attr]
+    return env.get_template(template).render(
+        css=css,
+        version=__version__,
+        created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
+        cautions=CAUTIONS,
+        **context,
+    )

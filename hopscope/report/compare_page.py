@@ -8,17 +8,15 @@ display only.
 
 from __future__ import annotations
 
-import datetime as _dt
 import os
 from typing import Any
 
 from hopscope.shared.fileio import write_text_atomic
 from hopscope.shared.units import mps_to_fps
 
-from .. import __version__
 from ..decision_summaries import LIMIT_WORDS, pm, verdict_text
 from ..groups import NAMES, TESTS, UNITS, CompareOutcome, group_stats
-from .build import CAUTIONS
+from .build import render_page
 
 
 def _fmt(q: str, v: float | None) -> str:
@@ -123,24 +121,14 @@ def _tuning(o: CompareOutcome) -> str | None:
 
 def render_compare_page(o: CompareOutcome, *, title: str | None = None) -> str:
     """The comparison page as one HTML string."""
-    import jinja2
-
-    env = jinja2.Environment(
-        loader=jinja2.PackageLoader("hopscope.report", "templates"),
-        autoescape=jinja2.select_autoescape(["html"]),
-        undefined=jinja2.StrictUndefined,
-    )
-    css = env.loader.get_source(env, "report.css")[0]  # type: ignore[union-attr]
     c = o.convention
     convention = (
         f"paths flown level from {c.muzzle_height_m:g} m above level ground, judged within ±{c.band_m:g} m "
         f"of the line of sight to {c.engagement_m:g} m (our convention, README)"
     )
-    return env.get_template("compare.html").render(
+    return render_page(
+        "compare.html",
         title=title or " vs ".join(r.spec.name for r in o.groups),
-        version=__version__,
-        created=_dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
-        cautions=CAUTIONS,
         groups=_group_rows(o),
         differences=_difference_rows(o),
         comparisons=_comparison_rows(o),
@@ -150,7 +138,6 @@ def render_compare_page(o: CompareOutcome, *, title: str | None = None) -> str:
         reference=o.groups[0].spec.name,
         convention=convention,
         warnings=list(o.warnings),
-        css=css,
     )
 
 
