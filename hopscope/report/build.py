@@ -259,8 +259,14 @@ def _render(inputs: ReportInputs) -> tuple[str, list[tuple[str, bytes]]]:
                 "engagement range.",
             )
         )  # fmt: skip
-    # the fit already carries its tracks' warnings (prefixed with the track's name); the rig's own come after
-    warnings = list(dict.fromkeys([*fit.warnings, *decided.warnings, *tables.rig_warnings(inputs)]))
+    # the fit already carries its tracks' warnings (prefixed with the track's name, and the rig's failed drop
+    # check among them when the tracks were made with that rig); the rig's own come after, each said once
+    carried = [*fit.warnings, *decided.warnings]
+    drop = inputs.rig.drop_check_warning if inputs.rig is not None else None
+    rig_lines = [
+        w for w in tables.rig_warnings(inputs) if not (drop and drop in w and any(drop in c for c in carried))
+    ]
+    warnings = list(dict.fromkeys([*carried, *rig_lines]))
     if not fit.converged:
         warnings.insert(0, f"the fit did not converge: {fit.reason}")
     # a rig that failed its own drop check (given with --rig, or named in the tracks' warnings) marks the page
