@@ -1,5 +1,5 @@
-"""Built-in scenes (demo data, invented): an indoor test lane, an outdoor dusk lane, a spin close-up, and
-the variants other parts of the project are judged on.
+"""Built-in scenes (demo data, invented): an indoor test lane, an outdoor dusk lane, a spin close-up, the
+close lane at half size for coverage runs, and the variants other parts of the project are judged on.
 
 The three lanes are TOML files in ``hopscope/scenes/builtin/`` (read by :func:`load_scene`, so they are
 checked like any user's scene file); the variants are built from them in :mod:`hopscope.scenes.variants`.
@@ -16,7 +16,7 @@ from .spec import SceneSpec
 from .specfile import packaged_scene
 
 #: The lanes, as written in ``builtin/*.toml``.
-BASE_SCENES = ("lane-close", "lane-long", "lane-spin")
+BASE_SCENES = ("lane-close", "lane-long", "lane-spin", "lane-coverage")
 
 _VARIANTS: dict[str, Callable[[], SceneSpec]] = {
     "lane-close-oneboard": variants.lane_close_oneboard,
