@@ -22,7 +22,7 @@ Knuth, D. E. (1998). The Art of Computer Programming vol. 3, §5.3.4 (sorting ne
 from __future__ import annotations
 
 from collections import deque
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
 
 import cv2
@@ -173,7 +173,13 @@ def noise_map(diff_low: np.ndarray, tile: int = NOISE_TILE) -> np.ndarray:
     return out
 
 
-def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 1) -> Iterator[WindowFrame]:
+def windowed(
+    frames: Iterable[VideoFrame],
+    *,
+    gap_frames: int = 2,
+    scale: int = 1,
+    low_of: Callable[[VideoFrame], np.ndarray] | None = None,
+) -> Iterator[WindowFrame]:
     """Attach a temporal-median background to each frame of a stream.
 
     Parameters
@@ -181,6 +187,8 @@ def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 
     frames : decoded frames in order.
     gap_frames : g, the spacing of the background samples (k ± g, k ± 2g, k ± 3g), frames.
     scale : block size of the detection image, px.
+    low_of : the frame's detection image when it was made elsewhere (the decoding thread makes it with
+        :func:`downsample` while this one detects); None: :func:`downsample` here.
 
     Yields
     ------
@@ -244,7 +252,7 @@ def windowed(frames: Iterable[VideoFrame], *, gap_frames: int = 2, scale: int = 
         total += 1
         if first_index is None:
             first_index = fr.index
-        buf.append((fr, downsample(fr.luma, scale)))
+        buf.append((fr, downsample(fr.luma, scale) if low_of is None else low_of(fr)))
         # frame k = newest - reach is ready; its position in buf:
         pos = len(buf) - 1 - reach
         if pos >= 0:

@@ -185,12 +185,12 @@ def _label_blobs(
         ):
             clipped = True
         sub_l = labels[y : y + h, x : x + w] == lab
-        sub = np.where(sub_l, sd_c[y : y + h, x : x + w].astype(np.float32), 0.0)
+        sub = np.where(sub_l, sd_c[y : y + h, x : x + w].astype(np.float32), np.float32(0.0))
         snr = float(np.max(sub / noise_c[y : y + h, x : x + w]))
         tot = float(sub.sum())
-        yy, xx = np.mgrid[y : y + h, x : x + w]
-        cu = float((sub * xx).sum() / tot) if tot > 0 else x + w / 2
-        cv = float((sub * yy).sum() / tot) if tot > 0 else y + h / 2
+        # first moments from the row and column sums (Σ s·col = Σ_col col · Σ_row s)
+        cu = x + float(sub.sum(axis=0) @ np.arange(w, dtype=np.float32)) / tot if tot > 0 else x + w / 2
+        cv = y + float(sub.sum(axis=1) @ np.arange(h, dtype=np.float32)) / tot if tot > 0 else y + h / 2
         found.append((snr, cu + c0, cv + r0, x + c0, y + r0, w, h))
     return found, clipped
 

@@ -50,7 +50,7 @@ import numpy as np
 
 from hopscope.calibration.rig import Rig
 
-from .background import default_scale, windowed
+from .background import default_scale, downsample, windowed
 from .choose import _select_tracks
 from .detect import Candidate, find_candidates
 from .localise import QUANTISATION_NOISE_DN, Detection, localise, localise_marked
@@ -118,6 +118,17 @@ def check_rig_size(rig: Rig, info: VideoInfo, rig_name: str = "rig") -> None:
         )
 
 
+def _with_low(frames: Iterator[VideoFrame], scale: int) -> Iterator[tuple[VideoFrame, np.ndarray]]:
+    """Each frame with its detection image (:func:`tracker.background.downsample`); closes ``frames``."""
+    try:
+        for fr in frames:
+            yield fr, downsample(fr.luma, scale)
+    finally:
+        close = getattr(frames, "close", None)
+        if close is not None:
+            close()
+
+
 def track_video(
     video: str,
     rig: Rig,
@@ -152,8 +163,17 @@ def track_video(
     check_rig_size(rig, info, rig_name)
     scale = opt.scale or default_scale(info.width, info.height)
     want = POLARITIES[opt.polarity]
-    # decoding runs in a thread (FFmpeg releases the interpreter lock) while this one detects
-    frames: Iterable[VideoFrame] = prefetched(iter_frames(video, fps_override=opt.fps_override))
+    # decoding and the detection image's block averaging run in a thread (FFmpeg and OpenCV release the
+    # interpreter lock) while this one detects
+    reduced = prefetched(_with_low(iter_frames(video, fps_override=opt.fps_override), scale))
+    lows: dict[int, np.ndarray] = {}  # the detection image of the frame on its way to the background window
+
+    def decoded() -> Iterator[VideoFrame]:
+        for fr, low in reduced:
+            lows[fr.index] = low
+            yield fr
+
+    frames: Iterable[VideoFrame] = decoded()
     if progress is not None:
         frames = progress(frames, info.n_frames)
     times: list[float] = []
@@ -170,7 +190,9 @@ def track_video(
     n_slow = 0
     n_cand = 0
     still: np.ndarray | None = None
-    for wf in windowed(timed(frames), gap_frames=opt.gap_frames, scale=scale):
+    for wf in windowed(
+        timed(frames), gap_frames=opt.gap_frames, scale=scale, low_of=lambda f: lows.pop(f.index)
+    ):
         if still is None:
             still = np.array(wf.frame.luma, copy=True)
         cands = find_candidates(wf, threshold_sigma=opt.threshold_sigma, polarity=want)

@@ -82,9 +82,10 @@ def scene_rig(truth: dict) -> Rig:
     )
 
 
-def opencv_decode(path: Path) -> tuple[float, int]:
+def opencv_decode(path: Path) -> tuple[float, int, float]:
+    """(wall time s, frames, CPU time s of the process's threads) of a bare OpenCV read() loop."""
     cap = cv2.VideoCapture(str(path))
-    t = time.perf_counter()
+    t, c = time.perf_counter(), time.process_time()
     n = 0
     while True:
         ok, _ = cap.read()
@@ -92,7 +93,7 @@ def opencv_decode(path: Path) -> tuple[float, int]:
             break
         n += 1
     cap.release()
-    return time.perf_counter() - t, n
+    return time.perf_counter() - t, n, time.process_time() - c
 
 
 def pyav_decode(path: Path) -> tuple[float, int]:
@@ -113,21 +114,22 @@ open("/proc/self/clear_refs", "w").write("5")
 sys.path.insert(0, {root!r})
 from hopscope.calibration.rig import read_rig
 from hopscope.tracker.pipeline import track_video
-t = time.perf_counter()
+t, c = time.perf_counter(), time.process_time()
 res = track_video({video!r}, read_rig({rig!r}))
-dt = time.perf_counter() - t
+dt, dc = time.perf_counter() - t, time.process_time() - c
 hwm = [l for l in open("/proc/self/status") if l.startswith("VmHWM")][0].split()[1]
-print(dt, res.summary.points, res.summary.frames_read, len(res.track.shot_ids) if res.ok else 0, hwm)
+print(dt, res.summary.points, res.summary.frames_read, len(res.track.shot_ids) if res.ok else 0, hwm, dc)
 """
 
 
-def tracked_in_child(video: Path, rig: Path) -> tuple[float, int, int, int, float]:
-    """(wall time s, points, frames, shots, peak RSS MB) of a tracking run in a fresh Python process."""
+def tracked_in_child(video: Path, rig: Path) -> tuple[float, int, int, int, float, float]:
+    """(wall time s, points, frames, shots, peak RSS MB, CPU time s of all threads) of a tracking run in a
+    fresh Python process."""
     code = _CHILD.format(root=str(ROOT), video=str(video), rig=str(rig))
     out = subprocess.run(
         [sys.executable, "-c", code], capture_output=True, text=True, check=True
     ).stdout.split()
-    return float(out[0]), int(out[1]), int(out[2]), int(out[3]), int(out[4]) / 1024.0
+    return float(out[0]), int(out[1]), int(out[2]), int(out[3]), int(out[4]) / 1024.0, float(out[5])
 
 
 def sigma_table(seed: int = 11, spots: int = 200) -> None:
@@ -204,13 +206,17 @@ def main() -> None:
     one = loop_clip(scene.flight_clip_path, LOOPS, folder / f"lane_long_x{LOOPS}.mp4")
     four = loop_clip(scene.flight_clip_path, 4 * LOOPS, folder / f"lane_long_x{4 * LOOPS}.mp4")
 
-    cv_t, py_t, tr_t, loads = [], [], [], []
+    # repeats interleave the three runs, so a burst of load from elsewhere falls on all of them alike
+    cv_t, cv_c, py_t, tr_t, tr_c, loads = [], [], [], [], [], []
     for _ in range(args.repeats):
         loads.append(os.getloadavg()[0])
-        cv_t.append(opencv_decode(one)[0])
+        t, _, c = opencv_decode(one)
+        cv_t.append(t)
+        cv_c.append(c)
         py_t.append(pyav_decode(one)[0])
-        t, pts, frames, shots, _ = tracked_in_child(one, rig)
+        t, pts, frames, shots, _, c = tracked_in_child(one, rig)
         tr_t.append(t)
+        tr_c.append(c)
     cvb, pyb, trb = min(cv_t), min(py_t), min(tr_t)
     print(f"\nlane-long 1080p looped {LOOPS}x: {frames} frames, {shots} shots, {pts} points tracked")
     print(f"  OpenCV read() loop      {cvb:7.2f} s  ({frames / cvb:6.1f} fps)")
@@ -222,10 +228,14 @@ def main() -> None:
     )
     ratios = [t / c for t, c in zip(tr_t, cv_t, strict=True)]
     print(f"  ratio per repeat        {', '.join(f'{r:.3f}' for r in ratios)}")
+    print(
+        f"  CPU time (all threads)  OpenCV {min(cv_c):.2f} s, tracker {min(tr_c):.2f} s "
+        f"(less sensitive to load than wall time; 2 cores can overlap decoding with detection)"
+    )
 
     print("\npeak memory of a tracking run (fresh process, VmHWM, imports included; target <= 400 MB, flat):")
     for clip, k in ((one, 1), (four, 4)):
-        t, pts, frames, shots, mb = tracked_in_child(clip, rig)
+        t, pts, frames, shots, mb, _ = tracked_in_child(clip, rig)
         print(f"  {k}x  {frames:6d} frames  {mb:7.1f} MB  ({shots} shots, {pts} points, {t:.1f} s)")
 
     if args.sigma:
