@@ -87,7 +87,7 @@ def test_lane_spin_is_a_fast_close_up_of_a_marked_bb():
 def test_unknown_scene_names_the_choices():
     with pytest.raises(
         ValueError,
-        match=r"unknown scene .lane-x.; choose one of lane-close, lane-long, lane-spin, lane-close-oneboard",
+        match=r"unknown scene .lane-x.; choose one of lane-close, lane-long, lane-spin, lane-coverage, lane-close-oneboard",
     ):
         builtin_scene("lane-x")
 
