@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.stats
 
+from . import serial
 from .observe import ShotData
 from .problem import FitProblem
 from .results import Estimate, FitStatistics
@@ -146,7 +147,10 @@ def fit_state(problem: FitProblem, x: np.ndarray, loss: str = "linear", f_scale:
     significant = dof > 0 and chi2 > float(scipy.stats.chi2.isf(CHI2_SCALE_P, dof))
     scale = math.sqrt(red) if significant else (1.0 if dof > 0 else math.inf)
     inv, singular = inverse(ji.T @ ji)
-    cov_noise = inv * scale**2
+    # neighbouring frames' errors may be correlated (video coding): measured from the residuals, and
+    # carried by the sandwich (JᵀJ)⁻¹JᵀRJ(JᵀJ)⁻¹ (fitting.serial)
+    corr, middle = serial.sandwich_middle(r, jac, inlier, stack.t_rel_s, stack.mask, ~out_pt)
+    cov_noise = (inv if middle is None else inv @ middle @ inv) * scale**2
     cov_cal = np.zeros_like(inv)
     shots = problem.shots
     for members in calibration_groups(shots):
@@ -182,6 +186,8 @@ def fit_state(problem: FitProblem, x: np.ndarray, loss: str = "linear", f_scale:
         residual_rms_sigma=rms_sigma,
         n_outliers=int(out_pt.sum()),
         robust_chi2=robust_chi2,
+        serial_correlation_x=corr.x,
+        serial_correlation_y=corr.y,
     )
     return FitState(r, jac, inlier, point_outlier, cov_noise, cov_cal, stats, singular)
 

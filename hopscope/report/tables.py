@@ -16,6 +16,7 @@ from hopscope.shared.units import kg_to_grams, mps_to_fps, radps_to_rpm, s_to_ms
 
 from ..summaries import (
     loss_text,
+    serial_text,
     spin_candidates_text,
     spin_choice_text,
     spin_decay_text,
@@ -225,6 +226,11 @@ def quality_rows(fit: FitFile) -> list[tuple[str, str]]:
             f"{st['chi2']:.4g} / {st['dof']} (error bars scaled ×{st['stderr_scale']:.3g})",
         ),
         ("residual RMS", f"{1e3 * st['residual_rms_m']:.3g} mm = {st['residual_rms_sigma']:.3g} σ"),
+        *(
+            [("frame-to-frame error correlation", serial_text(sc.get("x") or (), sc.get("y") or ()))]
+            if (sc := st.get("serial_correlation")) and (sc.get("x") or sc.get("y"))
+            else []
+        ),
         ("AIC / BIC", f"{st['aic']:.5g} / {st['bic']:.5g}"),
         ("air density", f"{fit.air.density_kgm3:.4f} kg/m³"),
         ("BB", f"{kg_to_grams(fit.bb.mass_kg):.3g} g, {fit.bb.diameter_m * 1e3:.3g} mm"),
