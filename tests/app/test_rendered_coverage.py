@@ -16,10 +16,12 @@ T = (1/(n·q)) Σ z², has expectation 1; bars scaled by s give expectation 1/s�
 likelihood-ratio test on the σ scale is a test on T). The test passes when 0.8 ≤ T ≤ 1.25, the
 geometric midpoints between 1 and 1/0.8² or 1/1.25². The quantities of one seed are correlated (one
 fit, one rig), so T's spread is not that of n·q independent z²: for normal z with correlation matrix
-R, Var(T) = 2 Σ_ab R_ab² / (q² n). Measured on this scene (64 seeds): corr(speed, C_D) = 0.79, the
-others ≈ 0.05, τ never reported, so sd(T) = 0.122 at n = 64. Monte Carlo (10⁵ draws of 64 seeds of
-normal z with that R): honest bars fail 6.8 %; bars scaled by 0.8 pass 4.2 %, by 1.25 pass 2.6 %. At
-n = 80 these are 4.1 %, 2.5 %, 1.6 %; n = 64 is what CI's time allows at ~8.5 s of CPU per seed.
+R, Var(T) = 2 Σ_ab R_ab² / (q² n). Measured on this scene (64 seeds): corr(speed, C_D) = 0.80,
+corr(C_D, C_L0) = 0.22, corr(speed, C_L0) = 0.09, τ never reported, so sd(T) = 0.124 at n = 64. Monte
+Carlo (2·10⁴ draws of 64 seeds of normal z with that R): honest bars fail 7 %; bars scaled by 0.8 pass
+4.6 %, by 1.25 pass 2.9 %. (With the earlier R, at n = 80: 4.1 %, 2.5 %, 1.6 %.) The seeds are fixed, so
+a given state of the code passes or fails every time; n = 64 keeps the test near 2 minutes on 2 cores
+(~3 s of CPU per seed on a quiet machine, more under load).
 
 The coverage fractions at 1σ and 2σ of each quantity are checked too, within
 :data:`FRACTION_BAND_SIGMAS` binomial standard errors of 68.3 % and 95.4 % (a check of the shape:
