@@ -11,6 +11,7 @@ import pytest
 from calib_synth import fall_from_holder, fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
 from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
+from hopscope.calibration.camera import CameraState
 from hopscope.calibration.dropcheck import Measured
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
@@ -100,6 +101,24 @@ def test_wrong_frame_rate_is_flagged(rendered_drop):
     assert float(re.search(r"true frame rate of (\d+(\.\d+)?) fps", warns[0]).group(1)) == pytest.approx(
         FPS, rel=2e-3
     )
+
+
+def test_the_rigs_own_scale_doubt_is_part_of_the_drop_checks_error(rendered_drop):
+    """A rig that owns to a 1 % scale doubt is not refused for g 1.4 % off; one that claims none is."""
+    rig, path, _ = rendered_drop
+    gen = np.random.default_rng(2)
+    # camera centres moved along their line to the world origin by 1+e: every mapped point scales by 1+e
+    members = tuple(
+        CameraState(rig.camera_matrix, rig.dist_coeffs, rig.rotation, np.asarray(rig.translation) * (1 + e))
+        for e in gen.normal(0.0, 0.01, 24)
+    )
+    fps = FPS * 1.007  # g reads 1.4 % high
+    bare, _ = check_drop(rig, path, fps=fps)
+    assert bare.verdict == "inconsistent"
+    check, warns = check_drop(dataclasses.replace(rig, ensemble=members), path, fps=fps)
+    assert check.verdict == "consistent", warns
+    rel = check.g_measured_mps2.stderr / check.g_measured_mps2.value
+    assert 0.007 < rel < 0.014  # the members' 1 % (their sample spread) with the fall's own 0.1 %
 
 
 @pytest.mark.slow
