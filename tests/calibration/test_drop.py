@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from calib_synth import fall_from_holder, fall_with_drag, make_close_rig, render_disc_frames, write_gray_video
 
-from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
 from hopscope.calibration.camera import CameraState
+from hopscope.calibration.drop import apply_level, check_drop, find_ball, fit_free_fall
 from hopscope.calibration.dropcheck import Measured
 from hopscope.shared.constants import STANDARD_GRAVITY_MPS2
 
