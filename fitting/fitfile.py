@@ -26,10 +26,11 @@ where the data cannot determine the quantity; the ``bb`` parts are the BB tolera
                    "residuals": {"t_s": [...], "dx_m": [...], "dy_m": [...], "outlier": [...]}}
     statistics    {"n_points", "n_residuals", "n_parameters", "dof", "chi2", "reduced_chi2",
                    "stderr_scale", "aic", "bic", "residual_rms_m", "residual_rms_sigma", "n_outliers",
-                   "robust_chi2", "n_calibrations", "serial_correlation": {"lags_frames", "x", "y"}}
+                   "robust_chi2", "n_calibrations", "serial_correlation": {"model", "x", "y"}}
                    (χ², dof, RMS over inliers; AIC = robust_chi2 + 2k, BIC = robust_chi2 + k ln n over
-                   all n residuals; serial_correlation: the position errors' correlation between frames
-                   that many apart, per axis, which widens the error bars: fitting.serial)
+                   all n residuals; serial_correlation: the position errors' correlation between
+                   neighbouring frames per axis, ρ^k at k frames, which widens the error bars:
+                   fitting.serial)
     parameters    {"names", "values", "free", "covariance" (free × free), "correlation" (free × free),
                    "covariance_calibration" (free × free)}
 
@@ -60,7 +61,6 @@ from .decay_source import trajectory_decay_block
 from .layout import ParamLayout, decay_param_name
 from .observe import ModelSpec
 from .results import ChronoPrior, Estimate, FittedModel, FlightFit
-from .serial import LAGS
 from .spin import check_spin_measured
 
 SCHEMA = "hopscope.fit/1"
@@ -206,9 +206,9 @@ def fit_to_dict(result: FlightFit, *, inputs: Sequence[Mapping[str, Any]] = ()) 
             "robust_chi2": _num(st.robust_chi2),
             "n_calibrations": result.n_calibrations,
             "serial_correlation": {
-                "lags_frames": list(LAGS),
-                "x": [_num(v) for v in st.serial_correlation_x],
-                "y": [_num(v) for v in st.serial_correlation_y],
+                "model": "rho^k between points k frames apart",
+                "x": _num(st.serial_correlation_x),
+                "y": _num(st.serial_correlation_y),
             },
         },
         "parameters": {

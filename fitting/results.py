@@ -87,7 +87,7 @@ class FitStatistics:
     ``chi2``, ``dof``, the RMS and the error-bar scale use the inlier points. ``aic`` = R + 2k and
     ``bic`` = R + k·ln(n) use ``robust_chi2`` R = Σ c²ρ(r²/c²) over all n residuals with the requested
     loss ρ (= χ² for clean data or the linear loss), so laws fitted to the same data compare fairly.
-    ``serial_correlation_x``/``_y``: the errors' correlation between frames 1 and 2 apart per axis.
+    ``serial_correlation_x``/``_y``: the errors' correlation between neighbouring frames per axis.
     """
 
     n_points: int
@@ -103,10 +103,10 @@ class FitStatistics:
     residual_rms_sigma: float
     n_outliers: int
     robust_chi2: float = math.nan
-    #: Correlation of the normalised position errors between frames 1 and 2 apart, per axis
-    #: (:mod:`fitting.serial`); it widens the error bars by the sandwich covariance.
-    serial_correlation_x: tuple[float, ...] = ()
-    serial_correlation_y: tuple[float, ...] = ()
+    #: Correlation of the normalised position errors between neighbouring frames, per axis (ρ^k at k
+    #: frames: :mod:`fitting.serial`); it widens the error bars by the sandwich covariance.
+    serial_correlation_x: float = 0.0
+    serial_correlation_y: float = 0.0
 
 
 @dataclass(frozen=True, eq=False)

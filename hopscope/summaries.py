@@ -53,14 +53,9 @@ def _cal(e: Estimate | None) -> str:
     return "" if share is None else f"  (calibration {100 * share:.0f} % of variance)"
 
 
-def serial_text(x: Sequence[float], y: Sequence[float]) -> str:
-    """The position errors' correlation between neighbouring frames per axis (lags 1, 2, … frames)."""
-
-    def part(name: str, rho: Sequence[float]) -> str:
-        return f"{name} " + ", ".join(f"{v:+.2f}" for v in rho)
-
-    lags = ", ".join(str(k) for k in range(1, max(len(x), len(y)) + 1))
-    return f"{part('x', x)}; {part('y', y)} (frames {lags} apart; widens the error bars)"
+def serial_text(x: float, y: float) -> str:
+    """The position errors' correlation between neighbouring frames per axis."""
+    return f"x {x:.2f}, y {y:.2f} between neighbouring frames (widens the error bars)"
 
 
 def loss_text(asked: str, used: str) -> str:
@@ -102,7 +97,7 @@ def parameter_table(result: FlightFit, title: str = "hopscope fit") -> str:
     st = result.statistics
     rows.append(("residual rms", f"{1e3 * st.residual_rms_m:.3g} mm = {st.residual_rms_sigma:.3g} σ"))
     rows.append(("χ² / dof", f"{st.chi2:.4g} / {st.dof} (error bars ×{st.stderr_scale:.3g})"))
-    if st.serial_correlation_x or st.serial_correlation_y:
+    if st.serial_correlation_x > 0 or st.serial_correlation_y > 0:
         rows.append(("error correlation", serial_text(st.serial_correlation_x, st.serial_correlation_y)))
     rows.append(("AIC / BIC", f"{st.aic:.5g} / {st.bic:.5g}"))
     corr = result.correlation

@@ -227,7 +227,12 @@ def quality_rows(fit: FitFile) -> list[tuple[str, str]]:
         ),
         ("residual RMS", f"{1e3 * st['residual_rms_m']:.3g} mm = {st['residual_rms_sigma']:.3g} σ"),
         *(
-            [("frame-to-frame error correlation", serial_text(sc.get("x") or (), sc.get("y") or ()))]
+            [
+                (
+                    "frame-to-frame error correlation",
+                    serial_text(float(sc.get("x") or 0), float(sc.get("y") or 0)),
+                )
+            ]
             if (sc := st.get("serial_correlation")) and (sc.get("x") or sc.get("y"))
             else []
         ),
