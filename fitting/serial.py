@@ -26,8 +26,8 @@ least-squares one).
 References
 ----------
 Box, G. E. P., Jenkins, G. M., Reinsel, G. C. (2008). Time Series Analysis, 4th ed., §3.2 (first-order
-autoregressive autocorrelation ρ_k = φ^k). White, H. (1980). A heteroskedasticity-consistent covariance matrix estimator.
-Econometrica 48:817–838 (the sandwich form). Searle, S. R. (1971). Linear Models, §2.5 (expected value of
+autoregressive autocorrelation ρ_k = φ^k). White, H. (1980). A heteroskedasticity-consistent covariance
+matrix estimator. Econometrica 48:817–838 (the sandwich form). Searle, S. R. (1971). Linear Models, §2.5 (expected value of
 a quadratic form, E[rᵀAr] = tr(AΣ_r)).
 """
 
@@ -42,7 +42,8 @@ import scipy.sparse as sp
 #: Lags (in frames) whose moments are measured: one, the autoregression's coefficient.
 LAGS = (1,)
 
-#: Largest correlation between neighbouring frames used (the band's variance factor (1+ρ)/(1−ρ) is 19).
+#: Largest correlation between neighbouring frames used (a smooth estimate's variance factor (1+ρ)/(1−ρ)
+#: is then 19).
 RHO_MAX = 0.9
 
 #: R is built out to the lag where ρ^k falls below this.
@@ -163,6 +164,8 @@ def sandwich_middle(
     fr = frames[mask]
     for i in np.unique(shot):
         pts = np.nonzero((shot == i) & point_inlier)[0]
+        if pts.size < 2:
+            continue
         gap = np.abs(fr[pts][:, None] - fr[pts][None, :])
         for axis, rho in ((0, corr.x), (1, corr.y)):
             if rho <= 0:
