@@ -16,7 +16,8 @@ marked *new* may be absent in older files and are read with the default given):
 ``verdict``                ``"consistent"``, ``"inconsistent"`` or ``"failed"`` (no usable fall)
 ``reason``                 why the check failed or is inconsistent, "" otherwise
 ``levelled``               the world frame was turned so gravity points along −y
-``g_measured_mps2``        ``{"value", "stderr"}``, m/s² (null when failed)
+``g_measured_mps2``        ``{"value", "stderr"}``, m/s² (null when failed); the stderr holds the fall's fit
+                           and the rig's own scale doubt at the drop (its ensemble)
 ``g_ratio``                measured / expected g (null when failed)
 ``tilt_deg``               ``{"value", "stderr"}``: gravity's angle from −y toward +x, degrees (null when failed)
 ``tilt_stderr_parts_deg``  ``{"fit", "centroid_systematic"}``: the parts of the tilt's standard error, degrees

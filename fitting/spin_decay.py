@@ -5,8 +5,9 @@ determine only widens every other error bar. So: before fitting, if at the start
 tell the decay from the default at 1σ (:data:`PRECHECK_FACTOR`), it is fixed at the default; at the
 solution one Gauss-Newton step with it free says what the data think of it, and a decay the data do
 determine (relative error below :data:`DECAY_DETERMINED_REL`) or one that contradicts the default at
-:data:`CONTRADICT_SIGMAS` σ is then fitted freely. A freely fitted decay that turns out undetermined but allows the default is fixed
-there. The outcome says which, and its warning says what the other parameters assume.
+:data:`CONTRADICT_SIGMAS` σ is then fitted freely. A freely fitted decay that turns out undetermined but
+allows the default is fixed there. The outcome says which, and its warning says what the other
+parameters assume.
 """
 
 from __future__ import annotations
