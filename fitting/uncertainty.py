@@ -3,10 +3,10 @@
 The covariance is the Gauss-Newton (JᵀJ)⁻¹ at the solution over the inlier points (|r| ≤ OUTLIER_SIGMA
 times the residual scatter) — the sandwich (JᵀJ)⁻¹JᵀRJ(JᵀJ)⁻¹ when the residuals show errors correlated
 between neighbouring frames (:mod:`fitting.serial`) — scaled by the reduced χ² when that is significantly
-above 1, plus the
-calibration's share: for each perturbed calibration k the linearised shift δθ_k = (JᵀJ)⁻¹Jᵀ(o_k/σ) of the
-parameters under the points' offsets o_k, and Cov_cal = mean_k δθ_k δθ_kᵀ (the K perturbations are taken
-as draws of the calibration error, so the spread is about the nominal calibration). Shots mapped with the
+above 1, plus the calibration's share: for each perturbed calibration k the linearised shift
+δθ_k = (JᵀJ)⁻¹Jᵀ(o_k/σ) of the parameters under the points' offsets o_k, and Cov_cal = mean_k δθ_k δθ_kᵀ
+(the K perturbations are taken as draws of the calibration error, so the spread is about the nominal
+calibration). Shots mapped with the
 same rig share the k-th perturbation. Derived quantities use first-order propagation.
 
 References
