@@ -28,14 +28,19 @@ from typing import Any
 import cv2
 import numpy as np
 
+from hopscope.shared.parse import finite_or_none
+
 from .dragbound import DragBound, drag_bound
 from .grid import GridSpec
-from .lens import LensCalibration, ViewPoints, distortion_model, recalibrate
+from .lens import K3_SIGNIFICANCE, LensCalibration, ViewPoints, distortion_model, recalibrate
 from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose, solve_with_offsets
 from .rig import CameraState, Rig
 
 #: Ensemble members by default: enough for a spread to ±15 % (1/sqrt(2K)) at a second or two of work.
 DEFAULT_ENSEMBLE_SIZE = 24
+
+#: The distortion terms whose other choice is tried against the noise ensemble (:func:`model_choice`).
+MODEL_TERMS = ("k3", "tangential")
 
 #: Pixel grid (columns, rows) over the frame on which two distortion models' mappings are compared.
 MODEL_PROBE_GRID = (9, 5)
@@ -207,7 +212,7 @@ def build_ensemble(
     plane_z_m: float = 0.0,
     plane_z_sigma_m: float = 0.0,
     rng: int | np.random.Generator | None = None,
-) -> tuple[tuple[CameraState, ...], ModelChoice | None]:
+) -> tuple[tuple[CameraState, ...], tuple[ModelChoice, ...]]:
     """Perturbed camera states that carry the calibration's uncertainty, and the distortion-model check.
 
     Each member: bootstrap resample of the lens views (with replacement) → cv2.calibrateCamera from the
@@ -220,9 +225,10 @@ def build_ensemble(
     the board drawn independently at the left and right edges of the field, z ± N(0, plane_z_sigma_m²)
     each, which gives the member both an offset and a slope (a flight line not quite parallel to the
     board: its changing depth changes the apparent scale along the path, which a single camera cannot
-    see and which biases the drag coefficient, so it belongs in the error bars). When the other k3 choice
-    maps the field differently by more than this spread (:func:`model_choice`), every other member is
-    drawn with that model instead.
+    see and which biases the drag coefficient, so it belongs in the error bars). When the other choice of
+    k3 or of the tangential terms maps the field differently by more than this spread
+    (:func:`model_choice`), the members are shared in turn between the nominal model and each such
+    alternative.
     """
     gen = _rng(rng)
     used = {s for s in lens.views_used}
@@ -267,11 +273,15 @@ def build_ensemble(
 
     members = [member(lens) for _ in range(size)]
     if not members:
-        return (), None
-    alt = model_choice(views, lens, placements, spec, plane, members)
-    if alt.included and alt.lens is not None:  # every other member from the other model, own resample
-        members[1::2] = [member(alt.lens) for _ in members[1::2]]
-    return tuple(members), alt
+        return (), ()
+    alts = tuple(model_choice(views, lens, placements, spec, plane, members, term=t) for t in MODEL_TERMS)
+    models = [lens] + [a.lens for a in alts if a.included and a.lens is not None]
+    # the models share the members in turn (each member its own resample): with one alternative every
+    # other member, with two every third
+    for i in range(1, len(members)):
+        if models[i % len(models)] is not lens:
+            members[i] = member(models[i % len(models)])
+    return tuple(members), alts
 
 
 @dataclass(frozen=True, eq=False)
@@ -280,14 +290,16 @@ class ModelChoice:
 
     Attributes
     ----------
-    distortion_model : its terms (k3 kept or dropped, the opposite of the nominal choice).
+    term : the term whose choice is flipped: "k3" (kept ↔ dropped) or "tangential" (p1, p2 fitted ↔ zero).
+    distortion_model : the alternative's terms.
     max_difference_m : distance between its mapping and the nominal one where it is largest in units of
         the noise ensemble's spread, m.
     noise_spread_m : the noise ensemble's RMS spread at that point, m.
-    included : the difference exceeds the spread, so half the ensemble uses this model.
+    included : the difference exceeds the spread, so a share of the ensemble uses this model.
     lens : the lens calibration with this model (None when not fitted).
     """
 
+    term: str
     distortion_model: str
     max_difference_m: float
     noise_spread_m: float
@@ -296,9 +308,10 @@ class ModelChoice:
 
     def to_dict(self) -> dict[str, Any]:
         return {
+            "term": self.term,
             "alternative": self.distortion_model,
-            "max_difference_m": self.max_difference_m,
-            "noise_spread_m": self.noise_spread_m,
+            "max_difference_m": finite_or_none(self.max_difference_m),
+            "noise_spread_m": finite_or_none(self.noise_spread_m),
             "included": self.included,
         }
 
@@ -310,8 +323,15 @@ def model_choice(
     spec: GridSpec,
     plane: PlanePose,
     members: Sequence[CameraState],
+    *,
+    term: str = "k3",
 ) -> ModelChoice:
-    """Compare the mapping of the other k3 choice (kept ↔ dropped) with the nominal over the field.
+    """Compare the mapping of the other choice of ``term`` with the nominal over the field.
+
+    ``term`` "k3": k3 kept ↔ dropped; "tangential": p1, p2 fitted ↔ held at zero (the other terms as the
+    nominal model has them). Holding a term at zero is an alternative only when the data do not reject it
+    (no coefficient differs from zero by more than :data:`calibration.lens.K3_SIGNIFICANCE` of its
+    standard errors, the rule that keeps k3); otherwise the choice is reported as not included.
 
     The alternative lens is fitted on the same views, the plane posed through it on the same corners; the
     two mappings are compared on a grid over the whole frame (:data:`MODEL_PROBE_GRID`), each difference
@@ -319,10 +339,25 @@ def model_choice(
     of the uncertainty (the issue's rule: two reasonable models that disagree by more than the noise both
     belong in the ensemble).
     """
-    other = "free" if lens.flags & cv2.CALIB_FIX_K3 else "off"
-    alt_lens = dataclasses.replace(lens, k3_rule=other)
+    if term == "k3":
+        other = "free" if lens.flags & cv2.CALIB_FIX_K3 else "off"
+        flags = lens.flags | cv2.CALIB_FIX_K3 if other == "off" else lens.flags & ~cv2.CALIB_FIX_K3
+        if other == "off" and _significant(lens, ((4, "k3"),)):  # the data reject k3 = 0
+            return ModelChoice(term, distortion_model(flags), float("nan"), float("nan"), False, None)
+        alt_lens = dataclasses.replace(lens, k3_rule=other)
+    elif term == "tangential":
+        flags = lens.flags ^ cv2.CALIB_ZERO_TANGENT_DIST
+        if flags & cv2.CALIB_ZERO_TANGENT_DIST and _significant(lens, ((2, "p1"), (3, "p2"))):
+            # the data reject p1 = p2 = 0: that model is not a reasonable alternative
+            return ModelChoice(term, distortion_model(flags), float("nan"), float("nan"), False, None)
+        start = np.ravel(lens.dist_coeffs).astype(float).copy()
+        if flags & cv2.CALIB_ZERO_TANGENT_DIST:
+            start[2:4] = 0.0
+        k3_rule = "off" if lens.flags & cv2.CALIB_FIX_K3 else "free"  # k3 as the nominal has it
+        alt_lens = dataclasses.replace(lens, dist_coeffs=start, flags=flags, k3_rule=k3_rule)
+    else:
+        raise ValueError(f"internal: unknown distortion term {term!r}")
     k, d = recalibrate(views, alt_lens)
-    flags = lens.flags | cv2.CALIB_FIX_K3 if other == "off" else lens.flags & ~cv2.CALIB_FIX_K3
     alt_lens = dataclasses.replace(alt_lens, camera_matrix=k, dist_coeffs=d, flags=flags)
     world = placement_world_points(spec, placements)
     image = np.concatenate([p.image_points for p in placements])
@@ -338,12 +373,24 @@ def model_choice(
     diff = np.linalg.norm(alternative.pixel_to_world(uv) - base, axis=1)
     name = distortion_model(alt_lens.flags)
     if not members or not np.any(np.isfinite(diff)):
-        return ModelChoice(name, float("nan"), float("nan"), False, alt_lens)
+        return ModelChoice(term, name, float("nan"), float("nan"), False, alt_lens)
     spread = np.sqrt(
         np.nanmean([np.sum((m.pixel_to_world(uv) - base) ** 2, axis=1) for m in members], axis=0)
     )
     i = int(np.nanargmax(diff / np.maximum(spread, 1e-12)))  # where the models differ most, in noise units
-    return ModelChoice(name, float(diff[i]), float(spread[i]), bool(diff[i] > spread[i]), alt_lens)
+    return ModelChoice(term, name, float(diff[i]), float(spread[i]), bool(diff[i] > spread[i]), alt_lens)
+
+
+def _significant(lens: LensCalibration, terms: Sequence[tuple[int, str]]) -> bool:
+    """Any of the distortion ``terms`` ((index, name)) differs from zero by more than K3_SIGNIFICANCE
+    standard errors (the rule that keeps k3), or has no standard error to tell."""
+    d = np.ravel(lens.dist_coeffs)
+    std = lens.intrinsics_std
+    for i, name in terms:
+        s = std.get(name)
+        if s is None or not (s > 0) or abs(float(d[i])) > K3_SIGNIFICANCE * float(s):
+            return True
+    return False
 
 
 def _field_x_extent(lens: LensCalibration, plane: PlanePose) -> tuple[float, float]:
@@ -456,8 +503,12 @@ def make_rig(
             "method": "bootstrap over lens views (k3 rule repeated) + plane-corner noise (independent rest and "
             "sub-pixel phase bias) + taped offsets as the prior of a joint pose and offset solve"
             + (" + parallax error" if plane_z_sigma_m > 0 else "")
-            + (" + the other distortion model in every other member" if choice and choice.included else ""),
-            "model_choice": None if choice is None else choice.to_dict(),
+            + (
+                " + the other distortion model(s) in a share of the members"
+                if any(c.included for c in choice)
+                else ""
+            ),
+            "model_choice": [c.to_dict() for c in choice],
         },
     }
     if provenance:

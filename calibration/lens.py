@@ -279,4 +279,8 @@ def recalibrate(views: Sequence[ViewPoints], start: LensCalibration) -> tuple[np
 
 def distortion_model(flags: int) -> str:
     """Names of the fitted distortion terms for ``flags``."""
-    return "k1, k2, p1, p2" + ("" if flags & cv2.CALIB_FIX_K3 else ", k3")
+    return (
+        "k1, k2"
+        + ("" if flags & cv2.CALIB_ZERO_TANGENT_DIST else ", p1, p2")
+        + ("" if flags & cv2.CALIB_FIX_K3 else ", k3")
+    )

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 from calib_synth import IMAGE_SIZE, look_at_pose, project, synthetic_lens_views
@@ -42,12 +44,10 @@ def _placements(truth: Rig, spec, offsets, rng, noise_px=NOISE_PX):
     return out
 
 
-def _close_setup(seed=0, offsets=(0.0,)):
+def _close_setup(seed=0, offsets=(0.0,), dist=CLOSE_DIST):
     rng = np.random.default_rng(seed)
-    truth = _truth(CLOSE_K, CLOSE_DIST, (0.5, -0.2, 2.0), (0.5, -0.25, 0.0))
-    views = synthetic_lens_views(
-        BOARD, 12, rng, k=CLOSE_K, dist=CLOSE_DIST, fill=(0.55, 0.85), noise_px=NOISE_PX
-    )
+    truth = _truth(CLOSE_K, dist, (0.5, -0.2, 2.0), (0.5, -0.25, 0.0))
+    views = synthetic_lens_views(BOARD, 12, rng, k=CLOSE_K, dist=dist, fill=(0.55, 0.85), noise_px=NOISE_PX)
     lens = calibrate_lens(views, IMAGE_SIZE)
     return truth, views, lens, _placements(truth, BOARD, offsets, rng), rng
 
@@ -252,3 +252,18 @@ def test_model_choice_joins_the_ensemble_only_beyond_the_noise():
     )
     loose = model_choice(views, lens, placements, BOARD, plane, [far] * 3)
     assert not loose.included and loose.noise_spread_m > loose.max_difference_m
+    # the tangential terms' other choice (fitted ↔ zero): this lens has p1, p2 of 1e-3 and the data
+    # reject zero, so holding them there is no reasonable alternative, however tight the ensemble
+    tangential = model_choice(views, lens, placements, BOARD, plane, [nominal] * 3, term="tangential")
+    assert tangential.term == "tangential" and not tangential.included and tangential.lens is None
+    assert json.loads(json.dumps(tangential.to_dict(), allow_nan=False))["max_difference_m"] is None
+    # a lens without tangential distortion: zero is a fair alternative, included beyond the noise
+    flat = np.array([CLOSE_DIST[0], CLOSE_DIST[1], 0.0, 0.0, 0.0])
+    _, views, lens, placements, _ = _close_setup(seed=13, dist=flat)
+    plane = solve_plane(placements, BOARD, lens.camera_matrix, lens.dist_coeffs)
+    nominal = CameraState(lens.camera_matrix, lens.dist_coeffs, plane.rotation, plane.translation)
+    tangential = model_choice(views, lens, placements, BOARD, plane, [nominal] * 3, term="tangential")
+    assert tangential.lens is not None and tangential.included and tangential.max_difference_m > 0
+    assert "p1, p2" in distortion_model(lens.flags) and "p1, p2" not in tangential.distortion_model
+    assert ("k3" in tangential.distortion_model) == ("k3" in distortion_model(lens.flags))
+    np.testing.assert_array_equal(tangential.lens.dist_coeffs[2:4], 0.0)
