@@ -16,8 +16,10 @@ import pytest
 from hopscope.fitting.air import Air
 from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import fit_shots
+from hopscope.fitting.fitfile import fit_to_dict
 from hopscope.fitting.observe import ModelSpec, simulate_shot
 from hopscope.fitting.serial import frame_steps, sandwich_middle
+from hopscope.summaries import parameter_table
 
 PHI = 0.4  # autoregression coefficient of the vertical error
 N_POINTS = 50
@@ -147,6 +149,13 @@ def test_the_fitter_reports_the_correlation_and_widens_the_lift_error_bar():
     fit_c = fit_shots([shot_corr], bb=bb, air=air)
     assert fit_c.statistics.serial_correlation_y > 0.3
     assert fit_c.shots[0].lift_coefficient.stderr_noise > 1.3 * fit_w.shots[0].lift_coefficient.stderr_noise
+    # the summary shows it, and fit.json carries it
+    assert f"y {fit_c.statistics.serial_correlation_y:.2f} between neighbouring frames" in parameter_table(
+        fit_c
+    )
+    assert (
+        fit_to_dict(fit_c)["statistics"]["serial_correlation"]["y"] == fit_c.statistics.serial_correlation_y
+    )
 
 
 @pytest.mark.parametrize("n_shots", [1, 3])
