@@ -33,7 +33,15 @@ from hopscope.shared.parse import finite_or_none
 from .dragbound import DragBound, drag_bound
 from .grid import GridSpec
 from .lens import K3_SIGNIFICANCE, LensCalibration, ViewPoints, distortion_model, recalibrate
-from .plane import Placement, PlanePose, placement_world_points, solve_plane, solve_pose, solve_with_offsets
+from .plane import (
+    Placement,
+    PlanePose,
+    placement_world_points,
+    project_points,
+    solve_plane,
+    solve_pose,
+    solve_with_offsets,
+)
 from .rig import CameraState, Rig
 
 #: Ensemble members by default: enough for a spread to ±15 % (1/sqrt(2K)) at a second or two of work.
@@ -167,12 +175,9 @@ def plane_corner_noise(
     ``placements`` with their offsets as solved. The lens fit's residual is a floor of the per-corner
     noise (a lucky plane fit can look too clean); the split into phase bias and rest is the plane residual's.
     """
-    world = np.asarray(placement_world_points(spec, placements), float)
+    world = placement_world_points(spec, placements)
     image = np.concatenate([p.image_points for p in placements])
-    posed = cv2.projectPoints(
-        world, cv2.Rodrigues(plane.rotation)[0], np.asarray(plane.translation, float),
-        lens.camera_matrix, lens.dist_coeffs,
-    )[0].reshape(-1, 2)  # fmt: skip
+    posed = project_points(world, plane.rotation, plane.translation, lens.camera_matrix, lens.dist_coeffs)
     noise = corner_phase_bias(image, image - posed)
     sigma = plane_corner_sigma_px(plane, len(image), lens)
     scale = sigma / noise.total_px if noise.total_px > 0 else 1.0
@@ -212,6 +217,7 @@ def build_ensemble(
     plane_z_m: float = 0.0,
     plane_z_sigma_m: float = 0.0,
     rng: int | np.random.Generator | None = None,
+    corner_noise: CornerNoise | None = None,
 ) -> tuple[tuple[CameraState, ...], tuple[ModelChoice, ...]]:
     """Perturbed camera states that carry the calibration's uncertainty, and the distortion-model check.
 
@@ -228,7 +234,8 @@ def build_ensemble(
     see and which biases the drag coefficient, so it belongs in the error bars). When the other choice of
     k3 or of the tangential terms maps the field differently by more than this spread
     (:func:`model_choice`), the members are shared in turn between the nominal model and each such
-    alternative.
+    alternative. ``corner_noise``: the plane corners' noise when the caller has it already
+    (:func:`plane_corner_noise` of the solved placements).
     """
     gen = _rng(rng)
     used = {s for s in lens.views_used}
@@ -238,9 +245,9 @@ def build_ensemble(
     world0 = placement_world_points(spec, placements)
     bounds = np.cumsum([0] + [len(p.image_points) for p in placements])
     image0 = np.concatenate([p.image_points for p in placements])
-    sigma = plane_corner_sigma_px(plane, len(image0), lens)
+    noise = plane_corner_noise(lens, placements, spec, plane) if corner_noise is None else corner_noise
+    sigma = noise.total_px  # plane_corner_sigma_px's size
     start = (cv2.Rodrigues(plane.rotation)[0], plane.translation)
-    noise = plane_corner_noise(lens, placements, spec, plane)
     x_left, x_right = _field_x_extent(lens, plane)
 
     def member(model: LensCalibration) -> CameraState:
@@ -342,21 +349,20 @@ def model_choice(
     if term == "k3":
         other = "free" if lens.flags & cv2.CALIB_FIX_K3 else "off"
         flags = lens.flags | cv2.CALIB_FIX_K3 if other == "off" else lens.flags & ~cv2.CALIB_FIX_K3
-        if other == "off" and _significant(lens, ((4, "k3"),)):  # the data reject k3 = 0
-            return ModelChoice(term, distortion_model(flags), float("nan"), float("nan"), False, None)
+        zeroed: tuple[tuple[int, str], ...] = ((4, "k3"),) if other == "off" else ()
         alt_lens = dataclasses.replace(lens, k3_rule=other)
     elif term == "tangential":
         flags = lens.flags ^ cv2.CALIB_ZERO_TANGENT_DIST
-        if flags & cv2.CALIB_ZERO_TANGENT_DIST and _significant(lens, ((2, "p1"), (3, "p2"))):
-            # the data reject p1 = p2 = 0: that model is not a reasonable alternative
-            return ModelChoice(term, distortion_model(flags), float("nan"), float("nan"), False, None)
+        zeroed = ((2, "p1"), (3, "p2")) if flags & cv2.CALIB_ZERO_TANGENT_DIST else ()
         start = np.ravel(lens.dist_coeffs).astype(float).copy()
-        if flags & cv2.CALIB_ZERO_TANGENT_DIST:
+        if zeroed:
             start[2:4] = 0.0
         k3_rule = "off" if lens.flags & cv2.CALIB_FIX_K3 else "free"  # k3 as the nominal has it
         alt_lens = dataclasses.replace(lens, dist_coeffs=start, flags=flags, k3_rule=k3_rule)
     else:
         raise ValueError(f"internal: unknown distortion term {term!r}")
+    if zeroed and _significant(lens, zeroed):  # the data reject those terms at zero: no fair alternative
+        return ModelChoice(term, distortion_model(flags), float("nan"), float("nan"), False, None)
     k, d = recalibrate(views, alt_lens)
     alt_lens = dataclasses.replace(alt_lens, camera_matrix=k, dist_coeffs=d, flags=flags)
     world = placement_world_points(spec, placements)
@@ -459,7 +465,7 @@ def make_rig(
     noise = plane_corner_noise(lens, _as_solved(placements, plane), spec, plane)
     members, choice = build_ensemble(
         lens_views, lens, placements, spec, plane, size=ensemble_size, offset_sigma_m=offset_sigma_m,
-        plane_z_m=plane_z_m, plane_z_sigma_m=plane_z_sigma_m, rng=rng,
+        plane_z_m=plane_z_m, plane_z_sigma_m=plane_z_sigma_m, rng=rng, corner_noise=noise,
     )  # fmt: skip
     prov: dict[str, Any] = {
         "method": "Zhang (2000) lens calibration (cv2.calibrateCameraExtended); joint PnP of all plane "

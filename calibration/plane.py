@@ -139,7 +139,7 @@ def pose_residual_px(
         rot, t = solve_pose(world, image, camera_matrix, dist_coeffs)
     except (ValueError, cv2.error):
         return float("inf")
-    err = _project(world, rot, t, camera_matrix, dist_coeffs) - np.asarray(image, float).reshape(-1, 2)
+    err = project_points(world, rot, t, camera_matrix, dist_coeffs) - np.asarray(image, float).reshape(-1, 2)
     return float(np.sqrt(np.mean(np.sum(err**2, axis=1))))
 
 
@@ -200,7 +200,7 @@ def solve_plane(
             f"{placements[0].source}: no single plane fits the placements (the camera would stand behind the "
             "board): check the offsets (metres downrange from the first) and --square-mm"
         )
-    proj = _project(world, rot, t, camera_matrix, dist_coeffs)
+    proj = project_points(world, rot, t, camera_matrix, dist_coeffs)
     err = np.linalg.norm(proj - image, axis=1)
     per, start = [], 0
     for p in placements:
@@ -338,7 +338,8 @@ def check_spacing(
     return tuple(ratios)
 
 
-def _project(world, rot, t, k, d) -> np.ndarray:
+def project_points(world, rot, t, k, d) -> np.ndarray:
+    """World points (N, 3) through the pose (rotation matrix, translation) and the lens → pixels (N, 2)."""
     rvec, _ = cv2.Rodrigues(rot)
     img, _ = cv2.projectPoints(np.asarray(world, float).reshape(-1, 1, 3), rvec, t, k, d)
     return img.reshape(-1, 2)
