@@ -139,7 +139,7 @@ def _traces(mats: list[sp.csr_matrix], q: np.ndarray) -> np.ndarray:
     return out
 
 
-def sandwich_middle(
+def correlation_excess(
     r: np.ndarray,
     jac: np.ndarray,
     entry_inlier: np.ndarray,
@@ -147,7 +147,9 @@ def sandwich_middle(
     mask: np.ndarray,
     point_inlier: np.ndarray,
 ) -> tuple[SerialCorrelation, np.ndarray | None]:
-    """The measured correlation and JᵀRJ over the inlier entries (None when no correlation is measured).
+    """The measured correlation and Jᵀ(R − I)J over the inlier entries (None when none is measured).
+
+    The sandwich's middle JᵀRJ is the caller's normal matrix JᵀJ plus this excess.
 
     ``r``, ``jac``: the fit's normalised residuals and Jacobian (all entries); ``entry_inlier`` marks the
     entries of the fit (points and priors); ``t_rel_s``, ``mask``: the stacked shots' times (n, k) and real
@@ -159,7 +161,7 @@ def sandwich_middle(
     if corr.is_zero:
         return corr, None
     jz = jac * entry_inlier[:, None]
-    middle = jz.T @ jz
+    excess = np.zeros((jac.shape[1], jac.shape[1]))
     shot, _ = np.nonzero(mask)
     fr = frames[mask]
     for i in np.unique(shot):
@@ -172,9 +174,9 @@ def sandwich_middle(
                 continue
             block = jz[2 * pts + axis]
             lags = min(int(math.log(RHO_NEGLIGIBLE) / math.log(rho)) + 1, int(gap.max()))
-            excess = np.where((gap > 0) & (gap <= lags), rho ** gap.astype(float), 0.0)
-            middle += block.T @ excess @ block
-    return corr, middle
+            band = np.where((gap > 0) & (gap <= lags), rho ** gap.astype(float), 0.0)
+            excess += block.T @ band @ block
+    return corr, excess
 
 
 def measure(
@@ -219,4 +221,4 @@ def measure(
     return SerialCorrelation(rho[0], rho[1])
 
 
-__all__ = ["LAGS", "RHO_MAX", "SerialCorrelation", "frame_steps", "measure", "sandwich_middle"]
+__all__ = ["LAGS", "RHO_MAX", "SerialCorrelation", "correlation_excess", "frame_steps", "measure"]

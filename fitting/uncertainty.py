@@ -148,11 +148,12 @@ def fit_state(problem: FitProblem, x: np.ndarray, loss: str = "linear", f_scale:
     # fluctuates within its own spread says the tracked σ are right, and inflating then would over-cover
     significant = dof > 0 and chi2 > float(scipy.stats.chi2.isf(CHI2_SCALE_P, dof))
     scale = math.sqrt(red) if significant else (1.0 if dof > 0 else math.inf)
-    inv, singular = inverse(ji.T @ ji)
+    normal = ji.T @ ji
+    inv, singular = inverse(normal)
     # neighbouring frames' errors may be correlated (video coding): measured from the residuals, and
-    # carried by the sandwich (JᵀJ)⁻¹JᵀRJ(JᵀJ)⁻¹ (fitting.serial)
-    corr, middle = serial.sandwich_middle(r, jac, inlier, stack.t_rel_s, stack.mask, ~out_pt)
-    cov_noise = (inv if middle is None else inv @ middle @ inv) * scale**2
+    # carried by the sandwich (JᵀJ)⁻¹JᵀRJ(JᵀJ)⁻¹, JᵀRJ = JᵀJ + Jᵀ(R − I)J (fitting.serial)
+    corr, excess = serial.correlation_excess(r, jac, inlier, stack.t_rel_s, stack.mask, ~out_pt)
+    cov_noise = (inv if excess is None else inv @ (normal + excess) @ inv) * scale**2
     cov_cal = np.zeros_like(inv)
     shots = problem.shots
     for members in calibration_groups(shots):

@@ -18,7 +18,7 @@ from hopscope.fitting.bb import BB
 from hopscope.fitting.estimate import fit_shots
 from hopscope.fitting.fitfile import fit_to_dict
 from hopscope.fitting.observe import ModelSpec, simulate_shot
-from hopscope.fitting.serial import frame_steps, sandwich_middle
+from hopscope.fitting.serial import correlation_excess, frame_steps
 from hopscope.summaries import parameter_table
 
 PHI = 0.4  # autoregression coefficient of the vertical error
@@ -57,8 +57,8 @@ def _fit(jac, e, t):
     r = e - jac @ beta
     mask = np.ones((1, t.size), dtype=bool)
     inlier = np.ones(r.size, dtype=bool)
-    corr, middle = sandwich_middle(r, jac, inlier, (t - t[0])[None, :], mask, np.ones(t.size, dtype=bool))
-    return beta, corr, middle
+    corr, excess = correlation_excess(r, jac, inlier, (t - t[0])[None, :], mask, np.ones(t.size, dtype=bool))
+    return beta, corr, None if excess is None else jac.T @ jac + excess
 
 
 def test_moment_estimate_of_the_correlation_is_unbiased_where_the_naive_one_is_not():
