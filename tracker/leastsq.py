@@ -39,43 +39,79 @@ def levenberg_marquardt(
     Marquardt, D. W. (1963). An algorithm for least-squares estimation of nonlinear parameters.
     J. SIAM 11(2):431–441.
     """
+    last: dict[str, np.ndarray] = {}
+
+    def cost(p: np.ndarray) -> float:
+        r = fun(p)
+        last["p"], last["r"] = p, r
+        return float(r @ r)
+
+    def normal(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        r = last["r"] if last.get("p") is p else fun(p)
+        j = jac(p)
+        last["j"], last["jp"] = j, p
+        return j.T @ j, j.T @ r
+
+    p, _, ok, msg = minimise_normal(cost, normal, p0, lower, upper, max_iter=max_iter, ftol=ftol)
+    r = last["r"] if last.get("p") is p else fun(p)
+    j = last["j"] if last.get("jp") is p else jac(p)
+    return _Fit(p, r, j, 0.5 * float(r @ r), ok, msg)
+
+
+def minimise_normal(
+    cost: Callable[[np.ndarray], float],
+    normal: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+    p0: np.ndarray,
+    lower: np.ndarray,
+    upper: np.ndarray,
+    *,
+    max_iter: int = 40,
+    ftol: float = 1e-5,
+) -> tuple[np.ndarray, float, bool, str]:
+    """The Levenberg–Marquardt iteration of :func:`levenberg_marquardt` on the normal equations.
+
+    ``cost(p)`` is ‖r(p)‖²; ``normal(p)`` is (JᵀJ, Jᵀr) at p, called only at a p that ``cost`` was last
+    called with (a model can then share its work between the two). Returns (p, ‖r‖², converged, message).
+    A model whose normal equations are cheaper than its Jacobian (a separable spot:
+    :func:`tracker.profiles.spot_normal`) is fitted without ever forming J.
+    """
     p = np.clip(np.asarray(p0, float), lower, upper)
-    r = fun(p)
-    cost = float(r @ r)
+    c = cost(p)
     lam = 1e-3
-    j = jac(p)
+    a, g = normal(p)
     for _ in range(max_iter):
-        a = j.T @ j
-        g = j.T @ r
         dg = np.diag(a).copy()
         dg[dg <= 0] = 1e-12
         # parameters held at a bound by the gradient stay there (projected steps)
         free = ~(((p <= lower) & (g > 0)) | ((p >= upper) & (g < 0)))
-        af = a[np.ix_(free, free)]
+        every = bool(free.all())  # the usual case: no parameter at a bound, no sub-matrix to gather
+        af, df, gf = (a, dg, g) if every else (a[np.ix_(free, free)], dg[free], g[free])
         while True:
             step = np.zeros_like(p)
             try:
-                step[free] = np.linalg.solve(af + lam * np.diag(dg[free]), -g[free])
+                sol = np.linalg.solve(af + lam * np.diag(df), -gf)
+                if every:
+                    step = sol
+                else:
+                    step[free] = sol
             except np.linalg.LinAlgError:
                 pass
             pn = np.clip(p + step, lower, upper)
-            rn = fun(pn)
-            cn = float(rn @ rn)
-            if np.isfinite(cn) and cn <= cost:
+            cn = cost(pn)
+            if np.isfinite(cn) and cn <= c:
                 break
             lam *= 10.0
             if lam > 1e10:
-                return _Fit(p, r, j, 0.5 * cost, True, "no further decrease")
+                return p, c, True, "no further decrease"
         # converged when the step changes the fit by a negligible fraction of the residual
         gain = float(np.sum(dg * (pn - p) ** 2))
-        drop = cost - cn
-        p, r = pn, rn
-        cost = cn
+        drop = c - cn
+        p, c = pn, cn
         lam = max(lam / 10.0, 1e-12)
-        j = jac(p)
-        if drop <= ftol * max(cost, 1e-300) or gain <= ftol * max(cost, 1e-300):
-            return _Fit(p, r, j, 0.5 * cost, True, "converged")
-    return _Fit(p, r, j, 0.5 * cost, False, f"no convergence in {max_iter} iterations")
+        a, g = normal(p)
+        if drop <= ftol * max(c, 1e-300) or gain <= ftol * max(c, 1e-300):
+            return p, c, True, "converged"
+    return p, c, False, f"no convergence in {max_iter} iterations"
 
 
 def _covariance(jac: np.ndarray, sig2: np.ndarray) -> np.ndarray:

@@ -138,3 +138,74 @@ def streak_model(p: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
     else:
         along = (erf((al + half) * k) - erf((al - half) * k)) / (2.0 * erf(half * k))
     return c + a * across * along
+
+
+def _spot_axes(p: np.ndarray, xy: np.ndarray, n_x: int, derivatives: bool) -> np.ndarray:
+    """Per-axis factors of :func:`spot_model` on the concatenated column and row coordinates ``xy``.
+
+    Row 0: E (the pixel integral of the unit Gaussian along the axis, times 2); with ``derivatives`` also
+    row 1: ∂E/∂(centre), row 2: ∂E/∂s, row 3: ones. The first ``n_x`` entries are the columns' (x), the rest
+    the rows' (y).
+    """
+    u0, v0, _a, s, _c = p
+    k = 1.0 / (_SQRT2 * s)
+    t = xy.copy()
+    t[:n_x] -= u0
+    t[n_x:] -= v0
+    z = (t + _HALF_STEPS) * k
+    ez = erf(z)
+    if not derivatives:
+        return ez[0] - ez[1]
+    gz = _TWO_OVER_SQRTPI * np.exp(-z * z)
+    out = np.empty((4, xy.size))
+    out[0] = ez[0] - ez[1]
+    out[1] = -k * (gz[0] - gz[1])
+    zg = z * gz
+    out[2] = (zg[0] - zg[1]) * (-1.0 / s)
+    out[3] = 1.0
+    return out
+
+
+_HALF_STEPS = np.array([[0.5], [-0.5]])
+
+
+def spot_cost(p: np.ndarray, xy: np.ndarray, n_x: int, d: np.ndarray, dd: float) -> float:
+    """‖spot_model(p) − d‖² for the (rows, cols) window ``d`` (dd = ‖d‖²), from the model's per-axis
+    factors: the model is c + a·f·(E_y ⊗ E_x), so the sum over pixels separates into sums over rows and
+    columns (the same value as forming the residual image, to round-off)."""
+    _u0, _v0, a, s, c = p
+    e = _spot_axes(p, xy, n_x, False)
+    ex, ey = e[:n_x], e[n_x:]
+    af = a * 0.5 * math.pi * s * s
+    sx, sy = float(ex.sum()), float(ey.sum())
+    mm = af * af * float(ex @ ex) * float(ey @ ey) + 2.0 * af * c * sx * sy + c * c * ex.size * ey.size
+    md = af * float(ey @ d @ ex) + c * float(d.sum())
+    return mm - 2.0 * md + dd
+
+
+def spot_normal(p: np.ndarray, xy: np.ndarray, n_x: int, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(JᵀJ, Jᵀr) of :func:`spot_model` − d at p without forming the Jacobian.
+
+    Every column of the Jacobian (:func:`spot_jacobian`) is a combination of outer products Y_a ⊗ X_b of
+    per-axis factors (:func:`_spot_axes`), and ⟨Y_a ⊗ X_b, Y_a' ⊗ X_b'⟩ = (Y_a·Y_a')(X_b·X_b'): the normal
+    equations come from two 4×4 Gram matrices and the 4×4 projection Y·d·Xᵀ of the window.
+    """
+    _u0, _v0, a, s, c = p
+    b = _spot_axes(p, xy, n_x, True)
+    bx, by = b[:, :n_x], b[:, n_x:]
+    gx, gy = bx @ bx.T, by @ by.T
+    g16 = (gy[:, None, :, None] * gx[None, :, None, :]).reshape(16, 16)
+    proj = (by @ d @ bx.T).ravel()
+    f = 0.5 * math.pi * s * s
+    af = a * f
+    # coefficients of each Jacobian column over the products Y_a ⊗ X_b (flat index 4a + b)
+    cf = np.zeros((5, 16))
+    cf[0, 1] = af  # ∂/∂u0: E_y ⊗ ∂E_x
+    cf[1, 4] = af  # ∂/∂v0: ∂E_y ⊗ E_x
+    cf[2, 0] = f  # ∂/∂A
+    cf[3, 0], cf[3, 2], cf[3, 8] = a * math.pi * s, af, af  # ∂/∂s
+    cf[4, 15] = 1.0  # ∂/∂c
+    m = np.zeros(16)
+    m[0], m[15] = af, c
+    cg = cf @ g16
+    return cg @ cf.T, cg @ m - cf @ proj

@@ -19,6 +19,8 @@ from hopscope.tracker.localise import (
     streak_jacobian,
     streak_model,
 )
+from hopscope.tracker.profiles import spot_cost, spot_normal
+from hopscope.tracker.spotfit import _fit_spot
 
 #: Position RMS against truth, white BB, short exposure (issue 5 target).
 POSITION_RMS_TOL_PX = 0.1
@@ -107,6 +109,40 @@ def test_lm_reaches_scipy_optimum(rng):
     assert ours.success
     np.testing.assert_allclose(ours.x[:2], ref.x[:2], atol=LM_AGREE_PX)
     assert ours.cost <= ref.cost * (1 + 1e-6)
+
+
+def test_separable_spot_normal_equations_match_the_explicit_jacobian(rng):
+    # the spot fit's normal equations from per-axis Gram matrices equal JᵀJ and Jᵀr of the explicit
+    # Jacobian, and its separable cost equals ‖r‖² (to round-off)
+    img, _, _, _ = _trials(rng, radius=2.2, psf=0.7, noise=3.0, n=1)[0]
+    d2 = img[3:26, 5:24] - LEVEL  # a non-square window
+    gx = np.arange(d2.shape[1], dtype=float)
+    gy = np.arange(d2.shape[0], dtype=float)
+    xy = np.concatenate((gx, gy))
+    for p in (np.array([9.7, 11.2, 90.0, 1.3, 2.0]), np.array([3.1, 18.4, 20.0, 2.6, -4.0])):
+        r = spot_model(p, gx, gy) - d2.ravel()
+        j = spot_jacobian(p, gx, gy)
+        a, g = spot_normal(p, xy, gx.size, d2)
+        np.testing.assert_allclose(a, j.T @ j, rtol=1e-10, atol=1e-10 * np.abs(j.T @ j).max())
+        np.testing.assert_allclose(g, j.T @ r, rtol=1e-10, atol=1e-10 * np.abs(j.T @ r).max())
+        assert spot_cost(p, xy, gx.size, d2, float(np.sum(d2 * d2))) == pytest.approx(float(r @ r), rel=1e-10)
+
+
+def test_separable_spot_fit_reaches_scipy_optimum(rng):
+    # Reference: scipy.optimize.least_squares (Virtanen et al. 2020, SciPy 1.0, Nat. Methods 17:261).
+    img, _, _, _ = _trials(rng, radius=1.6, psf=0.8, noise=4.0, n=1)[0]
+    d = (img - LEVEL).ravel()
+    gx = np.arange(img.shape[1], dtype=float)
+    gy = np.arange(img.shape[0], dtype=float)
+    p0 = np.array([14.0, 16.0, 40.0, 1.0, 0.0])
+    lo = np.array([-0.5, -0.5, 0.0, 0.3, -np.inf])
+    hi = np.array([30.5, 30.5, np.inf, 31.0, np.inf])
+    ours = _fit_spot(d, gx, gy, p0, lo, hi)
+    ref = least_squares(lambda p: spot_model(p, gx, gy) - d, p0, bounds=(lo, hi), xtol=1e-12, ftol=1e-12)
+    assert ours.success
+    np.testing.assert_allclose(ours.x[:2], ref.x[:2], atol=LM_AGREE_PX)
+    assert ours.cost <= ref.cost * (1 + 1e-6)
+    np.testing.assert_allclose(ours.fun, spot_model(ours.x, gx, gy) - d)
 
 
 @pytest.mark.parametrize(("radius", "psf", "noise"), [(2.5, 0.7, 3.0), (1.2, 0.6, 3.0), (3.5, 1.0, 6.0)])
