@@ -93,22 +93,34 @@ def test_jacobians_match_finite_differences():
             np.testing.assert_allclose(j[:, i], num, atol=JAC_TOL * max(1.0, np.abs(num).max()))
 
 
-def test_lm_reaches_scipy_optimum(rng):
+def _explicit_fit(d, gx, gy, p0, lo, hi):
+    return levenberg_marquardt(
+        lambda p: spot_model(p, gx, gy) - d, lambda p: spot_jacobian(p, gx, gy), p0, lo, hi
+    )
+
+
+@pytest.mark.parametrize(
+    ("solver", "radius", "psf", "noise", "p0"),
+    [
+        (_explicit_fit, 2.2, 0.7, 3.0, (15.0, 15.0, 60.0, 1.5, 0.0)),  # explicit Jacobian
+        (_fit_spot, 1.6, 0.8, 4.0, (14.0, 16.0, 40.0, 1.0, 0.0)),  # separable normal equations
+    ],
+)
+def test_spot_fit_reaches_scipy_optimum(rng, solver, radius, psf, noise, p0):
     # Reference: scipy.optimize.least_squares (Virtanen et al. 2020, SciPy 1.0, Nat. Methods 17:261).
-    img, u, v, _ = _trials(rng, radius=2.2, psf=0.7, noise=3.0, n=1)[0]
+    img, _, _, _ = _trials(rng, radius=radius, psf=psf, noise=noise, n=1)[0]
     d = (img - LEVEL).ravel()
     gx = np.arange(img.shape[1], dtype=float)
     gy = np.arange(img.shape[0], dtype=float)
-    p0 = np.array([15.0, 15.0, 60.0, 1.5, 0.0])
+    p0 = np.array(p0)
     lo = np.array([-0.5, -0.5, 0.0, 0.3, -np.inf])
     hi = np.array([30.5, 30.5, np.inf, 31.0, np.inf])
-    ours = levenberg_marquardt(
-        lambda p: spot_model(p, gx, gy) - d, lambda p: spot_jacobian(p, gx, gy), p0, lo, hi
-    )
+    ours = solver(d, gx, gy, p0, lo, hi)
     ref = least_squares(lambda p: spot_model(p, gx, gy) - d, p0, bounds=(lo, hi), xtol=1e-12, ftol=1e-12)
     assert ours.success
     np.testing.assert_allclose(ours.x[:2], ref.x[:2], atol=LM_AGREE_PX)
     assert ours.cost <= ref.cost * (1 + 1e-6)
+    np.testing.assert_allclose(ours.fun, spot_model(ours.x, gx, gy) - d)
 
 
 def test_separable_spot_normal_equations_match_the_explicit_jacobian(rng):
@@ -126,23 +138,6 @@ def test_separable_spot_normal_equations_match_the_explicit_jacobian(rng):
         np.testing.assert_allclose(a, j.T @ j, rtol=1e-10, atol=1e-10 * np.abs(j.T @ j).max())
         np.testing.assert_allclose(g, j.T @ r, rtol=1e-10, atol=1e-10 * np.abs(j.T @ r).max())
         assert spot_cost(p, xy, gx.size, d2, float(np.sum(d2 * d2))) == pytest.approx(float(r @ r), rel=1e-10)
-
-
-def test_separable_spot_fit_reaches_scipy_optimum(rng):
-    # Reference: scipy.optimize.least_squares (Virtanen et al. 2020, SciPy 1.0, Nat. Methods 17:261).
-    img, _, _, _ = _trials(rng, radius=1.6, psf=0.8, noise=4.0, n=1)[0]
-    d = (img - LEVEL).ravel()
-    gx = np.arange(img.shape[1], dtype=float)
-    gy = np.arange(img.shape[0], dtype=float)
-    p0 = np.array([14.0, 16.0, 40.0, 1.0, 0.0])
-    lo = np.array([-0.5, -0.5, 0.0, 0.3, -np.inf])
-    hi = np.array([30.5, 30.5, np.inf, 31.0, np.inf])
-    ours = _fit_spot(d, gx, gy, p0, lo, hi)
-    ref = least_squares(lambda p: spot_model(p, gx, gy) - d, p0, bounds=(lo, hi), xtol=1e-12, ftol=1e-12)
-    assert ours.success
-    np.testing.assert_allclose(ours.x[:2], ref.x[:2], atol=LM_AGREE_PX)
-    assert ours.cost <= ref.cost * (1 + 1e-6)
-    np.testing.assert_allclose(ours.fun, spot_model(ours.x, gx, gy) - d)
 
 
 @pytest.mark.parametrize(("radius", "psf", "noise"), [(2.5, 0.7, 3.0), (1.2, 0.6, 3.0), (3.5, 1.0, 6.0)])
