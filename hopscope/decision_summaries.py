@@ -64,9 +64,14 @@ def tolerance_rows(fit: FlightFit) -> Rows:
     return rows
 
 
+#: What a group of one shot shows instead of its SD and extreme spread (they need two shots).
+ONE_SHOT_TEXT = "one shot: no SD or extreme spread"
+
+
 def _stat_text(g: GroupStat, unit: str, fmt: str) -> str:
-    sd = "SD ?" if g.sd is None else f"SD {g.sd:{fmt}}"
-    return f"mean {pm(g.mean, fmt)} {unit}, {sd}, extreme spread {g.extreme_spread:{fmt}} {unit}"
+    if g.n < 2 or g.sd is None:
+        return f"mean {pm(g.mean, fmt)} {unit} ({ONE_SHOT_TEXT})"
+    return f"mean {pm(g.mean, fmt)} {unit}, SD {g.sd:{fmt}}, extreme spread {g.extreme_spread:{fmt}} {unit}"
 
 
 def muzzle_rows(m: MuzzleState) -> Rows:
@@ -170,11 +175,13 @@ def compare_rows(o: CompareOutcome) -> Rows:
         for q in ("speed_mps", "energy_j", "lift_coefficient", "flat_distance_m"):
             st = group_stats(r).get(q)
             if st is not None:
-                sd = "?" if st.sd is None else _quantity_value(q, st.sd, UNITS[q])
-                rows.append(
-                    (f"  {NAMES[q]}", f"mean {pm(st.mean, '.4g')}{' ' + UNITS[q] if UNITS[q] else ''}, SD {sd}, extreme spread "
-                     f"{_quantity_value(q, st.extreme_spread, UNITS[q])}")
-                )  # fmt: skip
+                mean = f"mean {pm(st.mean, '.4g')}{' ' + UNITS[q] if UNITS[q] else ''}"
+                if st.n < 2 or st.sd is None:
+                    rows.append((f"  {NAMES[q]}", f"{mean} ({ONE_SHOT_TEXT})"))
+                    continue
+                sd = _quantity_value(q, st.sd, UNITS[q])
+                spread = _quantity_value(q, st.extreme_spread, UNITS[q])
+                rows.append((f"  {NAMES[q]}", f"{mean}, SD {sd}, extreme spread {spread}"))
         rows.append(("  C_D", pm(s.drag_coefficient)))
         sp = r.spread
         if sp is None:

@@ -256,3 +256,15 @@ def test_output_at_a_folder_or_an_unwritable_place_names_it_not_a_temp_file(tmp_
     assert rc == EXIT_BAD_INPUT and len(lines) == 1, err
     assert str(target) in lines[0] and ".partial" not in lines[0] and "Traceback" not in err
     assert not [p for p in tmp_path.iterdir() if ".partial" in p.name]
+
+
+def test_one_shot_group_rows_say_one_shot_instead_of_an_unknown_sd(tmp_path, capsys):
+    from hopscope.decision_summaries import ONE_SHOT_TEXT
+
+    track = _write(tmp_path, n_shots=1)
+    rc, text, err = _run(capsys, [str(track), "--mass-g", "0.25", "-o", str(tmp_path / "fit.json")])
+    assert rc == EXIT_OK, err
+    for name in ("group speed", "group energy"):
+        line = next(ln for ln in text.splitlines() if name in ln)
+        assert ONE_SHOT_TEXT in line and "SD" not in line.replace(ONE_SHOT_TEXT, ""), line
+    assert "SD ?" not in text
